@@ -1,0 +1,4 @@
+//! placeholder
+pub mod physics;
+pub mod scenario;
+pub mod sensors;
