@@ -1,0 +1,268 @@
+//! The simulator's transports: Modbus TCP on a listener and Modbus RTU on a serial device or pty, both
+//! driven by the sans-IO codec of `oedolog-protocol`, with the wire faults applied to each reply.
+//!
+//! Every request is answered from the shared [`Simulation`] at the time the [`Clock`] gives; the lock
+//! is held only while a reply is computed, never across an await.
+
+use std::sync::{Arc, Mutex};
+use std::time::Duration;
+
+use oedolog_protocol::pdu::Exception;
+use oedolog_protocol::rtu::{RtuSlave, encode_adu, exception_for, silent_interval};
+use oedolog_protocol::tcp::{TcpFramer, encode_adu as tcp_adu};
+use oedolog_protocol::{ExceptionCode, Request, UnitId};
+use tokio::io::{AsyncRead, AsyncReadExt, AsyncWrite, AsyncWriteExt};
+use tokio::net::{TcpListener, TcpStream};
+
+use crate::clock::Clock;
+use crate::device::{Outcome, Simulation};
+use crate::faults::FaultKind;
+
+/// What every transport task shares: the frames and the clock.
+pub struct Shared {
+    /// The simulated frames.
+    pub sim: Mutex<Simulation>,
+    /// Simulated time.
+    pub clock: Arc<dyn Clock>,
+}
+
+impl Shared {
+    /// Shares `sim` under `clock`.
+    pub fn new(sim: Simulation, clock: Arc<dyn Clock>) -> Arc<Shared> {
+        Arc::new(Shared { sim: Mutex::new(sim), clock })
+    }
+
+    /// Runs `f` on the simulation (a poisoned lock is recovered: the simulation has no invariants a
+    /// panicking reader could break).
+    pub fn with<T>(&self, f: impl FnOnce(&mut Simulation) -> T) -> T {
+        let mut sim = self.sim.lock().unwrap_or_else(|e| e.into_inner());
+        f(&mut sim)
+    }
+}
+
+/// How a reply goes out, after the simulation has decided.
+struct Wire {
+    bytes: Vec<u8>,
+    fault: Option<FaultKind>,
+    fault_ms: u64,
+    noise: Vec<u8>,
+}
+
+fn pdu_of(reply: &Result<oedolog_protocol::Response, ExceptionCode>, function: u8) -> Vec<u8> {
+    let mut pdu = Vec::new();
+    match reply {
+        Ok(response) => response.encode(&mut pdu),
+        Err(code) => Exception { function, code: *code }.encode(&mut pdu),
+    }
+    pdu
+}
+
+/// Writes a reply as the fault says. Returns false when the connection/line should drop.
+async fn send<W: AsyncWrite + Unpin>(writer: &mut W, wire: Wire) -> std::io::Result<bool> {
+    match wire.fault {
+        Some(FaultKind::Drop) => return Ok(true),
+        Some(FaultKind::Disconnect) => return Ok(false),
+        Some(FaultKind::Delay) => tokio::time::sleep(Duration::from_millis(wire.fault_ms)).await,
+        Some(FaultKind::Noise) => writer.write_all(&wire.noise).await?,
+        _ => {}
+    }
+    if wire.fault == Some(FaultKind::Split) && wire.bytes.len() > 2 {
+        // Three pieces with pauses well above t1.5: a master must reassemble (or discard) them.
+        let cut = [wire.bytes.len() / 3, 2 * wire.bytes.len() / 3];
+        for piece in [&wire.bytes[..cut[0]], &wire.bytes[cut[0]..cut[1]], &wire.bytes[cut[1]..]] {
+            writer.write_all(piece).await?;
+            writer.flush().await?;
+            tokio::time::sleep(Duration::from_millis(8)).await;
+        }
+    } else {
+        writer.write_all(&wire.bytes).await?;
+    }
+    writer.flush().await?;
+    Ok(true)
+}
+
+/// Serves Modbus TCP on `listener` until the listener fails. Each connection gets its own task; unit ids
+/// select frames; an unknown unit gets exception 0B (gateway target failed to respond), as a gateway would.
+pub async fn serve_tcp(listener: TcpListener, shared: Arc<Shared>) -> std::io::Result<()> {
+    loop {
+        let (stream, _) = listener.accept().await?;
+        let _ = stream.set_nodelay(true);
+        tokio::spawn(serve_tcp_connection(stream, shared.clone()));
+    }
+}
+
+async fn serve_tcp_connection(mut stream: TcpStream, shared: Arc<Shared>) {
+    let mut framer = TcpFramer::new();
+    let mut buf = [0u8; 1024];
+    loop {
+        let n = match stream.read(&mut buf).await {
+            Ok(0) | Err(_) => return,
+            Ok(n) => n,
+        };
+        framer.push(&buf[..n]);
+        loop {
+            let (header, pdu) = match framer.next_frame() {
+                Ok(Some(frame)) => frame,
+                Ok(None) => break,
+                // Out of step: a real device closes the connection.
+                Err(_) => return,
+            };
+            let function = pdu.first().copied().unwrap_or(0);
+            let wire = match Request::decode(&pdu) {
+                Err(error) => Wire {
+                    bytes: tcp_adu(header, &pdu_of(&Err(exception_for(&error)), function)),
+                    fault: None,
+                    fault_ms: 0,
+                    noise: vec![],
+                },
+                Ok(request) => {
+                    let at_s = shared.clock.now_s();
+                    match shared.with(|sim| sim.handle(header.unit, &request, at_s)) {
+                        Outcome::UnknownUnit => Wire {
+                            bytes: tcp_adu(
+                                header,
+                                &pdu_of(&Err(ExceptionCode::GatewayTargetFailedToRespond), function),
+                            ),
+                            fault: None,
+                            fault_ms: 0,
+                            noise: vec![],
+                        },
+                        Outcome::Answer { reply, fault, fault_ms, noise } => {
+                            let mut bytes = tcp_adu(header, &pdu_of(&reply, function));
+                            if fault == Some(FaultKind::BadCrc) {
+                                // TCP has no CRC: spoil the header's protocol id instead, so the master
+                                // sees a stream out of step.
+                                bytes[3] ^= 0x5A;
+                            }
+                            Wire { bytes, fault, fault_ms, noise }
+                        }
+                    }
+                }
+            };
+            match send(&mut stream, wire).await {
+                Ok(true) => {}
+                Ok(false) | Err(_) => return,
+            }
+        }
+    }
+}
+
+/// Serial settings of an RTU line.
+#[derive(Clone, Debug)]
+pub struct RtuLine {
+    /// Device or pty path.
+    pub path: String,
+    /// Baud rate.
+    pub baud: u32,
+    /// Parity.
+    pub parity: tokio_serial::Parity,
+}
+
+/// Opens an RTU line: 8 data bits, 1 stop bit, the given parity.
+pub fn open_rtu(line: &RtuLine) -> tokio_serial::Result<tokio_serial::SerialStream> {
+    use tokio_serial::SerialPortBuilderExt;
+    tokio_serial::new(&line.path, line.baud)
+        .data_bits(tokio_serial::DataBits::Eight)
+        .stop_bits(tokio_serial::StopBits::One)
+        .parity(line.parity)
+        .flow_control(tokio_serial::FlowControl::None)
+        .open_native_async()
+}
+
+/// Serves Modbus RTU on an already opened line until it fails (the device path vanished). Units not
+/// simulated get no reply; broadcasts (unit 0) are executed and never answered.
+pub async fn serve_rtu_port<S: AsyncRead + AsyncWrite + Unpin>(
+    port: &mut S,
+    baud: u32,
+    shared: &Shared,
+) -> std::io::Result<()> {
+    let mut slave = RtuSlave::new();
+    // t3.5 by the serial-line spec, but never under 10 ms: a pty delivers bytes with scheduling jitter,
+    // and the decoder does not need the gap to find frames of known length.
+    let idle = silent_interval(baud).max(Duration::from_millis(10));
+    let mut buf = [0u8; 512];
+    let mut silent_until: Option<tokio::time::Instant> = None;
+    loop {
+        let read = tokio::time::timeout(idle, port.read(&mut buf)).await;
+        match read {
+            Err(_) => {
+                slave.idle_gap();
+            }
+            Ok(Ok(0)) => return Err(std::io::ErrorKind::UnexpectedEof.into()),
+            Ok(Err(error)) => return Err(error),
+            Ok(Ok(n)) => {
+                if silent_until.is_some_and(|until| tokio::time::Instant::now() < until) {
+                    continue;
+                }
+                silent_until = None;
+                slave.push(&buf[..n]);
+            }
+        }
+        while let Some(frame) = slave.decode() {
+            let at_s = shared.clock.now_s();
+            let request = match frame.request {
+                Ok(request) => request,
+                Err(error) => {
+                    if frame.unit.is_individual() && shared.with(|sim| sim.frame(frame.unit).is_some()) {
+                        let code = exception_for(&error);
+                        let bytes = encode_adu(frame.unit, &pdu_of(&Err(code), frame.function));
+                        send(port, Wire { bytes, fault: None, fault_ms: 0, noise: vec![] }).await?;
+                    }
+                    continue;
+                }
+            };
+            if frame.unit == UnitId::BROADCAST {
+                shared.with(|sim| sim.broadcast(&request, at_s));
+                continue;
+            }
+            let Outcome::Answer { reply, fault, fault_ms, noise } =
+                shared.with(|sim| sim.handle(frame.unit, &request, at_s))
+            else {
+                continue;
+            };
+            let mut bytes = encode_adu(frame.unit, &pdu_of(&reply, frame.function));
+            if fault == Some(FaultKind::BadCrc) {
+                let last = bytes.len() - 1;
+                bytes[last] ^= 0xA5;
+            }
+            if fault == Some(FaultKind::Disconnect) {
+                // The line goes dead for a while: nothing read in that time is answered.
+                silent_until = Some(tokio::time::Instant::now() + Duration::from_millis(fault_ms));
+                slave.reset();
+                continue;
+            }
+            send(port, Wire { bytes, fault, fault_ms, noise }).await?;
+            slave.reset();
+        }
+    }
+}
+
+/// Serves an RTU line for ever: opens it, serves it, and when it fails (adapter unplugged, pty closed)
+/// reopens it every `retry` until it comes back.
+pub async fn serve_rtu(line: RtuLine, shared: Arc<Shared>, retry: Duration) {
+    loop {
+        match open_rtu(&line) {
+            Ok(mut port) => {
+                if let Err(error) = serve_rtu_port(&mut port, line.baud, &shared).await {
+                    eprintln!("rtu {}: {error}; reopening", line.path);
+                }
+            }
+            Err(error) => eprintln!("rtu {}: cannot open: {error}; retrying", line.path),
+        }
+        tokio::time::sleep(retry).await;
+    }
+}
+
+/// Applies the automatic schedules as simulated time passes, calling `on_load` for each load applied
+/// (unit, onset on the simulated timeline, stress).
+pub async fn run_schedules(shared: Arc<Shared>, tick: Duration, mut on_load: impl FnMut(UnitId, f64, f64)) {
+    let mut interval = tokio::time::interval(tick);
+    interval.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
+    loop {
+        interval.tick().await;
+        let at_s = shared.clock.now_s();
+        for (unit, onset_s, stress_kpa) in shared.with(|sim| sim.advance(at_s)) {
+            on_load(unit, onset_s, stress_kpa);
+        }
+    }
+}
