@@ -1,12 +1,167 @@
-//! The `oedolog` binary: parses the command line and hands over to the library.
+//! The `oedolog` binary: parses the command line, wires the library together, picks the exit code.
 
-use clap::Parser;
+use std::net::SocketAddr;
+use std::path::PathBuf;
+use std::process::ExitCode;
+use std::sync::Arc;
+
+use anyhow::{Context, bail};
+use clap::{Parser, Subcommand};
+use oedolog::clock::{Clock, SystemClock};
+use oedolog::config::{Config, Purpose};
+use oedolog::{demo, logging, service, store};
 
 /// Data-acquisition daemon for incremental-loading oedometer tests.
 #[derive(Parser, Debug)]
 #[command(name = "oedolog", version, about, long_about = None)]
-struct Cli {}
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
 
-fn main() {
-    let _cli = Cli::parse();
+#[derive(Subcommand, Debug)]
+enum Command {
+    /// Run the daemon: poll every frame, store every reading, serve the dashboard.
+    Run {
+        /// The configuration file.
+        #[arg(long, env = "OEDOLOG_CONFIG", value_name = "FILE")]
+        config: PathBuf,
+        /// Print `committed batch=… readings=… total=… last=…` on stdout after each durable commit.
+        #[arg(long)]
+        report_commits: bool,
+    },
+    /// Simulated frames, the daemon and the dashboard in one process, on a fast clock.
+    Demo {
+        /// Simulated frames.
+        #[arg(long, default_value_t = 6, value_parser = clap::value_parser!(u8).range(1..=32))]
+        frames: u8,
+        /// Simulated seconds per real second.
+        #[arg(long, default_value_t = 300.0)]
+        speed: f64,
+        /// Where the dashboard listens (default: the config's [http] listen, else 127.0.0.1:8321).
+        #[arg(long, value_name = "ADDR")]
+        listen: Option<SocketAddr>,
+        /// The database file (default: a file under the user's data folder).
+        #[arg(long, value_name = "PATH")]
+        db: Option<PathBuf>,
+        /// A configuration file whose [http] section applies to the demo.
+        #[arg(long, value_name = "FILE")]
+        config: Option<PathBuf>,
+    },
+    /// Check a configuration file: a summary, or every problem with its line, column and field.
+    CheckConfig {
+        /// The file.
+        file: PathBuf,
+    },
+    /// Copy the database to DEST while the daemon runs (SQLite's online backup: a consistent copy).
+    Backup {
+        /// Where the copy goes.
+        dest: PathBuf,
+        /// The configuration file naming the database.
+        #[arg(long, env = "OEDOLOG_CONFIG", value_name = "FILE", conflicts_with = "db")]
+        config: Option<PathBuf>,
+        /// The database file itself.
+        #[arg(long, value_name = "PATH")]
+        db: Option<PathBuf>,
+    },
+}
+
+async fn shutdown_signal() -> &'static str {
+    let ctrl_c = tokio::signal::ctrl_c();
+    #[cfg(unix)]
+    {
+        let mut term =
+            tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()).expect("SIGTERM handler");
+        tokio::select! {
+            _ = ctrl_c => "interrupted",
+            _ = term.recv() => "terminated",
+        }
+    }
+    #[cfg(not(unix))]
+    {
+        let _ = ctrl_c.await;
+        "interrupted"
+    }
+}
+
+fn load(path: &std::path::Path, purpose: Purpose) -> anyhow::Result<Config> {
+    Config::load(path, purpose).map_err(|e| anyhow::anyhow!("{}:\n{e}", path.display()))
+}
+
+async fn run(command: Command) -> anyhow::Result<()> {
+    match command {
+        Command::Run { config, report_commits } => {
+            let config = load(&config, Purpose::Run)?;
+            let _guard = logging::init(&config.log).map_err(anyhow::Error::msg)?;
+            let clock: Arc<dyn Clock> = Arc::new(SystemClock);
+            let running = service::start(&config, clock, service::Options { report_commits }).await?;
+            tracing::info!("listening on http://{}/", running.http_addr);
+            let why = shutdown_signal().await;
+            running.stop(why);
+            Ok(())
+        }
+        Command::Demo { frames, speed, listen, db, config } => {
+            if !(speed.is_finite() && speed > 0.0 && speed <= 100_000.0) {
+                bail!("--speed {speed}: allowed a number of simulated seconds per real second, 0 < speed ≤ 100000");
+            }
+            let file = config.as_deref().map(|p| load(p, Purpose::Demo)).transpose()?;
+            let log = file.as_ref().map(|c| c.log.clone()).unwrap_or(oedolog::config::LogConfig {
+                dir: None,
+                keep: 14,
+                level: "info".into(),
+            });
+            let _guard = logging::init(&log).map_err(anyhow::Error::msg)?;
+            let listen =
+                listen.or(file.as_ref().map(|c| c.http.listen)).unwrap_or(oedolog::config::DEFAULT_LISTEN.parse()?);
+            let db = db.unwrap_or_else(demo::default_db);
+            println!(
+                "demo: {frames} simulated frames, clock {speed}× real time (simulated), database {}",
+                db.display()
+            );
+            let (running, _clock) = demo::start(demo::DemoOptions { frames, speed, listen, db })
+                .await
+                .map_err(|e| anyhow::anyhow!("{e}"))
+                .context("starting the demo")?;
+            println!("dashboard at http://{}/", running.http_addr);
+            let why = shutdown_signal().await;
+            running.stop(why);
+            Ok(())
+        }
+        Command::CheckConfig { file } => {
+            let config = load(&file, Purpose::Run)?;
+            println!("{}: valid", file.display());
+            println!("{}", config.summary());
+            Ok(())
+        }
+        Command::Backup { dest, config, db } => {
+            let source = match (db, config) {
+                (Some(db), _) => db,
+                (None, Some(config)) => {
+                    load(&config, Purpose::Run)?.store.context("the configuration has no [store]")?.path
+                }
+                (None, None) => {
+                    bail!("give --config FILE (or OEDOLOG_CONFIG) or --db PATH to say which database to copy")
+                }
+            };
+            if dest.exists() {
+                bail!("{} exists; choose a new file for the backup", dest.display());
+            }
+            store::backup(&source, &dest)
+                .with_context(|| format!("backing up {} to {}", source.display(), dest.display()))?;
+            println!("backup of {} written to {}", source.display(), dest.display());
+            Ok(())
+        }
+    }
+}
+
+#[tokio::main]
+async fn main() -> ExitCode {
+    let cli = Cli::parse();
+    match run(cli.command).await {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(error) => {
+            eprintln!("oedolog: {error:#}");
+            ExitCode::FAILURE
+        }
+    }
 }

@@ -50,6 +50,8 @@ pub struct SimFrame {
     travel_pin_mm: Option<f64>,
     faults: Faults,
     rng: SmallRng,
+    /// Loads the schedule applied that nobody has collected yet: (onset, stress).
+    applied: Vec<(f64, f64)>,
 }
 
 /// The latest sample of a frame's instruments, in engineering units (what the registers hold).
@@ -96,6 +98,7 @@ impl SimFrame {
             travel_pin_mm: None,
             faults: Faults::default(),
             rng: SmallRng::seed_from_u64(seed.wrapping_add(index as u64 * 0x9E37_79B9)),
+            applied: Vec::new(),
         })
     }
 
@@ -115,10 +118,11 @@ impl SimFrame {
     }
 
     /// Applies the schedule's steps due up to `at_s`, each at its own due time (so the truth's onset
-    /// does not depend on when the simulator was asked).
-    pub fn advance(&mut self, at_s: f64) -> Vec<(f64, f64)> {
-        let mut applied = Vec::new();
-        let Some(schedule) = self.schedule.as_mut() else { return applied };
+    /// does not depend on when the simulator was asked). Every poll advances the schedule too; the loads
+    /// applied wait in [`SimFrame::take_applied`] until collected.
+    pub fn advance(&mut self, at_s: f64) {
+        let applied = &mut self.applied;
+        let Some(schedule) = self.schedule.as_mut() else { return };
         while let Some(due_s) = schedule.due_at_s(&self.model) {
             if due_s > at_s {
                 break;
@@ -128,7 +132,11 @@ impl SimFrame {
                 applied.push((due_s, stress_kpa));
             }
         }
-        applied
+    }
+
+    /// The loads the schedule applied since the last call: (onset on the simulated timeline, stress).
+    pub fn take_applied(&mut self) -> Vec<(f64, f64)> {
+        std::mem::take(&mut self.applied)
     }
 
     /// A load change on command (the test's stand-in for the technician); it happens at `at_s`.
@@ -322,7 +330,8 @@ impl Simulation {
     pub fn advance(&mut self, at_s: f64) -> Vec<(UnitId, f64, f64)> {
         let mut applied = Vec::new();
         for frame in &mut self.frames {
-            for (onset_s, stress_kpa) in frame.advance(at_s) {
+            frame.advance(at_s);
+            for (onset_s, stress_kpa) in frame.take_applied() {
                 applied.push((frame.unit, onset_s, stress_kpa));
             }
         }
@@ -444,8 +453,10 @@ mod tests {
     #[test]
     fn automatic_schedule_applies_loads_at_their_due_time() {
         let mut frame = SimFrame::demo(0, 0.0, true, 1).unwrap();
-        let applied = frame.advance(400.0);
-        assert_eq!(applied, vec![(300.0, 12.5)], "frame 0 sits 300 s under seating (scenario.rs)");
+        frame.sample(350.0);
+        frame.advance(400.0);
+        assert_eq!(frame.take_applied(), vec![(300.0, 12.5)], "frame 0 sits 300 s under seating (scenario.rs)");
+        assert_eq!(frame.take_applied(), vec![], "collected once");
         assert_eq!(frame.model().current_increment().unwrap().onset_s, 300.0);
     }
 

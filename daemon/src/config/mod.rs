@@ -1,0 +1,952 @@
+//! Configuration: the TOML file, checked once at the boundary and turned into a runtime value.
+//!
+//! Stage one ([`raw`]) is serde with `deny_unknown_fields`; stage two ([`Config::parse`]) checks every value
+//! against what is allowed and collects *all* problems, each with its line, column and field, so a
+//! technician can fix a file in one pass. Nothing invalid gets past this module: the rest of the daemon
+//! trusts a [`Config`]. A commented sample lives in `daemon/oedolog.sample.toml`.
+
+mod raw;
+
+use std::collections::{HashMap, HashSet};
+use std::fmt;
+use std::net::SocketAddr;
+use std::ops::Range;
+use std::path::PathBuf;
+use std::time::Duration;
+
+use oedolog_protocol::UnitId;
+use oedolog_protocol::gauge::LengthUnit;
+use oedolog_protocol::registers::RegisterMap;
+use oedolog_protocol::rtu::silent_interval;
+use toml::Spanned;
+
+use raw::{RawBus, RawBusKind, RawCalibration, RawChannel, RawConfig, RawDeflection, RawFrame};
+
+/// Baud rates a serial line may use.
+pub const BAUD_RATES: [u32; 8] = [1200, 2400, 4800, 9600, 19_200, 38_400, 57_600, 115_200];
+/// Default HTTP listen address: loopback only.
+pub const DEFAULT_LISTEN: &str = "127.0.0.1:8321";
+
+/// One problem in a configuration file.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct ConfigProblem {
+    /// 1-based line (0 when the file as a whole is meant).
+    pub line: usize,
+    /// 1-based column.
+    pub column: usize,
+    /// The field, as a path: `frame[2].unit`, `bus "line-a".baud`.
+    pub field: String,
+    /// What is wrong and what is allowed.
+    pub message: String,
+}
+
+impl fmt::Display for ConfigProblem {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "line {}, column {}: {}: {}", self.line, self.column, self.field, self.message)
+    }
+}
+
+/// Every problem found in a file.
+#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
+pub struct ConfigError {
+    /// In file order.
+    pub problems: Vec<ConfigProblem>,
+}
+
+impl fmt::Display for ConfigError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        for (i, problem) in self.problems.iter().enumerate() {
+            if i > 0 {
+                writeln!(f)?;
+            }
+            write!(f, "{problem}")?;
+        }
+        Ok(())
+    }
+}
+
+/// The checked configuration.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Config {
+    /// Where readings go (absent in a file meant only for the demo).
+    pub store: Option<StoreConfig>,
+    /// The HTTP server.
+    pub http: HttpConfig,
+    /// Logging.
+    pub log: LogConfig,
+    /// Buses, in file order.
+    pub buses: Vec<Bus>,
+    /// Frames, in file order.
+    pub frames: Vec<Frame>,
+}
+
+/// `[store]`
+#[derive(Clone, Debug, PartialEq)]
+pub struct StoreConfig {
+    /// The SQLite file.
+    pub path: PathBuf,
+    /// Longest wait before readings are committed (the most a power cut can lose).
+    pub flush: Duration,
+    /// Period of WAL checkpoints.
+    pub checkpoint: Duration,
+}
+
+/// `[http]`
+#[derive(Clone, Debug, PartialEq)]
+pub struct HttpConfig {
+    /// Listen address.
+    pub listen: SocketAddr,
+}
+
+/// `[log]`
+#[derive(Clone, Debug, PartialEq)]
+pub struct LogConfig {
+    /// Folder of the rotating log file, if any.
+    pub dir: Option<PathBuf>,
+    /// Files kept.
+    pub keep: usize,
+    /// tracing filter.
+    pub level: String,
+}
+
+/// A bus: one task polls every frame on it, one request at a time.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Bus {
+    /// Its id.
+    pub id: String,
+    /// What it is.
+    pub kind: BusKind,
+}
+
+/// Bus kinds.
+#[derive(Clone, Debug, PartialEq)]
+pub enum BusKind {
+    /// Modbus RTU on a serial line.
+    Rtu(SerialLine),
+    /// Modbus TCP.
+    Tcp(TcpLink),
+    /// A gauge printing one reading per line.
+    LineGauge(LineGauge),
+}
+
+/// Serial settings and timing of an RTU line.
+#[derive(Clone, Debug, PartialEq)]
+pub struct SerialLine {
+    /// Device path.
+    pub device: String,
+    /// Baud rate.
+    pub baud: u32,
+    /// Parity.
+    pub parity: Parity,
+    /// Stop bits, 1 or 2.
+    pub stop_bits: u8,
+    /// Reply deadline.
+    pub timeout: Duration,
+    /// Silence kept before each request.
+    pub gap: Duration,
+    /// Retries after a failed request.
+    pub retries: u32,
+}
+
+/// Parity of a serial line.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Parity {
+    /// No parity bit.
+    None,
+    /// Even parity.
+    Even,
+    /// Odd parity.
+    Odd,
+}
+
+/// A Modbus TCP link.
+#[derive(Clone, Debug, PartialEq)]
+pub struct TcpLink {
+    /// host:port.
+    pub address: String,
+    /// Reply deadline.
+    pub timeout: Duration,
+    /// Retries after a failed request.
+    pub retries: u32,
+}
+
+/// A line-output gauge.
+#[derive(Clone, Debug, PartialEq)]
+pub struct LineGauge {
+    /// Device path.
+    pub device: String,
+    /// Baud rate.
+    pub baud: u32,
+    /// Parity.
+    pub parity: Parity,
+    /// Bytes that ask for a reading; `None` for a gauge that prints on its own.
+    pub request: Option<Vec<u8>>,
+    /// Unit of readings without a suffix.
+    pub unit: LengthUnit,
+    /// How long to wait for a line before counting a timeout.
+    pub timeout: Duration,
+}
+
+/// How a frame puts load on the specimen.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum Loading {
+    /// Weights on a hanger, through a lever: oedolog never commands its load.
+    DeadWeight {
+        /// Force on the specimen per unit of weight on the hanger.
+        lever_ratio: f64,
+    },
+    /// Air pressure.
+    Pneumatic,
+    /// A motor or screw.
+    Motor,
+}
+
+/// A loading frame.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Frame {
+    /// Short id.
+    pub id: String,
+    /// Name on screens.
+    pub name: String,
+    /// Index into [`Config::buses`].
+    pub bus: usize,
+    /// Modbus unit id (line gauges: 0, unused).
+    pub unit: UnitId,
+    /// Loading system.
+    pub loading: Loading,
+    /// Inside area of the specimen ring, mm².
+    pub ring_area_mm2: f64,
+    /// Displacement gauge, mm (compression positive).
+    pub displacement: Channel,
+    /// Load cell, kN.
+    pub load: Option<Channel>,
+    /// Temperature, °C.
+    pub temperature: Option<Channel>,
+    /// Apparatus deflection calibration.
+    pub deflection: Option<DeflectionTable>,
+    /// When to poll.
+    pub poll: PollSchedule,
+}
+
+/// Poll periods of a frame.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct PollSchedule {
+    /// Steady period.
+    pub steady: Duration,
+    /// Period just after a load change (the early readings of the log-time construction).
+    pub fast: Duration,
+    /// How long the fast period lasts.
+    pub fast_window: Duration,
+}
+
+/// A measured channel of a frame.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Channel {
+    /// Where it lives in the device (`None` on a line gauge).
+    pub register: Option<RegisterMap>,
+    /// Raw → engineering unit.
+    pub calibration: Calibration,
+    /// Valid engineering values.
+    pub range: Range<f64>,
+}
+
+/// Raw → engineering value.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Calibration {
+    /// value = gain × raw + offset.
+    Linear {
+        /// Gain.
+        gain: f64,
+        /// Offset.
+        offset: f64,
+    },
+    /// value = c0 + c1·raw + c2·raw² + …
+    Polynomial(Vec<f64>),
+}
+
+impl Calibration {
+    /// The engineering value for a raw number.
+    pub fn apply(&self, raw: f64) -> f64 {
+        match self {
+            Calibration::Linear { gain, offset } => gain * raw + offset,
+            Calibration::Polynomial(c) => c.iter().rev().fold(0.0, |acc, &k| acc * raw + k),
+        }
+    }
+}
+
+/// Apparatus deflection (mm) against applied stress (kPa), per branch, stress strictly increasing.
+#[derive(Clone, Debug, PartialEq)]
+pub struct DeflectionTable {
+    /// Measured while loading.
+    pub loading: Vec<(f64, f64)>,
+    /// Measured while unloading (may be empty).
+    pub unloading: Vec<(f64, f64)>,
+}
+
+/// What the file is for: `run` needs a store and frames; the demo takes only `[http]` and notifications.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Purpose {
+    /// `oedolog run`.
+    Run,
+    /// `oedolog demo --config`.
+    Demo,
+}
+
+struct Checker<'a> {
+    source: &'a str,
+    problems: Vec<ConfigProblem>,
+}
+
+fn line_column(source: &str, offset: usize) -> (usize, usize) {
+    let before = &source[..offset.min(source.len())];
+    let line = before.matches('\n').count() + 1;
+    let column = before.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
+    (line, column)
+}
+
+impl Checker<'_> {
+    fn at(&mut self, span: Range<usize>, field: impl Into<String>, message: impl Into<String>) {
+        let (line, column) = line_column(self.source, span.start);
+        self.problems.push(ConfigProblem { line, column, field: field.into(), message: message.into() });
+    }
+
+    fn int<T: TryFrom<i64>>(
+        &mut self,
+        value: &Spanned<i64>,
+        field: &str,
+        allowed: Range<i64>,
+        what: &str,
+    ) -> Option<T> {
+        let v = *value.get_ref();
+        if allowed.contains(&v) {
+            T::try_from(v).ok()
+        } else {
+            self.at(value.span(), field, format!("{v} is not allowed ({what})"));
+            None
+        }
+    }
+
+    fn millis(&mut self, value: Option<&Spanned<i64>>, field: &str, default: u64, allowed: Range<i64>) -> Duration {
+        match value {
+            None => Duration::from_millis(default),
+            Some(v) => {
+                let what = format!("allowed {} to {} ms", allowed.start, allowed.end - 1);
+                Duration::from_millis(self.int::<u64>(v, field, allowed, &what).unwrap_or(default))
+            }
+        }
+    }
+
+    fn positive(&mut self, value: &Spanned<f64>, field: &str, what: &str) -> Option<f64> {
+        let v = *value.get_ref();
+        if v.is_finite() && v > 0.0 {
+            Some(v)
+        } else {
+            self.at(value.span(), field, format!("{v} is not allowed ({what})"));
+            None
+        }
+    }
+}
+
+fn parity(checker: &mut Checker<'_>, value: Option<&Spanned<String>>, field: &str, default: Parity) -> Parity {
+    match value.map(|v| (v.get_ref().as_str(), v.span())) {
+        None => default,
+        Some(("none", _)) => Parity::None,
+        Some(("even", _)) => Parity::Even,
+        Some(("odd", _)) => Parity::Odd,
+        Some((other, span)) => {
+            checker.at(span, field, format!("`{other}` is not a parity (allowed: none, even, odd)"));
+            default
+        }
+    }
+}
+
+/// Decodes `\r`, `\n`, `\t`, `\\` and `\xHH` in a line gauge's request string.
+fn unescape(text: &str) -> Result<Vec<u8>, String> {
+    let mut out = Vec::new();
+    let mut chars = text.chars();
+    while let Some(c) = chars.next() {
+        if c != '\\' {
+            let mut buf = [0u8; 4];
+            out.extend_from_slice(c.encode_utf8(&mut buf).as_bytes());
+            continue;
+        }
+        match chars.next() {
+            Some('r') => out.push(b'\r'),
+            Some('n') => out.push(b'\n'),
+            Some('t') => out.push(b'\t'),
+            Some('\\') => out.push(b'\\'),
+            Some('x') => {
+                let hex: String = chars.by_ref().take(2).collect();
+                out.push(u8::from_str_radix(&hex, 16).map_err(|_| format!("`\\x{hex}` is not two hex digits"))?);
+            }
+            other => {
+                return Err(format!("unknown escape `\\{}` (allowed: \\r \\n \\t \\\\ \\xHH)", other.unwrap_or(' ')));
+            }
+        }
+    }
+    Ok(out)
+}
+
+fn valid_id(id: &str) -> bool {
+    !id.is_empty() && id.len() <= 32 && id.chars().all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_')
+}
+
+impl Config {
+    /// Parses and checks a configuration file's text.
+    pub fn parse(source: &str, purpose: Purpose) -> Result<Config, ConfigError> {
+        let raw: RawConfig = toml::from_str(source).map_err(|error| {
+            let (line, column) = error.span().map_or((0, 0), |span| line_column(source, span.start));
+            let field = field_of_serde_error(source, &error);
+            ConfigError { problems: vec![ConfigProblem { line, column, field, message: error.message().to_string() }] }
+        })?;
+        let mut checker = Checker { source, problems: Vec::new() };
+        let config = check(&mut checker, raw, purpose);
+        if checker.problems.is_empty() {
+            Ok(config)
+        } else {
+            checker.problems.sort_by_key(|p| (p.line, p.column));
+            Err(ConfigError { problems: checker.problems })
+        }
+    }
+
+    /// Reads and checks a configuration file.
+    pub fn load(path: &std::path::Path, purpose: Purpose) -> Result<Config, ConfigError> {
+        let source = std::fs::read_to_string(path).map_err(|error| ConfigError {
+            problems: vec![ConfigProblem {
+                line: 0,
+                column: 0,
+                field: path.display().to_string(),
+                message: format!("cannot read the file: {error}"),
+            }],
+        })?;
+        Config::parse(&source, purpose)
+    }
+
+    /// A one-paragraph summary for `check-config`.
+    pub fn summary(&self) -> String {
+        let mut out = String::new();
+        if let Some(store) = &self.store {
+            out += &format!("store: {} (commit at least every {} ms)\n", store.path.display(), store.flush.as_millis());
+        }
+        out += &format!("http: {}\n", self.http.listen);
+        for (i, bus) in self.buses.iter().enumerate() {
+            let frames: Vec<&str> = self.frames.iter().filter(|f| f.bus == i).map(|f| f.id.as_str()).collect();
+            let what = match &bus.kind {
+                BusKind::Rtu(s) => format!("modbus-rtu {} {} baud", s.device, s.baud),
+                BusKind::Tcp(t) => format!("modbus-tcp {}", t.address),
+                BusKind::LineGauge(g) => format!("line-gauge {} {} baud", g.device, g.baud),
+            };
+            out += &format!("bus {}: {what}; frames: {}\n", bus.id, frames.join(", "));
+        }
+        out += &format!("{} frame(s), {} bus(es)", self.frames.len(), self.buses.len());
+        out
+    }
+}
+
+/// The dotted field of a serde error, found from its span's table header and key.
+fn field_of_serde_error(source: &str, error: &toml::de::Error) -> String {
+    let Some(span) = error.span() else { return "file".into() };
+    let before = &source[..span.start.min(source.len())];
+    let header = before
+        .lines()
+        .rev()
+        .find_map(|l| {
+            let t = l.trim();
+            (t.starts_with('[') && t.ends_with(']')).then(|| t.trim_matches(|c| c == '[' || c == ']').to_string())
+        })
+        .unwrap_or_default();
+    let line = before.rsplit('\n').next().unwrap_or("").to_string() + &source[span.start.min(source.len())..];
+    let key = line.split('=').next().unwrap_or("").trim().trim_matches('"').to_string();
+    match (header.is_empty(), key.is_empty() || key.starts_with('[')) {
+        (true, true) => "file".into(),
+        (true, false) => key,
+        (false, true) => header,
+        (false, false) => format!("{header}.{key}"),
+    }
+}
+
+fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
+    let store = match (raw.store, purpose) {
+        (Some(s), _) => {
+            if s.path.get_ref().trim().is_empty() {
+                c.at(s.path.span(), "store.path", "must not be empty");
+            }
+            let flush = c.millis(s.flush_ms.as_ref(), "store.flush_ms", 500, 50..1001);
+            let checkpoint = match &s.checkpoint_s {
+                None => Duration::from_secs(300),
+                Some(v) => Duration::from_secs(
+                    c.int::<u64>(v, "store.checkpoint_s", 10..86_401, "allowed 10 to 86400 s").unwrap_or(300),
+                ),
+            };
+            Some(StoreConfig { path: PathBuf::from(s.path.into_inner()), flush, checkpoint })
+        }
+        (None, Purpose::Run) => {
+            c.problems.push(ConfigProblem {
+                line: 1,
+                column: 1,
+                field: "store".into(),
+                message: "missing table [store] with `path` (the SQLite file); `oedolog run` needs it".into(),
+            });
+            None
+        }
+        (None, Purpose::Demo) => None,
+    };
+
+    let listen = match &raw.http.listen {
+        None => DEFAULT_LISTEN.parse().expect("constant"),
+        Some(v) => v.get_ref().parse::<SocketAddr>().unwrap_or_else(|_| {
+            c.at(
+                v.span(),
+                "http.listen",
+                format!("`{}` is not an address (allowed: IP:PORT, e.g. 127.0.0.1:8321)", v.get_ref()),
+            );
+            DEFAULT_LISTEN.parse().expect("constant")
+        }),
+    };
+
+    let log = LogConfig {
+        dir: raw.log.dir.map(|d| PathBuf::from(d.into_inner())),
+        keep: raw
+            .log
+            .keep
+            .as_ref()
+            .and_then(|k| c.int::<usize>(k, "log.keep", 1..1001, "allowed 1 to 1000 files"))
+            .unwrap_or(14),
+        level: raw.log.level.map_or_else(|| "info".to_string(), |l| l.into_inner()),
+    };
+
+    let mut buses = Vec::new();
+    let mut bus_index = HashMap::new();
+    for (i, b) in raw.buses.into_iter().enumerate() {
+        let id = b.id.get_ref().clone();
+        let field = |name: &str| format!("bus[{i}].{name}");
+        if !valid_id(&id) {
+            c.at(b.id.span(), field("id"), format!("`{id}` is not an id (allowed: 1–32 letters, digits, `-`, `_`)"));
+        }
+        if bus_index.insert(id.clone(), i).is_some() {
+            c.at(b.id.span(), field("id"), format!("bus id `{id}` is used twice"));
+        }
+        if let Some(kind) = check_bus(c, &b, i) {
+            buses.push(Bus { id, kind });
+        } else {
+            // Keep indices aligned with the file so frames can still be checked against their bus.
+            buses.push(Bus {
+                id,
+                kind: BusKind::Tcp(TcpLink { address: String::new(), timeout: Duration::from_secs(1), retries: 0 }),
+            });
+        }
+    }
+
+    let mut frames = Vec::new();
+    let mut frame_ids = HashSet::new();
+    let mut units = HashMap::new();
+    for (i, f) in raw.frames.into_iter().enumerate() {
+        if let Some(frame) = check_frame(c, f, i, &bus_index, &buses, &mut frame_ids, &mut units) {
+            frames.push(frame);
+        }
+    }
+    if purpose == Purpose::Run && frames.is_empty() && c.problems.is_empty() {
+        c.problems.push(ConfigProblem {
+            line: 1,
+            column: 1,
+            field: "frame".into(),
+            message: "no [[frame]] tables: `oedolog run` needs at least one frame".into(),
+        });
+    }
+    // Line gauges carry exactly one frame.
+    for (i, bus) in buses.iter().enumerate() {
+        if matches!(bus.kind, BusKind::LineGauge(_)) && frames.iter().filter(|f| f.bus == i).count() > 1 {
+            c.problems.push(ConfigProblem {
+                line: 1,
+                column: 1,
+                field: format!("bus[{i}]"),
+                message: format!("line-gauge bus `{}` carries more than one frame (allowed: one)", bus.id),
+            });
+        }
+    }
+    Config { store, http: HttpConfig { listen }, log, buses, frames }
+}
+
+fn check_bus(c: &mut Checker<'_>, b: &RawBus, i: usize) -> Option<BusKind> {
+    let field = |name: &str| format!("bus[{i}].{name}");
+    let kind = *b.kind.get_ref();
+    let kind_name = match kind {
+        RawBusKind::ModbusRtu => "modbus-rtu",
+        RawBusKind::ModbusTcp => "modbus-tcp",
+        RawBusKind::LineGauge => "line-gauge",
+    };
+    // Fields that do not belong to this kind are refused rather than ignored.
+    let foreign: [(&str, Option<Range<usize>>, bool); 7] = [
+        ("device", b.device.as_ref().map(|v| v.span()), kind != RawBusKind::ModbusTcp),
+        ("baud", b.baud.as_ref().map(|v| v.span()), kind != RawBusKind::ModbusTcp),
+        ("address", b.address.as_ref().map(|v| v.span()), kind == RawBusKind::ModbusTcp),
+        ("gap_ms", b.gap_ms.as_ref().map(|v| v.span()), kind == RawBusKind::ModbusRtu),
+        ("stop_bits", b.stop_bits.as_ref().map(|v| v.span()), kind == RawBusKind::ModbusRtu),
+        ("request", b.request.as_ref().map(|v| v.span()), kind == RawBusKind::LineGauge),
+        ("line_unit", b.line_unit.as_ref().map(|v| v.span()), kind == RawBusKind::LineGauge),
+    ];
+    for (name, span, allowed) in foreign {
+        if let (Some(span), false) = (span, allowed) {
+            c.at(span, field(name), format!("not a setting of a {kind_name} bus"));
+        }
+    }
+    let mut device = || match &b.device {
+        Some(d) if !d.get_ref().trim().is_empty() => Some(d.get_ref().clone()),
+        Some(d) => {
+            c.at(d.span(), field("device"), "must not be empty");
+            None
+        }
+        None => {
+            c.at(b.kind.span(), field("device"), format!("a {kind_name} bus needs `device` (the serial port path)"));
+            None
+        }
+    };
+    let device = if kind == RawBusKind::ModbusTcp { Some(String::new()) } else { device() };
+    let baud = match &b.baud {
+        None => 19_200,
+        Some(v) => {
+            let ok = u32::try_from(*v.get_ref()).ok().filter(|b| BAUD_RATES.contains(b));
+            ok.unwrap_or_else(|| {
+                let list: Vec<String> = BAUD_RATES.iter().map(u32::to_string).collect();
+                c.at(v.span(), field("baud"), format!("{} is not allowed (allowed: {})", v.get_ref(), list.join(", ")));
+                19_200
+            })
+        }
+    };
+    let retries = b
+        .retries
+        .as_ref()
+        .map_or(Some(2), |r| c.int::<u32>(r, &field("retries"), 0..11, "allowed 0 to 10"))
+        .unwrap_or(2);
+    match kind {
+        RawBusKind::ModbusRtu => {
+            let parity = parity(c, b.parity.as_ref(), &field("parity"), Parity::Even);
+            let stop_bits = b
+                .stop_bits
+                .as_ref()
+                .map_or(Some(1), |s| c.int::<u8>(s, &field("stop_bits"), 1..3, "allowed 1 or 2"))
+                .unwrap_or(1);
+            let timeout = c.millis(b.timeout_ms.as_ref(), &field("timeout_ms"), 500, 10..60_001);
+            let gap = match &b.gap_ms {
+                None => silent_interval(baud),
+                Some(g) => match c.positive(g, &field("gap_ms"), "allowed a positive number of ms, at most 1000") {
+                    Some(ms) if ms <= 1000.0 => Duration::from_secs_f64(ms / 1000.0),
+                    Some(ms) => {
+                        c.at(g.span(), field("gap_ms"), format!("{ms} is not allowed (at most 1000 ms)"));
+                        silent_interval(baud)
+                    }
+                    None => silent_interval(baud),
+                },
+            };
+            Some(BusKind::Rtu(SerialLine { device: device?, baud, parity, stop_bits, timeout, gap, retries }))
+        }
+        RawBusKind::ModbusTcp => {
+            let timeout = c.millis(b.timeout_ms.as_ref(), &field("timeout_ms"), 1000, 10..60_001);
+            let Some(address) = &b.address else {
+                c.at(
+                    b.kind.span(),
+                    field("address"),
+                    "a modbus-tcp bus needs `address` (host:port, e.g. 192.168.1.20:502)",
+                );
+                return None;
+            };
+            let text = address.get_ref();
+            let port_ok = text
+                .rsplit_once(':')
+                .is_some_and(|(host, port)| !host.is_empty() && port.parse::<u16>().is_ok_and(|p| p > 0));
+            if !port_ok {
+                c.at(address.span(), field("address"), format!("`{text}` is not host:port (e.g. 192.168.1.20:502)"));
+                return None;
+            }
+            Some(BusKind::Tcp(TcpLink { address: text.clone(), timeout, retries }))
+        }
+        RawBusKind::LineGauge => {
+            let parity = parity(c, b.parity.as_ref(), &field("parity"), Parity::None);
+            let timeout = c.millis(b.timeout_ms.as_ref(), &field("timeout_ms"), 2000, 10..60_001);
+            let request = match &b.request {
+                None => None,
+                Some(r) => match unescape(r.get_ref()) {
+                    Ok(bytes) if !bytes.is_empty() => Some(bytes),
+                    Ok(_) => {
+                        c.at(
+                            r.span(),
+                            field("request"),
+                            "must not be empty (leave it out for a gauge that prints on its own)",
+                        );
+                        None
+                    }
+                    Err(message) => {
+                        c.at(r.span(), field("request"), message);
+                        None
+                    }
+                },
+            };
+            let unit = match b.line_unit.as_ref().map(|u| (u.get_ref().as_str(), u.span())) {
+                None | Some(("mm", _)) => LengthUnit::Mm,
+                Some(("in", _)) => LengthUnit::In,
+                Some((other, span)) => {
+                    c.at(span, field("line_unit"), format!("`{other}` is not allowed (allowed: mm, in)"));
+                    LengthUnit::Mm
+                }
+            };
+            Some(BusKind::LineGauge(LineGauge { device: device?, baud, parity, request, unit, timeout }))
+        }
+    }
+}
+
+#[allow(clippy::too_many_arguments)]
+fn check_frame(
+    c: &mut Checker<'_>,
+    f: RawFrame,
+    i: usize,
+    bus_index: &HashMap<String, usize>,
+    buses: &[Bus],
+    frame_ids: &mut HashSet<String>,
+    units: &mut HashMap<(usize, u8), String>,
+) -> Option<Frame> {
+    let field = |name: &str| format!("frame[{i}].{name}");
+    let id = f.id.get_ref().clone();
+    let before = c.problems.len();
+    if !valid_id(&id) {
+        c.at(f.id.span(), field("id"), format!("`{id}` is not an id (allowed: 1–32 letters, digits, `-`, `_`)"));
+    }
+    if !frame_ids.insert(id.clone()) {
+        c.at(f.id.span(), field("id"), format!("frame id `{id}` is used twice"));
+    }
+    let bus = bus_index.get(f.bus.get_ref()).copied();
+    if bus.is_none() {
+        let known: Vec<&str> = buses.iter().map(|b| b.id.as_str()).collect();
+        let known = if known.is_empty() { "none defined".to_string() } else { known.join(", ") };
+        c.at(f.bus.span(), field("bus"), format!("no bus `{}` (buses: {known})", f.bus.get_ref()));
+    }
+    let bus_kind = bus.map(|b| &buses[b].kind);
+    let line_gauge = matches!(bus_kind, Some(BusKind::LineGauge(_)));
+    let unit = match (&f.unit, bus_kind) {
+        (Some(u), Some(BusKind::LineGauge(_))) => {
+            c.at(u.span(), field("unit"), "a frame on a line-gauge bus has no unit id");
+            None
+        }
+        (Some(u), Some(BusKind::Rtu(_))) => c.int::<u8>(u, &field("unit"), 1..248, "allowed 1 to 247 on a serial line"),
+        (Some(u), _) => c.int::<u8>(u, &field("unit"), 0..256, "allowed 0 to 255 on Modbus TCP"),
+        (None, Some(BusKind::LineGauge(_))) => Some(0),
+        (None, _) => {
+            c.at(f.id.span(), field("unit"), "missing `unit` (the frame's Modbus unit id)");
+            None
+        }
+    };
+    if let (Some(bus), Some(unit)) = (bus, unit)
+        && !line_gauge
+        && let Some(other) = units.insert((bus, unit), id.clone())
+    {
+        let span = f.unit.as_ref().map_or(f.id.span(), |u| u.span());
+        c.at(span, field("unit"), format!("unit {unit} on bus `{}` is already frame `{other}`", f.bus.get_ref()));
+    }
+    let loading = match f.loading.as_ref().map(|l| (l.get_ref().as_str(), l.span())) {
+        None | Some(("dead-weight", _)) => {
+            let lever_ratio = f
+                .lever_ratio
+                .as_ref()
+                .map_or(Some(1.0), |r| c.positive(r, &field("lever_ratio"), "allowed a positive ratio, e.g. 10"));
+            Loading::DeadWeight { lever_ratio: lever_ratio.unwrap_or(1.0) }
+        }
+        Some((kind, span)) => {
+            if let Some(r) = &f.lever_ratio {
+                c.at(
+                    r.span(),
+                    field("lever_ratio"),
+                    format!("only dead-weight frames have a lever ratio (loading is `{kind}`)"),
+                );
+            }
+            match kind {
+                "pneumatic" => Loading::Pneumatic,
+                "motor" => Loading::Motor,
+                other => {
+                    c.at(
+                        span,
+                        field("loading"),
+                        format!("`{other}` is not allowed (allowed: dead-weight, pneumatic, motor)"),
+                    );
+                    Loading::DeadWeight { lever_ratio: 1.0 }
+                }
+            }
+        }
+    };
+    let ring_area_mm2 = match (&f.ring_area_mm2, &f.ring_diameter_mm) {
+        (Some(a), None) => c.positive(a, &field("ring_area_mm2"), "allowed a positive area in mm², e.g. 3117"),
+        (None, Some(d)) => c
+            .positive(d, &field("ring_diameter_mm"), "allowed a positive diameter in mm, e.g. 63.5")
+            .map(|d| std::f64::consts::PI * d * d / 4.0),
+        (Some(a), Some(_)) => {
+            c.at(a.span(), field("ring_area_mm2"), "give ring_area_mm2 or ring_diameter_mm, not both");
+            None
+        }
+        (None, None) => {
+            c.at(f.id.span(), field("ring_area_mm2"), "missing the ring size: `ring_area_mm2` or `ring_diameter_mm`");
+            None
+        }
+    };
+    let steady = c.millis(f.poll_ms.as_ref(), &field("poll_ms"), 1000, 10..3_600_001);
+    let fast =
+        c.millis(f.fast_poll_ms.as_ref(), &field("fast_poll_ms"), 200.min(steady.as_millis() as u64), 10..3_600_001);
+    if fast > steady {
+        let span = f.fast_poll_ms.as_ref().map_or(f.id.span(), |v| v.span());
+        c.at(
+            span,
+            field("fast_poll_ms"),
+            format!(
+                "{} ms is slower than poll_ms {} ms (allowed: fast_poll_ms ≤ poll_ms)",
+                fast.as_millis(),
+                steady.as_millis()
+            ),
+        );
+    }
+    let fast_window = match &f.fast_window_s {
+        None => Duration::from_secs(600),
+        Some(v) => Duration::from_secs(
+            c.int::<u64>(v, &field("fast_window_s"), 0..86_401, "allowed 0 to 86400 s").unwrap_or(600),
+        ),
+    };
+    let displacement = check_channel(c, f.displacement, &field("displacement"), line_gauge, (-1.0, 100.0), (0.0, 1.0));
+    let load = match f.load {
+        Some(l) => {
+            if line_gauge {
+                c.at(l.span(), field("load"), "a line-gauge bus reads only the displacement");
+                None
+            } else {
+                check_channel(c, l, &field("load"), false, (-0.5, 100.0), (0.0, 1e-4))
+            }
+        }
+        None if !line_gauge => {
+            c.at(f.id.span(), field("load"), "missing [frame.load] (the load cell)");
+            None
+        }
+        None => None,
+    };
+    let temperature = f.temperature.and_then(|t| {
+        if line_gauge {
+            c.at(t.span(), field("temperature"), "a line-gauge bus reads only the displacement");
+            None
+        } else {
+            check_channel(c, t, &field("temperature"), false, (-20.0, 80.0), (0.0, 0.01))
+        }
+    });
+    let deflection = f.deflection.and_then(|d| check_deflection(c, d, &field("deflection")));
+    if c.problems.len() > before {
+        return None;
+    }
+    Some(Frame {
+        name: f.name.unwrap_or_else(|| id.clone()),
+        id,
+        bus: bus?,
+        unit: UnitId(unit?),
+        loading,
+        ring_area_mm2: ring_area_mm2?,
+        displacement: displacement?,
+        load,
+        temperature,
+        deflection,
+        poll: PollSchedule { steady, fast, fast_window },
+    })
+}
+
+fn check_channel(
+    c: &mut Checker<'_>,
+    channel: Spanned<RawChannel>,
+    field: &str,
+    line_gauge: bool,
+    default_range: (f64, f64),
+    default_linear: (f64, f64),
+) -> Option<Channel> {
+    let span = channel.span();
+    let channel = channel.into_inner();
+    let register = match (channel.register, line_gauge) {
+        (Some(_), true) => {
+            c.at(span.clone(), format!("{field}.register"), "a line gauge has no registers");
+            None
+        }
+        (Some(map), false) => match map.validate() {
+            Ok(()) => Some(map),
+            Err(error) => {
+                c.at(span.clone(), format!("{field}.register"), error.to_string());
+                None
+            }
+        },
+        (None, false) => {
+            c.at(span.clone(), format!("{field}.register"), "missing `register` (table, address, type)");
+            None
+        }
+        (None, true) => None,
+    };
+    let calibration = match channel.calibration {
+        None if line_gauge => Calibration::Linear { gain: 1.0, offset: 0.0 },
+        None => Calibration::Linear { gain: default_linear.1.max(f64::MIN_POSITIVE), offset: default_linear.0 },
+        Some(RawCalibration { polynomial: Some(p), gain: None, offset: None }) => {
+            if p.is_empty() || p.len() > 6 || p.iter().any(|k| !k.is_finite()) || p.iter().skip(1).all(|k| *k == 0.0) {
+                c.at(
+                    span.clone(),
+                    format!("{field}.calibration.polynomial"),
+                    "allowed 2 to 6 finite coefficients [c0, c1, …], not all of c1… zero",
+                );
+            }
+            Calibration::Polynomial(p)
+        }
+        Some(RawCalibration { polynomial: None, gain, offset }) => {
+            let gain = gain.unwrap_or(1.0);
+            let offset = offset.unwrap_or(0.0);
+            if !gain.is_finite() || gain == 0.0 || !offset.is_finite() {
+                c.at(
+                    span.clone(),
+                    format!("{field}.calibration"),
+                    format!("gain {gain}, offset {offset}: allowed a finite non-zero gain and a finite offset"),
+                );
+            }
+            Calibration::Linear { gain, offset }
+        }
+        Some(_) => {
+            c.at(span.clone(), format!("{field}.calibration"), "give `gain`/`offset` or `polynomial`, not both");
+            Calibration::Linear { gain: 1.0, offset: 0.0 }
+        }
+    };
+    let range = match channel.range {
+        None => default_range.0..default_range.1,
+        Some(r) => match r.get_ref().as_slice() {
+            [min, max] if min.is_finite() && max.is_finite() && min < max => *min..*max,
+            _ => {
+                c.at(r.span(), format!("{field}.range"), "allowed [min, max] with min < max, both finite");
+                default_range.0..default_range.1
+            }
+        },
+    };
+    Some(Channel { register, calibration, range })
+}
+
+fn check_branch(c: &mut Checker<'_>, points: &Spanned<Vec<Vec<f64>>>, field: &str) -> Vec<(f64, f64)> {
+    let mut out = Vec::new();
+    for point in points.get_ref() {
+        match point.as_slice() {
+            [stress, deflection] if stress.is_finite() && deflection.is_finite() && *stress >= 0.0 => {
+                out.push((*stress, *deflection))
+            }
+            _ => {
+                c.at(points.span(), field, "allowed pairs [stress_kpa ≥ 0, deflection_mm]");
+                return Vec::new();
+            }
+        }
+    }
+    if out.windows(2).any(|w| w[1].0 <= w[0].0) {
+        c.at(points.span(), field, "stresses must increase strictly from one pair to the next");
+    }
+    if out.len() < 2 {
+        c.at(points.span(), field, "allowed at least two pairs [stress_kpa, deflection_mm]");
+    }
+    out
+}
+
+fn check_deflection(c: &mut Checker<'_>, d: RawDeflection, field: &str) -> Option<DeflectionTable> {
+    let loading = check_branch(c, &d.loading, &format!("{field}.loading"));
+    let unloading = d.unloading.as_ref().map(|u| check_branch(c, u, &format!("{field}.unloading"))).unwrap_or_default();
+    Some(DeflectionTable { loading, unloading })
+}
+
+#[cfg(test)]
+mod tests;

@@ -1,0 +1,166 @@
+//! The configuration file as written: serde structures that mirror the TOML, nothing checked beyond types.
+//!
+//! Every table refuses unknown fields. Values that need checks beyond their type are `Spanned`, so the
+//! validation in [`super::validate`] can point at their line and column. Nothing outside `config` sees these.
+
+use oedolog_protocol::registers::RegisterMap;
+use serde::Deserialize;
+use toml::Spanned;
+
+/// The whole file.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawConfig {
+    /// Where readings are stored.
+    pub store: Option<RawStore>,
+    /// The HTTP server.
+    #[serde(default)]
+    pub http: RawHttp,
+    /// Logging.
+    #[serde(default)]
+    pub log: RawLog,
+    /// Serial lines and TCP links.
+    #[serde(default, rename = "bus")]
+    pub buses: Vec<RawBus>,
+    /// Loading frames.
+    #[serde(default, rename = "frame")]
+    pub frames: Vec<RawFrame>,
+}
+
+/// `[store]`
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawStore {
+    /// SQLite file.
+    pub path: Spanned<String>,
+    /// Longest wait before a batch of readings is committed, ms (50..=1000; default 500).
+    pub flush_ms: Option<Spanned<i64>>,
+    /// Period of WAL checkpoints, s (default 300).
+    pub checkpoint_s: Option<Spanned<i64>>,
+}
+
+/// `[http]`
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawHttp {
+    /// Listen address (default 127.0.0.1:8321).
+    pub listen: Option<Spanned<String>>,
+}
+
+/// `[log]`
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawLog {
+    /// Folder for a daily-rotated log file (optional; stderr always).
+    pub dir: Option<Spanned<String>>,
+    /// Log files kept (default 14).
+    pub keep: Option<Spanned<i64>>,
+    /// Filter, e.g. `info` or `oedolog=debug` (default `info`).
+    pub level: Option<Spanned<String>>,
+}
+
+/// `[[bus]]`: one serial line or TCP link, polled by one task.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawBus {
+    /// Name frames refer to.
+    pub id: Spanned<String>,
+    /// `modbus-rtu`, `modbus-tcp` or `line-gauge`.
+    pub kind: Spanned<RawBusKind>,
+    /// Serial device path (RTU, line gauge).
+    pub device: Option<Spanned<String>>,
+    /// Baud rate (RTU, line gauge).
+    pub baud: Option<Spanned<i64>>,
+    /// `none`, `even` or `odd` (RTU default even; line gauge default none).
+    pub parity: Option<Spanned<String>>,
+    /// 1 or 2 (default 1).
+    pub stop_bits: Option<Spanned<i64>>,
+    /// host:port (TCP).
+    pub address: Option<Spanned<String>>,
+    /// Reply deadline, ms.
+    pub timeout_ms: Option<Spanned<i64>>,
+    /// Silence kept between frames on the line, ms (RTU; default t3.5 of the baud rate).
+    pub gap_ms: Option<Spanned<f64>>,
+    /// Retries after a failed request (default 2).
+    pub retries: Option<Spanned<i64>>,
+    /// Bytes sent to ask a line gauge for a reading (optional; escapes \r \n \t \\ \xHH).
+    pub request: Option<Spanned<String>>,
+    /// Unit of a line gauge's readings without a suffix: `mm` or `in` (default mm).
+    pub line_unit: Option<Spanned<String>>,
+}
+
+/// The bus kinds.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub(crate) enum RawBusKind {
+    ModbusRtu,
+    ModbusTcp,
+    LineGauge,
+}
+
+/// `[[frame]]`
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawFrame {
+    /// Short id (letters, digits, `-`, `_`).
+    pub id: Spanned<String>,
+    /// Name on screens (default: the id).
+    pub name: Option<String>,
+    /// The bus it is on.
+    pub bus: Spanned<String>,
+    /// Modbus unit id (not for line gauges).
+    pub unit: Option<Spanned<i64>>,
+    /// `dead-weight` (default), `pneumatic` or `motor`.
+    pub loading: Option<Spanned<String>>,
+    /// Lever ratio of a dead-weight frame (force on the specimen per weight on the hanger; 1 for direct).
+    pub lever_ratio: Option<Spanned<f64>>,
+    /// Inside area of the specimen ring, mm².
+    pub ring_area_mm2: Option<Spanned<f64>>,
+    /// Inside diameter of the ring, mm (instead of the area).
+    pub ring_diameter_mm: Option<Spanned<f64>>,
+    /// Steady poll period, ms (default 1000).
+    pub poll_ms: Option<Spanned<i64>>,
+    /// Poll period just after a load change, ms (default 200).
+    pub fast_poll_ms: Option<Spanned<i64>>,
+    /// How long the fast period lasts after a load change, s (default 600).
+    pub fast_window_s: Option<Spanned<i64>>,
+    /// The displacement gauge.
+    pub displacement: Spanned<RawChannel>,
+    /// The load cell (optional on a line-gauge bus).
+    pub load: Option<Spanned<RawChannel>>,
+    /// A temperature sensor (optional).
+    pub temperature: Option<Spanned<RawChannel>>,
+    /// The apparatus-deflection calibration.
+    pub deflection: Option<RawDeflection>,
+}
+
+/// A measured channel.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawChannel {
+    /// Where the value is in the device (not for a line gauge).
+    pub register: Option<RegisterMap>,
+    /// Counts → engineering unit.
+    pub calibration: Option<RawCalibration>,
+    /// Valid engineering values, [min, max]; others are refused and raise an event.
+    pub range: Option<Spanned<Vec<f64>>>,
+}
+
+/// `calibration = { gain = …, offset = … }` or `{ polynomial = [c0, c1, …] }`.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawCalibration {
+    pub gain: Option<f64>,
+    pub offset: Option<f64>,
+    pub polynomial: Option<Vec<f64>>,
+}
+
+/// `[frame.deflection]`: deflection of the apparatus alone vs applied stress, per branch.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawDeflection {
+    /// [[stress_kpa, deflection_mm], …] measured while loading.
+    pub loading: Spanned<Vec<Vec<f64>>>,
+    /// The same while unloading (optional).
+    pub unloading: Option<Spanned<Vec<Vec<f64>>>>,
+}

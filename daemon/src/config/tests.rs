@@ -1,0 +1,275 @@
+//! Configuration tests: the sample parses, and a table of broken files each gets the message it must.
+
+use super::*;
+
+const SAMPLE: &str = include_str!("../../oedolog.sample.toml");
+
+/// A small valid file that the broken cases below each spoil in one place.
+const BASE: &str = r#"
+[store]
+path = "lab.sqlite"
+
+[[bus]]
+id = "line-a"
+kind = "modbus-rtu"
+device = "/dev/ttyUSB0"
+baud = 19200
+
+[[frame]]
+id = "F1"
+bus = "line-a"
+unit = 1
+ring_diameter_mm = 63.5
+[frame.displacement]
+register = { table = "input", address = 0, type = "i32" }
+calibration = { gain = 0.0001 }
+[frame.load]
+register = { table = "input", address = 2, type = "i32" }
+calibration = { gain = 0.0001 }
+"#;
+
+#[test]
+fn the_sample_file_is_valid_and_complete() {
+    let config = Config::parse(SAMPLE, Purpose::Run).unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!(config.buses.len(), 3);
+    assert_eq!(config.frames.len(), 3);
+    let f1 = &config.frames[0];
+    assert_eq!(f1.loading, Loading::DeadWeight { lever_ratio: 10.0 });
+    assert!((f1.ring_area_mm2 - 3166.92).abs() < 0.01, "π·63.5²/4 = 3166.92 mm²");
+    assert_eq!(f1.poll.fast, Duration::from_millis(200));
+    assert_eq!(f1.deflection.as_ref().unwrap().unloading.len(), 4);
+    let BusKind::LineGauge(gauge) = &config.buses[2].kind else { panic!() };
+    assert_eq!(gauge.request.as_deref(), Some(&b"?\r"[..]));
+    assert!(config.summary().contains("bus bench-rs485: modbus-rtu /dev/ttyUSB0 19200 baud; frames: F1"));
+}
+
+#[test]
+fn base_file_is_valid_and_defaults_apply() {
+    let config = Config::parse(BASE, Purpose::Run).unwrap_or_else(|e| panic!("{e}"));
+    let BusKind::Rtu(line) = &config.buses[0].kind else { panic!() };
+    assert_eq!(line.parity, Parity::Even, "the serial-line spec's default");
+    assert_eq!(line.gap, silent_interval(19_200));
+    assert_eq!(config.http.listen.to_string(), DEFAULT_LISTEN);
+    assert_eq!(config.store.as_ref().unwrap().flush, Duration::from_millis(500));
+    assert_eq!(config.frames[0].poll.steady, Duration::from_secs(1));
+    assert!((config.frames[0].displacement.calibration.apply(123_456.0) - 12.3456).abs() < 1e-12);
+}
+
+#[test]
+fn calibration_polynomial_evaluates_in_horner_form() {
+    let p = Calibration::Polynomial(vec![1.0, 2.0, 3.0]);
+    assert_eq!(p.apply(2.0), 1.0 + 4.0 + 12.0);
+}
+
+/// (name, change to BASE, field the message must name, words it must contain, line it must point at)
+type Case = (&'static str, fn(&str) -> String, &'static str, &'static str, usize);
+
+fn replace(from: &'static str, to: &'static str) -> impl Fn(&str) -> String {
+    move |s: &str| {
+        assert!(s.contains(from), "BASE lacks `{from}`");
+        s.replacen(from, to, 1)
+    }
+}
+
+#[test]
+fn broken_files_each_get_a_message_naming_the_field_and_what_is_allowed() {
+    let cases: Vec<Case> = vec![
+        (
+            "unknown field",
+            |s| replace("baud = 19200", "baud = 19200\nspeed = 9")(s),
+            "bus.speed",
+            "unknown field `speed`",
+            10,
+        ),
+        ("wrong type", |s| replace("unit = 1", "unit = \"one\"")(s), "frame.unit", "invalid type", 14),
+        (
+            "missing bus",
+            |s| replace("bus = \"line-a\"", "bus = \"line-b\"")(s),
+            "frame[0].bus",
+            "no bus `line-b` (buses: line-a)",
+            13,
+        ),
+        (
+            "duplicate frame id",
+            |s| format!("{s}{}", &s[s.find("[[frame]]").unwrap()..]),
+            "frame[1].id",
+            "frame id `F1` is used twice",
+            23,
+        ),
+        ("unit outside 1..247", |s| replace("unit = 1", "unit = 248")(s), "frame[0].unit", "allowed 1 to 247", 14),
+        ("bad baud", |s| replace("baud = 19200", "baud = 20000")(s), "bus[0].baud", "allowed: 1200, 2400", 9),
+        (
+            "bad register type",
+            |s| {
+                replace(
+                    "type = \"i32\" }\ncalibration = { gain = 0.0001 }\n[frame.load]",
+                    "type = \"i48\" }\ncalibration = { gain = 0.0001 }\n[frame.load]",
+                )(s)
+            },
+            "frame.displacement.register",
+            "unknown variant `i48`",
+            17,
+        ),
+        (
+            "negative period",
+            |s| replace("unit = 1", "unit = 1\npoll_ms = -5")(s),
+            "frame[0].poll_ms",
+            "allowed 10 to 3600000 ms",
+            15,
+        ),
+        (
+            "bad parity",
+            |s| replace("baud = 19200", "baud = 19200\nparity = \"mark\"")(s),
+            "bus[0].parity",
+            "allowed: none, even, odd",
+            10,
+        ),
+        (
+            "duplicate bus id",
+            |s| {
+                replace(
+                    "[[frame]]",
+                    "[[bus]]\nid = \"line-a\"\nkind = \"modbus-tcp\"\naddress = \"10.0.0.1:502\"\n\n[[frame]]",
+                )(s)
+            },
+            "bus[1].id",
+            "bus id `line-a` is used twice",
+            12,
+        ),
+        (
+            "two frames on one unit",
+            |s| format!("{s}{}", s[s.find("[[frame]]").unwrap()..].replace("\"F1\"", "\"F2\"")),
+            "frame[1].unit",
+            "unit 1 on bus `line-a` is already frame `F1`",
+            25,
+        ),
+        (
+            "zero ring",
+            |s| replace("ring_diameter_mm = 63.5", "ring_diameter_mm = 0.0")(s),
+            "frame[0].ring_diameter_mm",
+            "allowed a positive diameter",
+            15,
+        ),
+        (
+            "negative lever ratio",
+            |s| replace("unit = 1", "unit = 1\nlever_ratio = -10.0")(s),
+            "frame[0].lever_ratio",
+            "allowed a positive ratio",
+            15,
+        ),
+        (
+            "zero calibration gain",
+            |s| {
+                replace("calibration = { gain = 0.0001 }\n[frame.load]", "calibration = { gain = 0.0 }\n[frame.load]")(
+                    s,
+                )
+            },
+            "frame[0].displacement.calibration",
+            "non-zero gain",
+            16,
+        ),
+        (
+            "fast slower than steady",
+            |s| replace("unit = 1", "unit = 1\npoll_ms = 500\nfast_poll_ms = 900")(s),
+            "frame[0].fast_poll_ms",
+            "allowed: fast_poll_ms ≤ poll_ms",
+            16,
+        ),
+        ("missing store", |s| replace("[store]\npath = \"lab.sqlite\"", "")(s), "store", "missing table [store]", 1),
+        (
+            "listen not an address",
+            |s| replace("[[bus]]", "[http]\nlisten = \"everywhere\"\n\n[[bus]]")(s),
+            "http.listen",
+            "not an address",
+            6,
+        ),
+        (
+            "tcp bus without address",
+            |s| replace("kind = \"modbus-rtu\"\ndevice = \"/dev/ttyUSB0\"\nbaud = 19200", "kind = \"modbus-tcp\"")(s),
+            "bus[0].address",
+            "needs `address`",
+            7,
+        ),
+        (
+            "rtu setting on tcp bus",
+            |s| {
+                replace(
+                    "kind = \"modbus-rtu\"\ndevice = \"/dev/ttyUSB0\"",
+                    "kind = \"modbus-tcp\"\naddress = \"10.0.0.2:502\"",
+                )(s)
+            },
+            "bus[0].baud",
+            "not a setting of a modbus-tcp bus",
+            9,
+        ),
+        (
+            "range min above max",
+            |s| {
+                replace(
+                    "calibration = { gain = 0.0001 }\n[frame.load]",
+                    "calibration = { gain = 0.0001 }\nrange = [5.0, 1.0]\n[frame.load]",
+                )(s)
+            },
+            "frame[0].displacement.range",
+            "min < max",
+            19,
+        ),
+        (
+            "register past 65535",
+            |s| replace("address = 0, type = \"i32\"", "address = 65535, type = \"i32\"")(s),
+            "frame[0].displacement.register",
+            "runs past register 65535",
+            16,
+        ),
+        ("bad frame id", |s| replace("id = \"F1\"", "id = \"frame one\"")(s), "frame[0].id", "not an id", 12),
+        (
+            "unknown bus kind",
+            |s| replace("kind = \"modbus-rtu\"", "kind = \"can-bus\"")(s),
+            "bus.kind",
+            "unknown variant `can-bus`",
+            7,
+        ),
+        (
+            "deflection not increasing",
+            |s| format!("{s}[frame.deflection]\nloading = [[0, 0.0], [100, 0.02], [50, 0.03]]\n"),
+            "frame[0].deflection.loading",
+            "increase strictly",
+            23,
+        ),
+    ];
+    assert!(cases.len() >= 15);
+    let mut failures = Vec::new();
+    for (name, change, field, words, line) in cases {
+        let text = change(BASE);
+        match Config::parse(&text, Purpose::Run) {
+            Ok(_) => failures.push(format!("{name}: accepted")),
+            Err(error) => {
+                let shown = error.to_string();
+                let hit = error.problems.iter().find(|p| p.field == field && p.message.contains(words));
+                match hit {
+                    None => failures.push(format!("{name}: expected field `{field}` with `{words}`, got:\n{shown}")),
+                    Some(p) if p.line != line => {
+                        failures.push(format!("{name}: line {} (expected {line}): {shown}", p.line))
+                    }
+                    Some(_) => {}
+                }
+            }
+        }
+    }
+    assert!(failures.is_empty(), "{}", failures.join("\n\n"));
+}
+
+#[test]
+fn every_problem_in_a_file_is_reported_at_once() {
+    let text = BASE.replace("baud = 19200", "baud = 7").replace("unit = 1", "unit = 0");
+    let error = Config::parse(&text, Purpose::Run).unwrap_err();
+    let fields: Vec<&str> = error.problems.iter().map(|p| p.field.as_str()).collect();
+    assert_eq!(fields, vec!["bus[0].baud", "frame[0].unit"]);
+}
+
+#[test]
+fn demo_purpose_needs_neither_store_nor_frames() {
+    let config = Config::parse("[http]\nlisten = \"127.0.0.1:0\"\n", Purpose::Demo).unwrap();
+    assert!(config.store.is_none());
+    assert!(Config::parse("[http]\nlisten = \"127.0.0.1:0\"\n", Purpose::Run).is_err());
+}

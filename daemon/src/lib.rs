@@ -1,0 +1,13 @@
+//! oedolog: the daemon's library. `main.rs` only parses the command line and wires these together.
+//!
+//! Data flows one way: `acquire` (bus tasks) → `store` (one writer) → `watch` → `analysis` → `http`.
+
+pub mod acquire;
+pub mod clock;
+pub mod config;
+pub mod demo;
+pub mod http;
+pub mod lab;
+pub mod logging;
+pub mod service;
+pub mod store;

@@ -1,0 +1,139 @@
+//! Wires a daemon together from a checked [`Config`]: store, writer, lab book, bus tasks, HTTP. Used by
+//! `oedolog run` and by the demo; `main.rs` only calls it.
+
+use std::net::SocketAddr;
+use std::sync::Arc;
+use std::time::Duration;
+
+use tokio::net::TcpListener;
+
+use crate::acquire::{Live, LiveFrame, Sinks, spawn_buses};
+use crate::clock::Clock;
+use crate::config::Config;
+use crate::http::{AppState, router};
+use crate::lab::Lab;
+use crate::store::{self, CommitReport, Event, StoreError, Writer, WriterPolicy, WriterThread};
+
+/// Why the daemon could not start.
+#[derive(Debug, thiserror::Error)]
+pub enum StartError {
+    /// The configuration has no `[store]`.
+    #[error("the configuration has no [store] path")]
+    NoStore,
+    /// The store could not be opened.
+    #[error("{0}")]
+    Store(#[from] StoreError),
+    /// The HTTP address could not be bound.
+    #[error("cannot listen on {addr}: {source}")]
+    Bind {
+        /// The address.
+        addr: SocketAddr,
+        /// Why.
+        source: std::io::Error,
+    },
+}
+
+/// Options that do not belong in the configuration file.
+#[derive(Clone, Copy, Debug, Default)]
+pub struct Options {
+    /// Print one `committed …` line on stdout after each durable commit (for power-loss tests).
+    pub report_commits: bool,
+}
+
+/// A started daemon.
+pub struct Running {
+    /// Acquisition's live view.
+    pub live: Live,
+    /// Running tests.
+    pub lab: Lab,
+    /// The writer.
+    pub writer: Writer,
+    /// Where HTTP listens.
+    pub http_addr: SocketAddr,
+    writer_thread: WriterThread,
+    tasks: Vec<tokio::task::JoinHandle<()>>,
+    clock: Arc<dyn Clock>,
+}
+
+/// The `committed …` line of one commit: `committed batch=B readings=N total=T last=FRAME:CHANNEL:AT_US`.
+pub fn commit_line(report: &CommitReport) -> String {
+    let last = report.last.map_or("-".to_string(), |(f, c, at)| format!("{f}:{c}:{at}"));
+    format!("committed batch={} readings={} total={} last={last}", report.batch, report.readings, report.total_readings)
+}
+
+/// Starts everything the configuration describes.
+pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> Result<Running, StartError> {
+    let store_config = config.store.as_ref().ok_or(StartError::NoStore)?;
+    let conn = store::open(&store_config.path)?;
+    let now = clock.now_us();
+    let keys =
+        config.frames.iter().map(|f| store::frame_key(&conn, &f.id, &f.name, now)).collect::<Result<Vec<_>, _>>()?;
+    let policy = WriterPolicy { flush: store_config.flush, checkpoint: store_config.checkpoint, ..Default::default() };
+    let reader = store::reader(&store_config.path)?;
+    let writer_thread = Writer::spawn(conn, policy, move |report| {
+        if options.report_commits {
+            use std::io::Write;
+            let mut out = std::io::stdout().lock();
+            let _ = writeln!(out, "{}", commit_line(&report));
+            let _ = out.flush();
+        }
+    });
+    let writer = writer_thread.writer();
+    writer.event(Event {
+        at_us: now,
+        frame_key: None,
+        kind: "daemon-start",
+        message: format!(
+            "oedolog {} started with {} frame(s) on {} bus(es)",
+            env!("CARGO_PKG_VERSION"),
+            config.frames.len(),
+            config.buses.len()
+        ),
+        actor: None,
+        data: None,
+    })?;
+    let lab = Lab::resume(&reader, keys.clone(), writer.clone(), now)?;
+    drop(reader);
+    let live = Live::new(
+        config
+            .frames
+            .iter()
+            .zip(&keys)
+            .map(|(f, &key)| LiveFrame { id: f.id.clone(), name: f.name.clone(), key, ..Default::default() })
+            .collect(),
+    );
+    let sinks = Sinks { writer: writer.clone(), live: live.clone(), clock: clock.clone() };
+    let mut tasks = spawn_buses(config, &keys, &sinks);
+    let listener = TcpListener::bind(config.http.listen)
+        .await
+        .map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
+    let http_addr = listener.local_addr().map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
+    // Offline after ten steady periods without a valid reading, and never under 30 s of clock time.
+    let stale_after = config.frames.iter().map(|f| (f.poll.steady * 10).max(Duration::from_secs(30))).collect();
+    let state = AppState { live: live.clone(), lab: lab.clone(), clock: clock.clone(), stale_after, started_us: now };
+    let app = router(state);
+    tasks.push(tokio::spawn(async move {
+        if let Err(error) = axum::serve(listener, app).await {
+            tracing::error!("http server stopped: {error}");
+        }
+    }));
+    Ok(Running { live, lab, writer, http_addr, writer_thread, tasks, clock })
+}
+
+impl Running {
+    /// Stops the tasks, journals the stop and commits what is queued.
+    pub fn stop(self, why: &str) {
+        for task in &self.tasks {
+            task.abort();
+        }
+        let _ = self.writer.event(Event {
+            at_us: self.clock.now_us(),
+            frame_key: None,
+            kind: "daemon-stop",
+            message: format!("oedolog stopped: {why}"),
+            actor: None,
+            data: None,
+        });
+        self.writer_thread.close();
+    }
+}

@@ -1,0 +1,439 @@
+//! The store: SQLite on local disk, in WAL mode with `synchronous=FULL`, so a reading reported committed
+//! survives a power cut or `kill -9` (SQLite's documented guarantee: WAL + FULL syncs the log on every commit).
+//!
+//! One writer thread owns the only writing connection and batches readings into transactions at most
+//! `flush` apart; everything else reads on its own short-lived connections. The store knows nothing of
+//! buses or HTTP.
+
+pub mod migrations;
+
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::mpsc::{Receiver, RecvTimeoutError, Sender, channel};
+use std::time::{Duration, Instant};
+
+use rusqlite::{Connection, OpenFlags, OptionalExtension, params};
+
+/// A store failure.
+#[derive(Debug, thiserror::Error)]
+pub enum StoreError {
+    /// SQLite said no.
+    #[error("database: {0}")]
+    Sqlite(#[from] rusqlite::Error),
+    /// The file was written by a newer oedolog.
+    #[error(
+        "the database is at schema version {found}, newer than this oedolog knows ({latest}); use a newer oedolog or restore a backup"
+    )]
+    TooNew {
+        /// `PRAGMA user_version` of the file.
+        found: u32,
+        /// The newest version this binary has.
+        latest: u32,
+    },
+    /// A migration failed (nothing of it was applied).
+    #[error("migration {name} failed: {source}")]
+    Migration {
+        /// File name.
+        name: &'static str,
+        /// Why.
+        source: rusqlite::Error,
+    },
+    /// `PRAGMA quick_check` found damage.
+    #[error("the database failed its integrity check ({0}); restore the latest backup (see README, after a power cut)")]
+    Damaged(String),
+    /// The folder for the file could not be made.
+    #[error("cannot create {path}: {source}")]
+    Folder {
+        /// The folder.
+        path: PathBuf,
+        /// Why.
+        source: std::io::Error,
+    },
+    /// The writer thread has stopped.
+    #[error("the store's writer has stopped")]
+    WriterGone,
+}
+
+/// Channels of a frame, as stored in `readings.channel`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, serde::Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum ChannelKind {
+    /// Displacement gauge, mm, compression positive.
+    Displacement = 0,
+    /// Load cell, kN.
+    Load = 1,
+    /// Temperature, °C.
+    Temperature = 2,
+}
+
+impl ChannelKind {
+    /// Every channel.
+    pub const ALL: [ChannelKind; 3] = [ChannelKind::Displacement, ChannelKind::Load, ChannelKind::Temperature];
+
+    /// The stored number.
+    pub fn code(self) -> i64 {
+        self as i64
+    }
+
+    /// The name used in events and the API.
+    pub fn name(self) -> &'static str {
+        match self {
+            ChannelKind::Displacement => "displacement",
+            ChannelKind::Load => "load",
+            ChannelKind::Temperature => "temperature",
+        }
+    }
+}
+
+/// One valid reading.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Reading {
+    /// `frames.key`.
+    pub frame_key: i64,
+    /// Which instrument.
+    pub channel: ChannelKind,
+    /// UTC µs.
+    pub at_us: i64,
+    /// The device's value after its register map.
+    pub raw: f64,
+    /// Calibrated value.
+    pub value: f64,
+}
+
+/// A journal entry.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Event {
+    /// UTC µs.
+    pub at_us: i64,
+    /// The frame concerned, if any.
+    pub frame_key: Option<i64>,
+    /// Machine name: `daemon-start`, `bus-down`, `value-refused`, …
+    pub kind: &'static str,
+    /// What a person reads.
+    pub message: String,
+    /// Who, for operator actions.
+    pub actor: Option<String>,
+    /// Details.
+    pub data: Option<serde_json::Value>,
+}
+
+/// What one commit wrote; sent to the commit observer after the transaction is durable.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct CommitReport {
+    /// Commit counter since the writer started.
+    pub batch: u64,
+    /// Readings inserted by this commit (duplicates of a stored key are ignored, not counted).
+    pub readings: u64,
+    /// Events inserted.
+    pub events: u64,
+    /// Readings inserted since the writer started.
+    pub total_readings: u64,
+    /// The last reading of the batch: (frame key, channel, at_us).
+    pub last: Option<(i64, i64, i64)>,
+}
+
+/// Runs on the writer's connection; returns whether its changes should be kept.
+type Job = Box<dyn FnOnce(&Connection) -> bool + Send>;
+
+enum Op {
+    Reading(Reading),
+    Event(Event),
+    /// Runs inside the writer's transaction and commits at once (operator actions, set-up).
+    Job(Job),
+    /// Commit now and stop.
+    Close,
+}
+
+/// Opens (creating if needed) the database for writing: pragmas, integrity check, migrations.
+pub fn open(path: &Path) -> Result<Connection, StoreError> {
+    if let Some(folder) = path.parent().filter(|p| !p.as_os_str().is_empty()) {
+        std::fs::create_dir_all(folder).map_err(|source| StoreError::Folder { path: folder.into(), source })?;
+    }
+    let mut conn = Connection::open(path)?;
+    conn.busy_timeout(Duration::from_secs(5))?;
+    let mode: String = conn.query_row("PRAGMA journal_mode = WAL", [], |r| r.get(0))?;
+    debug_assert_eq!(mode, "wal");
+    conn.pragma_update(None, "synchronous", "FULL")?;
+    conn.pragma_update(None, "foreign_keys", "ON")?;
+    let check: String = conn.query_row("PRAGMA quick_check", [], |r| r.get(0))?;
+    if check != "ok" {
+        return Err(StoreError::Damaged(check));
+    }
+    migrations::migrate(&mut conn)?;
+    Ok(conn)
+}
+
+/// A read-only connection for queries (the dashboard, backups). Keep its transactions short: a long
+/// reader holds WAL checkpoints back.
+pub fn reader(path: &Path) -> Result<Connection, StoreError> {
+    let conn = Connection::open_with_flags(path, OpenFlags::SQLITE_OPEN_READ_ONLY | OpenFlags::SQLITE_OPEN_NO_MUTEX)?;
+    conn.busy_timeout(Duration::from_secs(5))?;
+    Ok(conn)
+}
+
+/// The frame's compact key, creating the row (or refreshing its name) if needed.
+pub fn frame_key(conn: &Connection, id: &str, name: &str, now_us: i64) -> Result<i64, StoreError> {
+    conn.execute(
+        "INSERT INTO frames (id, name, created_us) VALUES (?1, ?2, ?3) ON CONFLICT(id) DO UPDATE SET name = excluded.name",
+        params![id, name, now_us],
+    )?;
+    Ok(conn.query_row("SELECT key FROM frames WHERE id = ?1", [id], |r| r.get(0))?)
+}
+
+/// The newest stored reading of a frame's channel: (at_us, value).
+pub fn latest_reading(
+    conn: &Connection,
+    frame_key: i64,
+    channel: ChannelKind,
+) -> Result<Option<(i64, f64)>, StoreError> {
+    Ok(conn
+        .query_row(
+            "SELECT at_us, value FROM readings WHERE frame_key = ?1 AND channel = ?2 ORDER BY at_us DESC LIMIT 1",
+            params![frame_key, channel.code()],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .optional()?)
+}
+
+/// Copies the database to `dest` with SQLite's online backup API: consistent even while the daemon writes.
+pub fn backup(source: &Path, dest: &Path) -> Result<(), StoreError> {
+    let from = reader(source)?;
+    let mut to = Connection::open(dest)?;
+    let backup = rusqlite::backup::Backup::new(&from, &mut to)?;
+    backup.run_to_completion(256, Duration::from_millis(5), None)?;
+    drop(backup);
+    let check: String = to.query_row("PRAGMA quick_check", [], |r| r.get(0))?;
+    if check == "ok" { Ok(()) } else { Err(StoreError::Damaged(check)) }
+}
+
+/// How the writer batches and checkpoints.
+#[derive(Clone, Copy, Debug)]
+pub struct WriterPolicy {
+    /// Longest wait between the first reading of a batch and its commit.
+    pub flush: Duration,
+    /// Largest batch.
+    pub max_batch: usize,
+    /// Period of `wal_checkpoint(TRUNCATE)`.
+    pub checkpoint: Duration,
+}
+
+impl Default for WriterPolicy {
+    fn default() -> Self {
+        WriterPolicy { flush: Duration::from_millis(500), max_batch: 20_000, checkpoint: Duration::from_secs(300) }
+    }
+}
+
+/// The sending side of the writer: cheap to clone, never blocks.
+#[derive(Clone)]
+pub struct Writer {
+    tx: Sender<Op>,
+    queued: Arc<AtomicU64>,
+}
+
+/// The writer thread's handle: close it to commit the last batch and stop.
+pub struct WriterThread {
+    writer: Writer,
+    thread: Option<std::thread::JoinHandle<()>>,
+}
+
+impl Writer {
+    /// Starts the writer thread on `conn`. `on_commit` runs on the writer thread after each durable commit.
+    pub fn spawn(
+        conn: Connection,
+        policy: WriterPolicy,
+        on_commit: impl FnMut(CommitReport) + Send + 'static,
+    ) -> WriterThread {
+        let (tx, rx) = channel();
+        let queued = Arc::new(AtomicU64::new(0));
+        let writer = Writer { tx, queued: queued.clone() };
+        let thread = std::thread::Builder::new()
+            .name("oedolog-store".into())
+            .spawn(move || write_loop(conn, rx, policy, queued, on_commit))
+            .expect("spawn the store writer thread");
+        WriterThread { writer, thread: Some(thread) }
+    }
+
+    /// Queues a reading.
+    pub fn reading(&self, reading: Reading) -> Result<(), StoreError> {
+        self.queued.fetch_add(1, Ordering::Relaxed);
+        self.tx.send(Op::Reading(reading)).map_err(|_| StoreError::WriterGone)
+    }
+
+    /// Queues an event.
+    pub fn event(&self, event: Event) -> Result<(), StoreError> {
+        self.tx.send(Op::Event(event)).map_err(|_| StoreError::WriterGone)
+    }
+
+    /// Runs `job` on the writer's connection, inside a transaction committed at once; returns its result.
+    pub fn run<T: Send + 'static>(
+        &self,
+        job: impl FnOnce(&Connection) -> Result<T, StoreError> + Send + 'static,
+    ) -> Result<T, StoreError> {
+        let (reply_tx, reply_rx) = std::sync::mpsc::sync_channel(1);
+        let op = Op::Job(Box::new(move |conn| {
+            let result = job(conn);
+            let keep = result.is_ok();
+            let _ = reply_tx.send(result);
+            keep
+        }));
+        self.tx.send(op).map_err(|_| StoreError::WriterGone)?;
+        reply_rx.recv().map_err(|_| StoreError::WriterGone)?
+    }
+
+    /// Readings queued but not yet committed (for `/metrics` and the soak).
+    pub fn backlog(&self) -> u64 {
+        self.queued.load(Ordering::Relaxed)
+    }
+}
+
+impl WriterThread {
+    /// A sender for the writer.
+    pub fn writer(&self) -> Writer {
+        self.writer.clone()
+    }
+
+    /// Commits what is queued and stops the thread.
+    pub fn close(mut self) {
+        let _ = self.writer.tx.send(Op::Close);
+        if let Some(thread) = self.thread.take() {
+            let _ = thread.join();
+        }
+    }
+}
+
+impl Drop for WriterThread {
+    fn drop(&mut self) {
+        let _ = self.writer.tx.send(Op::Close);
+        if let Some(thread) = self.thread.take() {
+            let _ = thread.join();
+        }
+    }
+}
+
+struct Batch {
+    readings: Vec<Reading>,
+    events: Vec<Event>,
+    jobs: Vec<Job>,
+}
+
+fn write_loop(
+    mut conn: Connection,
+    rx: Receiver<Op>,
+    policy: WriterPolicy,
+    queued: Arc<AtomicU64>,
+    mut on_commit: impl FnMut(CommitReport),
+) {
+    let mut batch = Batch { readings: Vec::new(), events: Vec::new(), jobs: Vec::new() };
+    let (mut batches, mut total) = (0u64, 0u64);
+    let mut last_checkpoint = Instant::now();
+    let mut closing = false;
+    while !closing {
+        // Wait for the first op of a batch; then gather until the flush deadline or the size cap.
+        let first = match rx.recv_timeout(policy.checkpoint.min(Duration::from_secs(60))) {
+            Ok(op) => op,
+            Err(RecvTimeoutError::Timeout) => {
+                checkpoint(&conn, &mut last_checkpoint, policy.checkpoint);
+                continue;
+            }
+            Err(RecvTimeoutError::Disconnected) => break,
+        };
+        let deadline = Instant::now() + policy.flush;
+        let mut urgent = false;
+        let mut next = Some(first);
+        loop {
+            match next.take() {
+                Some(Op::Reading(r)) => batch.readings.push(r),
+                Some(Op::Event(e)) => batch.events.push(e),
+                Some(Op::Job(j)) => {
+                    batch.jobs.push(j);
+                    urgent = true;
+                }
+                Some(Op::Close) => closing = true,
+                None => {}
+            }
+            if closing || urgent || batch.readings.len() >= policy.max_batch {
+                break;
+            }
+            let now = Instant::now();
+            if now >= deadline {
+                break;
+            }
+            match rx.recv_timeout(deadline - now) {
+                Ok(op) => next = Some(op),
+                Err(RecvTimeoutError::Timeout) => break,
+                Err(RecvTimeoutError::Disconnected) => {
+                    closing = true;
+                    break;
+                }
+            }
+        }
+        let count = batch.readings.len() as u64;
+        match commit(&mut conn, &mut batch) {
+            Ok((readings, events)) => {
+                batches += 1;
+                total += readings;
+                queued.fetch_sub(count, Ordering::Relaxed);
+                let last = batch.readings.last().map(|r| (r.frame_key, r.channel.code(), r.at_us));
+                on_commit(CommitReport { batch: batches, readings, events, total_readings: total, last });
+            }
+            Err(error) => {
+                // Keep the batch and try again at the next round; log once per failure.
+                tracing::error!("store commit failed, will retry: {error}");
+                std::thread::sleep(Duration::from_millis(200));
+                continue;
+            }
+        }
+        batch.readings.clear();
+        batch.events.clear();
+        checkpoint(&conn, &mut last_checkpoint, policy.checkpoint);
+    }
+}
+
+fn checkpoint(conn: &Connection, last: &mut Instant, every: Duration) {
+    if last.elapsed() >= every {
+        if let Err(error) = conn.query_row("PRAGMA wal_checkpoint(TRUNCATE)", [], |_| Ok(())) {
+            tracing::warn!("WAL checkpoint failed: {error}");
+        }
+        *last = Instant::now();
+    }
+}
+
+fn commit(conn: &mut Connection, batch: &mut Batch) -> Result<(u64, u64), rusqlite::Error> {
+    let tx = conn.transaction()?;
+    let mut readings = 0;
+    {
+        let mut insert = tx.prepare_cached(
+            "INSERT OR IGNORE INTO readings (frame_key, channel, at_us, raw, value) VALUES (?1, ?2, ?3, ?4, ?5)",
+        )?;
+        for r in &batch.readings {
+            readings += insert.execute(params![r.frame_key, r.channel.code(), r.at_us, r.raw, r.value])? as u64;
+        }
+        let mut insert = tx.prepare_cached(
+            "INSERT INTO events (at_us, frame_key, kind, message, actor, data) VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
+        )?;
+        for e in &batch.events {
+            insert.execute(params![
+                e.at_us,
+                e.frame_key,
+                e.kind,
+                e.message,
+                e.actor,
+                e.data.as_ref().map(|d| d.to_string())
+            ])?;
+        }
+    }
+    let mut tx = tx;
+    for job in batch.jobs.drain(..) {
+        // Each job in its own savepoint: a job that fails changes nothing, and the readings still commit.
+        let savepoint = tx.savepoint()?;
+        if job(&savepoint) {
+            savepoint.commit()?;
+        }
+    }
+    tx.commit()?;
+    Ok((readings, batch.events.len() as u64))
+}
+
+#[cfg(test)]
+mod tests;
