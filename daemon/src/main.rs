@@ -95,7 +95,8 @@ async fn run(command: Command) -> anyhow::Result<()> {
             let _guard = logging::init(&config.log).map_err(anyhow::Error::msg)?;
             let clock: Arc<dyn Clock> = Arc::new(SystemClock);
             let running = service::start(&config, clock, service::Options { report_commits }).await?;
-            tracing::info!("listening on http://{}/", running.http_addr);
+            // One line on stdout once serving: scripts and tests wait for it.
+            println!("listening on http://{}/", running.http_addr);
             let why = shutdown_signal().await;
             running.stop(why);
             Ok(())

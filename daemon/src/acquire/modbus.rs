@@ -175,6 +175,8 @@ async fn exchange<L: Link>(
         Err(Failure::Timeout { crc: true }) => counters.crc_errors += 1,
         Err(Failure::Timeout { crc: false }) => counters.timeouts += 1,
         Err(Failure::Refused(_)) => counters.bad_frames += 1,
+        // A TCP stream out of step (a spoiled MBAP header) is a corrupted reply: count it with CRC errors.
+        Err(Failure::Link(e)) if e.kind() == io::ErrorKind::InvalidData => counters.crc_errors += 1,
         Ok(Reply::Exception(_)) => counters.exceptions += 1,
         _ => {}
     }
