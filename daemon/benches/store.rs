@@ -23,7 +23,13 @@ fn rows(n: usize) -> Vec<Reading> {
                 ChannelKind::Load => (2_211.0, 0.2211),
                 ChannelKind::Temperature => (1_998.0 + (poll % 7) as f64, (1_998.0 + (poll % 7) as f64) * 0.01),
             };
-            Reading { frame_key: frame as i64 + 1, channel, at_us: start_us + poll as i64 * 1_000_000 + frame as i64 * 1_000, raw, value }
+            Reading {
+                frame_key: frame as i64 + 1,
+                channel,
+                at_us: start_us + poll as i64 * 1_000_000 + frame as i64 * 1_000,
+                raw,
+                value,
+            }
         })
         .collect()
 }

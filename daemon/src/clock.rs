@@ -22,9 +22,11 @@ pub trait Clock: Send + Sync {
         self.speed() != 1.0
     }
 
-    /// The real wait for a period measured on this clock, never under `floor`.
+    /// The real wait for a period measured on this clock; on a fast (simulated) clock never under
+    /// `floor`, so a demo at high speed does not poll flat out.
     fn real_wait(&self, period: Duration, floor: Duration) -> Duration {
-        period.div_f64(self.speed()).max(floor)
+        let wait = period.div_f64(self.speed());
+        if self.speed() > 1.0 { wait.max(floor) } else { wait }
     }
 }
 

@@ -3,6 +3,7 @@
 //! Data flows one way: `acquire` (bus tasks) → `store` (one writer) → `watch` → `analysis` → `http`.
 
 pub mod acquire;
+pub mod analysis;
 pub mod clock;
 pub mod config;
 pub mod demo;

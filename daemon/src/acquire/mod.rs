@@ -21,7 +21,7 @@ use crate::clock::Clock;
 use crate::config::{BusKind, Calibration, Channel, Config, Frame, PollSchedule};
 use crate::store::{ChannelKind, Event, Reading, Writer};
 
-/// Shortest real wait between two polls of one frame, whatever the clock's speed.
+/// Shortest real wait between two polls of one frame on a fast (demo) clock.
 pub const MIN_REAL_POLL: Duration = Duration::from_millis(20);
 /// Refused-value events for one channel are repeated at most this often (clock time) while it stays bad.
 pub const REFUSED_EVENT_EVERY_US: i64 = 600_000_000;

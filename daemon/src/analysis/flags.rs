@@ -1,0 +1,291 @@
+//! Quality flags that every analysis result carries: what was doubtful or undetermined, in words a
+//! technician can act on. A flag never changes a number; it must not be used to carry results.
+
+use std::fmt;
+
+use serde::ser::SerializeStruct;
+
+/// One quality remark on a result. `Display` gives the sentence shown on the dashboard; [`Flag::code`] a
+/// stable machine name. Serialises as `{"code": …, "message": …}`.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Flag {
+    /// Too few readings after the load went on for any construction.
+    TooFewReadings {
+        /// Readings (binned nodes) with t > 0.
+        got: usize,
+        /// The least a construction needs.
+        needed: usize,
+    },
+    /// The increment swells overall; the time-curve constructions here assume compression.
+    NetSwelling,
+    /// Primary compression under 50 gauge resolutions: the constructions cannot resolve it.
+    SmallPrimary {
+        /// d100 − d0.
+        primary_mm: f64,
+        /// The gauge resolution used.
+        resolution_mm: f64,
+    },
+    /// A fit had fewer points than wanted; its result is shown but weak.
+    FitWindowTooShort {
+        /// Which fit.
+        construction: &'static str,
+        /// Points it had.
+        points: usize,
+        /// Points wanted.
+        needed: usize,
+    },
+    /// The curve has not yet met Taylor's construction line.
+    T90NotReached,
+    /// No straight secondary branch on log t yet, so d100 (Casagrande) is undetermined.
+    NoSecondaryBranch,
+    /// The steepest log-t slope is at the last readings: the inflection may not have been passed.
+    InflectionNotPassed,
+    /// The curve does not reach d50 between its readings.
+    T50NotFound,
+    /// No 1:4 time pair lies inside the parabolic (√t-straight) start; the earliest pair was used.
+    OffsetOutsideParabola {
+        /// t1 of the pair used.
+        t1_min: f64,
+    },
+    /// No time pair t1, 4·t1 inside the readings: Casagrande d0 undetermined.
+    NoOffsetPair,
+    /// The d100 intersection falls outside the readings or before the inflection.
+    IntersectionOutsideData,
+    /// Load increment ratio under 0.7 [R S2 Note 5].
+    LoadIncrementRatioLow {
+        /// Δσ/σ before the increment.
+        lir: f64,
+    },
+    /// The increment's stress range contains σ′p [R S2 Note 5].
+    SpansPreconsolidation {
+        /// The σ′p estimate used.
+        sigma_p_kpa: f64,
+    },
+    /// Taylor and Casagrande cv differ by more than a factor of 2.
+    MethodsDisagree {
+        /// cv Taylor / cv Casagrande.
+        ratio: f64,
+    },
+    /// The secondary line slopes towards swelling (noise, or rebound): Cα is negative.
+    SecondarySlopeNegative,
+    /// Cα needs the specimen height (and Hs for the void-ratio basis), which was not given.
+    HeightUnknown,
+    /// The applied stress lies outside the calibrated range; no deflection is given (never extrapolated).
+    DeflectionOutsideCalibration {
+        /// The applied stress.
+        stress_kpa: f64,
+        /// Lowest calibrated stress on the branch used.
+        min_kpa: f64,
+        /// Highest calibrated stress on the branch used.
+        max_kpa: f64,
+    },
+    /// The unloading branch was asked for but not calibrated; the loading branch was used.
+    UnloadingBranchMissing,
+    /// e0 from the dry mass and e0 back-calculated from the final water content differ by > 0.02.
+    VoidRatioMismatch {
+        /// e0 = (H0 − Hs)/Hs.
+        e0_from_dry_mass: f64,
+        /// e0 from wf·Gs and the height ratio.
+        e0_from_final_water: f64,
+    },
+    /// Initial degree of saturation under 95 %: cv assumes a saturated specimen [R S1 §1.2].
+    PartlySaturated {
+        /// S0 as a fraction.
+        saturation: f64,
+    },
+    /// Initial degree of saturation over 105 %: masses, dimensions or Gs are inconsistent.
+    SaturationAboveOne {
+        /// S0 as a fraction.
+        saturation: f64,
+    },
+    /// Cc fitted to fewer than three points of the virgin branch.
+    FewVirginPoints {
+        /// Points used.
+        points: usize,
+    },
+    /// Some virgin-line points are at or below σ′p, so Cc may be too flat.
+    VirginPointsBelowPreconsolidation,
+    /// No unload–reload cycle: Cr undetermined.
+    NoUnloadReload,
+    /// Too few points on the loading branch for a σ′p construction.
+    PreconsolidationUndetermined {
+        /// Which method.
+        method: &'static str,
+    },
+    /// The σ′p construction lands outside the applied stresses.
+    PreconsolidationOutsideData {
+        /// Which method.
+        method: &'static str,
+        /// Where it landed.
+        sigma_p_kpa: f64,
+    },
+    /// No end-of-primary settlement for an increment; its end-of-increment value was used.
+    EndOfPrimaryMissing {
+        /// The increment's stress.
+        stress_kpa: f64,
+    },
+    /// Temperature outside the viscosity table: cv not corrected to 20 °C.
+    TemperatureOutsideTable {
+        /// The temperature given.
+        temperature_c: f64,
+    },
+}
+
+impl Flag {
+    /// A stable snake_case name for the flag, for programs.
+    pub fn code(&self) -> &'static str {
+        match self {
+            Flag::TooFewReadings { .. } => "too_few_readings",
+            Flag::NetSwelling => "net_swelling",
+            Flag::SmallPrimary { .. } => "small_primary",
+            Flag::FitWindowTooShort { .. } => "fit_window_too_short",
+            Flag::T90NotReached => "t90_not_reached",
+            Flag::NoSecondaryBranch => "no_secondary_branch",
+            Flag::InflectionNotPassed => "inflection_not_passed",
+            Flag::T50NotFound => "t50_not_found",
+            Flag::OffsetOutsideParabola { .. } => "offset_outside_parabola",
+            Flag::NoOffsetPair => "no_offset_pair",
+            Flag::IntersectionOutsideData => "intersection_outside_data",
+            Flag::LoadIncrementRatioLow { .. } => "lir_low",
+            Flag::SpansPreconsolidation { .. } => "spans_preconsolidation",
+            Flag::MethodsDisagree { .. } => "methods_disagree",
+            Flag::SecondarySlopeNegative => "secondary_slope_negative",
+            Flag::HeightUnknown => "height_unknown",
+            Flag::DeflectionOutsideCalibration { .. } => "deflection_outside_calibration",
+            Flag::UnloadingBranchMissing => "unloading_branch_missing",
+            Flag::VoidRatioMismatch { .. } => "void_ratio_mismatch",
+            Flag::PartlySaturated { .. } => "partly_saturated",
+            Flag::SaturationAboveOne { .. } => "saturation_above_one",
+            Flag::FewVirginPoints { .. } => "few_virgin_points",
+            Flag::VirginPointsBelowPreconsolidation => "virgin_points_below_preconsolidation",
+            Flag::NoUnloadReload => "no_unload_reload",
+            Flag::PreconsolidationUndetermined { .. } => "preconsolidation_undetermined",
+            Flag::PreconsolidationOutsideData { .. } => "preconsolidation_outside_data",
+            Flag::EndOfPrimaryMissing { .. } => "end_of_primary_missing",
+            Flag::TemperatureOutsideTable { .. } => "temperature_outside_table",
+        }
+    }
+}
+
+impl fmt::Display for Flag {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Flag::TooFewReadings { got, needed } => {
+                write!(f, "only {got} readings after the load went on; constructions need {needed}")
+            }
+            Flag::NetSwelling => f.write_str("net swelling: the time-curve constructions need compression"),
+            Flag::SmallPrimary { primary_mm, resolution_mm } => write!(
+                f,
+                "primary compression {primary_mm:.4} mm is under 50 gauge resolutions ({resolution_mm} mm): \
+                 constructions unreliable"
+            ),
+            Flag::FitWindowTooShort { construction, points, needed } => {
+                write!(f, "{construction}: fit window too short ({points} points, {needed} wanted)")
+            }
+            Flag::T90NotReached => f.write_str("curve has not met the Taylor construction line yet: t90 undetermined"),
+            Flag::NoSecondaryBranch => f.write_str("no secondary branch yet: d100 undetermined"),
+            Flag::InflectionNotPassed => {
+                f.write_str("steepest log-time slope is at the last readings: inflection not yet passed")
+            }
+            Flag::T50NotFound => f.write_str("d50 not reached between readings: t50 undetermined"),
+            Flag::OffsetOutsideParabola { t1_min } => {
+                write!(f, "no 1:4 time pair inside the parabolic start; d0 from t1 = {t1_min} min only, may be biased")
+            }
+            Flag::NoOffsetPair => f.write_str("no time pair t1, 4·t1 within the readings: log-time d0 undetermined"),
+            Flag::IntersectionOutsideData => f.write_str("d100 intersection lies outside the readings"),
+            Flag::LoadIncrementRatioLow { lir } => write!(f, "LIR {lir:.2} < 0.7: cv unreliable"),
+            Flag::SpansPreconsolidation { sigma_p_kpa } => {
+                write!(f, "increment spans σ′p ≈ {sigma_p_kpa:.0} kPa: cv and end of primary unreliable")
+            }
+            Flag::MethodsDisagree { ratio } => {
+                write!(f, "cv by √t is {ratio:.2} × cv by log t: the methods disagree by more than a factor of 2")
+            }
+            Flag::SecondarySlopeNegative => f.write_str("secondary line slopes towards swelling: Cα negative"),
+            Flag::HeightUnknown => f.write_str("specimen height not given: Cα undetermined"),
+            Flag::DeflectionOutsideCalibration { stress_kpa, min_kpa, max_kpa } => write!(
+                f,
+                "stress {stress_kpa} kPa outside the calibrated {min_kpa}–{max_kpa} kPa: \
+                 deflection not extrapolated, no correction"
+            ),
+            Flag::UnloadingBranchMissing => {
+                f.write_str("no unloading branch in the deflection calibration: loading branch used")
+            }
+            Flag::VoidRatioMismatch { e0_from_dry_mass, e0_from_final_water } => write!(
+                f,
+                "e0 from dry mass {e0_from_dry_mass:.3} and from final water content {e0_from_final_water:.3} \
+                 differ by more than 0.02"
+            ),
+            Flag::PartlySaturated { saturation } => write!(
+                f,
+                "initial degree of saturation {:.0} % < 95 %: cv assumes a saturated specimen",
+                saturation * 100.0
+            ),
+            Flag::SaturationAboveOne { saturation } => write!(
+                f,
+                "initial degree of saturation {:.0} % > 105 %: check masses, dimensions and Gs",
+                saturation * 100.0
+            ),
+            Flag::FewVirginPoints { points } => write!(f, "Cc from only {points} points on the virgin branch"),
+            Flag::VirginPointsBelowPreconsolidation => {
+                f.write_str("virgin line uses points at or below σ′p: Cc may be too flat")
+            }
+            Flag::NoUnloadReload => f.write_str("no unload–reload cycle: Cr undetermined"),
+            Flag::PreconsolidationUndetermined { method } => {
+                write!(f, "σ′p ({method}): too few loading points, undetermined")
+            }
+            Flag::PreconsolidationOutsideData { method, sigma_p_kpa } => write!(
+                f,
+                "σ′p ({method}) = {sigma_p_kpa:.0} kPa lies outside the applied stresses: treat as a bound only"
+            ),
+            Flag::EndOfPrimaryMissing { stress_kpa } => {
+                write!(f, "no end of primary at {stress_kpa} kPa: end-of-increment settlement used")
+            }
+            Flag::TemperatureOutsideTable { temperature_c } => {
+                write!(f, "temperature {temperature_c} °C outside the viscosity table: cv not corrected to 20 °C")
+            }
+        }
+    }
+}
+
+impl serde::Serialize for Flag {
+    fn serialize<S: serde::Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        let mut s = serializer.serialize_struct("Flag", 2)?;
+        s.serialize_field("code", self.code())?;
+        s.serialize_field("message", &self.to_string())?;
+        s.end()
+    }
+}
+
+/// Adds `flag` unless an equal one is already there.
+pub(crate) fn push_unique(flags: &mut Vec<Flag>, flag: Flag) {
+    if !flags.contains(&flag) {
+        flags.push(flag);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn lir_flag_reads_as_the_rule_it_reports() {
+        // Rule from [R S2 Note 5]: LIR < 0.7 may prevent evaluation of cv.
+        let flag = Flag::LoadIncrementRatioLow { lir: 0.5 };
+        assert_eq!(flag.to_string(), "LIR 0.50 < 0.7: cv unreliable");
+        assert_eq!(flag.code(), "lir_low");
+    }
+
+    #[test]
+    fn flag_serialises_with_code_and_message() {
+        let json = serde_json::to_string(&Flag::NoSecondaryBranch).unwrap();
+        assert_eq!(json, r#"{"code":"no_secondary_branch","message":"no secondary branch yet: d100 undetermined"}"#);
+    }
+
+    #[test]
+    fn push_unique_keeps_one_of_each() {
+        let mut flags = vec![Flag::NoSecondaryBranch];
+        push_unique(&mut flags, Flag::NoSecondaryBranch);
+        push_unique(&mut flags, Flag::T90NotReached);
+        assert_eq!(flags, vec![Flag::NoSecondaryBranch, Flag::T90NotReached]);
+    }
+}

@@ -1,0 +1,150 @@
+//! Reduction of incremental-loading oedometer tests: phase relations, Terzaghi theory, the Taylor and
+//! Casagrande time-curve constructions, cv, Cα and the e–log σ′ curve with its parameters.
+//!
+//! Pure: numbers in, numbers out. Nothing here reads a clock, a database, a configuration file or does any
+//! I/O; every construction choice comes in as a parameter and goes out in the result, with quality flags and
+//! the points and lines used, so the dashboard can draw the construction and an engineer can review it.
+//! Results are proposals for a qualified engineer to check (REFERENCES §7), never commands to a frame.
+//!
+//! Conventions: time in minutes since the load went on, displacement in mm with compression positive,
+//! stress in kPa. Method facts cite `shared/REFERENCES.md` by its tags ([R Sx] read, [C] computed,
+//! [M] from memory, [CP] common practice).
+
+pub mod casagrande;
+pub mod compression;
+pub mod curve;
+pub mod cv;
+pub mod deflection;
+pub mod fit;
+pub mod flags;
+pub mod increment;
+pub mod interp;
+pub mod phase;
+pub mod secondary;
+pub mod taylor;
+pub mod terzaghi;
+
+#[cfg(test)]
+mod synthetic;
+
+pub use casagrande::{CasagrandeParams, CasagrandeResult, casagrande};
+pub use compression::{
+    CompressionInput, CompressionParams, CompressionPoint, CompressionReduction, reduce_compression,
+};
+pub use curve::{CurveNode, PreparedCurve, TimeCurve};
+pub use cv::{CvEstimate, Drainage, DrainagePath, HeightBasis, SpecimenState};
+pub use deflection::{DeflectionCalibration, LoadBranch};
+pub use fit::Line;
+pub use flags::Flag;
+pub use increment::{IncrementParams, IncrementReduction, reduce_curve, reduce_increment};
+pub use phase::{PhaseRelations, SpecimenMeasurements, phase_relations};
+pub use taylor::{TaylorParams, TaylorResult, taylor};
+
+/// Why an analysis could not even start: bad input or a parameter outside what is allowed.
+/// A construction that runs but cannot find something returns `None` values and a [`Flag`] instead.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum AnalysisError {
+    /// No readings at all.
+    #[error("no readings")]
+    NoReadings,
+    /// A reading's time or displacement is NaN or infinite.
+    #[error("reading {index}: {field} is not a finite number")]
+    NonFinite {
+        /// 0-based position of the reading.
+        index: usize,
+        /// `time_min` or `displacement_mm`.
+        field: &'static str,
+    },
+    /// Time before the load went on.
+    #[error("reading {index}: time {time_min} min is negative (time counts from the load going on)")]
+    NegativeTime {
+        /// 0-based position of the reading.
+        index: usize,
+        /// The offending time.
+        time_min: f64,
+    },
+    /// Readings out of time order.
+    #[error("reading {index}: time {time_min} min is earlier than the reading before it ({previous_min} min)")]
+    Unsorted {
+        /// 0-based position of the reading.
+        index: usize,
+        /// The offending time.
+        time_min: f64,
+        /// The time of the reading before it.
+        previous_min: f64,
+    },
+    /// A value too large to be a reading of a laboratory specimen.
+    #[error("reading {index}: {field} = {value} is outside ±{limit}")]
+    OutOfRange {
+        /// 0-based position of the reading.
+        index: usize,
+        /// `time_min` or `displacement_mm`.
+        field: &'static str,
+        /// The offending value.
+        value: f64,
+        /// The largest magnitude allowed.
+        limit: f64,
+    },
+    /// A parameter outside its allowed range.
+    #[error("{name} = {value}: allowed {allowed}")]
+    InvalidParameter {
+        /// The parameter's name, as in the struct field.
+        name: &'static str,
+        /// The offending value.
+        value: f64,
+        /// What is allowed.
+        allowed: &'static str,
+    },
+    /// A parameter that the chosen options need was not given.
+    #[error("{name} is needed {reason}")]
+    MissingParameter {
+        /// The parameter's name.
+        name: &'static str,
+        /// Why it is needed.
+        reason: &'static str,
+    },
+    /// A table or series with too few entries.
+    #[error("{what}: needs at least {needed} points, got {got}")]
+    TooFewPoints {
+        /// What the points are for.
+        what: &'static str,
+        /// How many are needed.
+        needed: usize,
+        /// How many were given.
+        got: usize,
+    },
+    /// A table whose abscissae do not increase strictly.
+    #[error("{what}: point {index} ({value}) does not increase on the one before it")]
+    NotIncreasing {
+        /// Which table.
+        what: &'static str,
+        /// 0-based position of the entry.
+        index: usize,
+        /// The offending abscissa.
+        value: f64,
+    },
+}
+
+/// Checks that a parameter is finite and within `[low, high]`.
+pub(crate) fn check_range(
+    name: &'static str,
+    value: f64,
+    low: f64,
+    high: f64,
+    allowed: &'static str,
+) -> Result<f64, AnalysisError> {
+    if value.is_finite() && value >= low && value <= high {
+        Ok(value)
+    } else {
+        Err(AnalysisError::InvalidParameter { name, value, allowed })
+    }
+}
+
+/// Checks that a parameter is finite and strictly positive.
+pub(crate) fn check_positive(name: &'static str, value: f64) -> Result<f64, AnalysisError> {
+    if value.is_finite() && value > 0.0 {
+        Ok(value)
+    } else {
+        Err(AnalysisError::InvalidParameter { name, value, allowed: "a finite number > 0" })
+    }
+}
