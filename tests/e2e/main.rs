@@ -1,1 +1,10 @@
-//! e2e
+//! oedolog's end-to-end tests: one integration binary, one module per area.
+//!
+//! Each suite runs real processes (the workspace binaries, socat, mbpoll, pymodbus scripts) and must
+//! not skip when a peer is missing: `oedolog_tests` panics with what to install instead.
+
+mod daemon;
+mod peers_mbpoll;
+mod peers_pymodbus;
+mod protocol_vs_pymodbus;
+mod util_selftest;

@@ -1,0 +1,77 @@
+//! The command line: `check-config` (exit status, every problem with line and field), `backup` while
+//! the daemon runs, `--version`.
+
+use std::process::Command;
+use std::time::Duration;
+
+use oedolog_tests::{Simulator, run_to_end, temp_dir, workspace_binary};
+
+use super::*;
+
+#[test]
+fn check_config_accepts_the_sample_and_refuses_a_broken_file_with_line_and_field() {
+    let sample = oedolog_tests::workspace_root().join("daemon/oedolog.sample.toml");
+    let mut command = Command::new(workspace_binary("oedolog"));
+    command.arg("check-config").arg(&sample);
+    let ok = run_to_end("oedolog check-config", command).unwrap();
+    assert!(ok.status.success(), "{}", ok.stderr);
+    assert!(ok.stdout.contains("valid") && ok.stdout.contains("3 frame(s), 3 bus(es)"), "{}", ok.stdout);
+
+    let dir = temp_dir();
+    let broken = std::fs::read_to_string(&sample)
+        .unwrap()
+        .replace("baud = 19200", "baud = 19000")
+        .replace("unit = 1 ", "unit = 300 ");
+    let path = dir.path().join("broken.toml");
+    std::fs::write(&path, broken).unwrap();
+    let mut command = Command::new(workspace_binary("oedolog"));
+    command.arg("check-config").arg(&path);
+    let bad = run_to_end("oedolog check-config", command).unwrap();
+    assert_eq!(bad.status.code(), Some(1));
+    assert!(bad.stderr.contains("bus[0].baud: 19000 is not allowed (allowed: 1200, 2400"), "{}", bad.stderr);
+    assert!(bad.stderr.contains("frame[0].unit: 300 is not allowed (allowed 1 to 247"), "{}", bad.stderr);
+    assert!(bad.stderr.contains("line 22, column 8"), "the baud line of the sample: {}", bad.stderr);
+}
+
+#[test]
+fn backup_while_the_daemon_runs_gives_a_consistent_copy() {
+    let dir = temp_dir();
+    let sim = Simulator::start_tcp(&["--frames", "2", "--schedule", "manual"]).unwrap();
+    let mut text = config_head(dir.path());
+    text += &format!("[[bus]]\nid = \"tcp\"\nkind = \"modbus-tcp\"\naddress = \"{}\"\n", sim.tcp_addr().unwrap());
+    text += &sim_frame("F1", "tcp", 1, 10);
+    text += &sim_frame("F2", "tcp", 2, 10);
+    let config = write_config(dir.path(), &text);
+    let daemon = Daemon::start(&config, &[]).unwrap();
+    daemon.wait_frames(Duration::from_secs(20), |f| f.iter().all(|f| counter(f, "readings") >= 50)).unwrap();
+    assert!(wait_stored(dir.path(), 100) >= 100);
+    let dest = dir.path().join("copy.sqlite");
+    let mut command = Command::new(workspace_binary("oedolog"));
+    command.arg("backup").arg(&dest).arg("--config").arg(&config);
+    let done = run_to_end("oedolog backup", command).unwrap();
+    assert!(done.status.success(), "{}", done.stderr);
+    let copy = rusqlite::Connection::open(&dest).unwrap();
+    let check: String = copy.query_row("PRAGMA integrity_check", [], |r| r.get(0)).unwrap();
+    assert_eq!(check, "ok");
+    let rows: i64 = copy.query_row("SELECT count(*) FROM readings", [], |r| r.get(0)).unwrap();
+    assert!(rows >= 100, "{rows}");
+    // A second backup to the same file is refused rather than overwriting it.
+    let mut command = Command::new(workspace_binary("oedolog"));
+    command.arg("backup").arg(&dest).arg("--config").arg(&config);
+    let again = run_to_end("oedolog backup", command).unwrap();
+    assert!(!again.status.success() && again.stderr.contains("exists"), "{}", again.stderr);
+}
+
+#[test]
+fn version_and_help_answer() {
+    let mut command = Command::new(workspace_binary("oedolog"));
+    command.arg("--version");
+    let v = run_to_end("oedolog --version", command).unwrap();
+    assert!(v.status.success() && v.stdout.starts_with("oedolog "), "{}", v.stdout);
+    let mut command = Command::new(workspace_binary("oedolog"));
+    command.arg("--help");
+    let h = run_to_end("oedolog --help", command).unwrap();
+    for sub in ["run", "demo", "check-config", "backup"] {
+        assert!(h.stdout.contains(sub), "{}", h.stdout);
+    }
+}
