@@ -12,3 +12,4 @@ pub mod lab;
 pub mod logging;
 pub mod service;
 pub mod store;
+pub mod watch;
