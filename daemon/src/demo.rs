@@ -159,11 +159,10 @@ pub async fn start(
     let running = service::start(&config, clock.clone(), Options::default()).await?;
     // A rerun on the same file: earlier demo tests are closed, each frame gets a fresh one.
     for (i, specimen) in specimens.into_iter().enumerate() {
-        let lab = running.lab.clone();
-        let now = clock.now_us();
+        let hub = running.hub.clone();
         tokio::task::spawn_blocking(move || {
-            lab.finish_test(i, now, "the demo restarted")?;
-            lab.start_test(i, specimen, now, Some("demo".into()))
+            hub.finish_test(i, "the demo restarted")?;
+            hub.start_test(i, specimen, oedolog_sim::scenario::SEATING_KPA, Some("demo".into()))
         })
         .await??;
     }
@@ -171,18 +170,18 @@ pub async fn start(
     tokio::spawn(run_schedules(shared, Duration::from_millis(50), move |unit, onset_s, stress_kpa| {
         let _ = tx.send((unit, onset_s, stress_kpa));
     }));
-    let lab = running.lab.clone();
+    // The stand-in technician puts the load on, then reports it (a little late, as people do): the
+    // daemon arms the increment and finds t0 from the load-cell step in the readings.
+    let hub = running.hub.clone();
     tokio::spawn(async move {
-        while let Some((unit, onset_s, stress_kpa)) = rx.recv().await {
+        while let Some((unit, _onset_s, stress_kpa)) = rx.recv().await {
             let index = usize::from(unit.0) - 1;
-            let onset_us = start_us + (onset_s * 1e6) as i64;
-            let lab = lab.clone();
-            let result = tokio::task::spawn_blocking(move || {
-                lab.record_increment(index, stress_kpa, onset_us, Some("demo schedule".into()))
-            })
-            .await;
-            if let Ok(Err(error)) | Err(error) = result.map_err(|e| crate::store::StoreError::Damaged(e.to_string())) {
-                tracing::error!("demo: increment not recorded: {error}");
+            let hub = hub.clone();
+            match tokio::task::spawn_blocking(move || hub.arm(index, stress_kpa, Some("demo technician".into()))).await
+            {
+                Ok(Err(error)) => tracing::warn!("demo: increment not armed: {error}"),
+                Err(error) => tracing::error!("demo: {error}"),
+                Ok(Ok(())) => {}
             }
         }
     });

@@ -16,6 +16,7 @@ use serde::Serialize;
 use crate::acquire::{Counters, Live, LiveFrame};
 use crate::clock::{Clock, rfc3339};
 use crate::lab::{Lab, RunningTest};
+use crate::watch::{Hub, WatchStatus};
 
 /// What the handlers share.
 #[derive(Clone)]
@@ -24,6 +25,8 @@ pub struct AppState {
     pub live: Live,
     /// Running tests.
     pub lab: Lab,
+    /// The live watch.
+    pub hub: Hub,
     /// The daemon's clock.
     pub clock: Arc<dyn Clock>,
     /// Per frame: how long without a valid reading before it counts as offline.
@@ -57,6 +60,8 @@ pub struct FrameView {
     pub test: Option<RunningTest>,
     /// Seconds into the current increment.
     pub increment_elapsed_s: Option<f64>,
+    /// The live watch of the current increment: constructions so far, ETA to ready.
+    pub watch: Option<WatchStatus>,
     /// Device counters.
     pub counters: Counters,
 }
@@ -71,6 +76,7 @@ pub fn frame_state(live: &LiveFrame, test: Option<&RunningTest>, now_us: i64, st
 fn views(state: &AppState) -> Vec<FrameView> {
     let now = state.clock.now_us();
     let tests = state.lab.snapshot();
+    let watches = state.hub.status();
     state
         .live
         .snapshot()
@@ -93,6 +99,7 @@ fn views(state: &AppState) -> Vec<FrameView> {
                 reading_age_s: last.map(|at| (now - at) as f64 / 1e6),
                 bus_up: f.bus_up,
                 increment_elapsed_s: test.as_ref().and_then(|t| t.onset_us).map(|t0| (now - t0) as f64 / 1e6),
+                watch: test.as_ref().and(watches.get(i)).map(|(_, w)| w.clone()),
                 test,
                 counters: f.counters,
                 id: f.id,
@@ -140,7 +147,15 @@ async fn overview(State(state): State<AppState>) -> impl IntoResponse {
             )),
             value(v.displacement_mm, 3),
             value(v.load_kn, 4),
-            v.increment_elapsed_s.map_or("—".to_string(), |s| format!("{:.1} h", s / 3600.0)),
+            match (v.state.as_str(), v.watch.as_ref().and_then(|w| w.ready_eta_us)) {
+                ("ready", _) => "ready for the next load".to_string(),
+                (_, Some(eta)) if eta > state.clock.now_us() => format!(
+                    "{} · ready in ~{:.1} h",
+                    v.increment_elapsed_s.map_or("—".to_string(), |s| format!("{:.1} h", s / 3600.0)),
+                    (eta - state.clock.now_us()) as f64 / 3.6e9
+                ),
+                _ => v.increment_elapsed_s.map_or("—".to_string(), |s| format!("{:.1} h", s / 3600.0)),
+            },
             v.reading_age_s.map_or("never".to_string(), |s| format!("{s:.0} s ago")),
         );
     }

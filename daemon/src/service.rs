@@ -13,6 +13,7 @@ use crate::config::Config;
 use crate::http::{AppState, router};
 use crate::lab::Lab;
 use crate::store::{self, CommitReport, Event, StoreError, Writer, WriterPolicy, WriterThread};
+use crate::watch::{Hub, WatchParams};
 
 /// Why the daemon could not start.
 #[derive(Debug, thiserror::Error)]
@@ -46,6 +47,8 @@ pub struct Running {
     pub live: Live,
     /// Running tests.
     pub lab: Lab,
+    /// The live watch of every frame.
+    pub hub: Hub,
     /// The writer.
     pub writer: Writer,
     /// Where HTTP listens.
@@ -93,7 +96,15 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
         data: None,
     })?;
     let lab = Lab::resume(&reader, keys.clone(), writer.clone(), now)?;
+    let areas = config.frames.iter().map(|f| f.ring_area_mm2).collect();
+    let hub = Hub::resume(&reader, lab.clone(), writer.clone(), clock.clone(), areas, WatchParams::default())?;
     drop(reader);
+    let (tap, taps) = std::sync::mpsc::channel();
+    let hub_thread = hub.clone();
+    std::thread::Builder::new()
+        .name("oedolog-watch".into())
+        .spawn(move || hub_thread.run(taps))
+        .map_err(|e| StoreError::Folder { path: "watch thread".into(), source: e })?;
     let live = Live::new(
         config
             .frames
@@ -102,7 +113,7 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
             .map(|(f, &key)| LiveFrame { id: f.id.clone(), name: f.name.clone(), key, ..Default::default() })
             .collect(),
     );
-    let sinks = Sinks { writer: writer.clone(), live: live.clone(), clock: clock.clone() };
+    let sinks = Sinks { writer: writer.clone(), live: live.clone(), clock: clock.clone(), tap: Some(tap) };
     let mut tasks = spawn_buses(config, &keys, &sinks);
     let listener = TcpListener::bind(config.http.listen)
         .await
@@ -110,14 +121,22 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
     let http_addr = listener.local_addr().map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
     // Offline after ten steady periods without a valid reading, and never under 30 s of clock time.
     let stale_after = config.frames.iter().map(|f| (f.poll.steady * 10).max(Duration::from_secs(30))).collect();
-    let state = AppState { live: live.clone(), lab: lab.clone(), clock: clock.clone(), stale_after, started_us: now };
+    let state = AppState {
+        live: live.clone(),
+        lab: lab.clone(),
+        hub: hub.clone(),
+        clock: clock.clone(),
+        stale_after,
+        started_us: now,
+    };
     let app = router(state);
     tasks.push(tokio::spawn(async move {
         if let Err(error) = axum::serve(listener, app).await {
             tracing::error!("http server stopped: {error}");
         }
     }));
-    Ok(Running { live, lab, writer, http_addr, writer_thread, tasks, clock })
+    drop(sinks);
+    Ok(Running { live, lab, hub, writer, http_addr, writer_thread, tasks, clock })
 }
 
 impl Running {

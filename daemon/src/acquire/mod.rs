@@ -108,6 +108,8 @@ pub struct Sinks {
     pub live: Live,
     /// The clock readings are stamped with.
     pub clock: Arc<dyn Clock>,
+    /// Where valid readings also go for the live watch.
+    pub tap: Option<std::sync::mpsc::Sender<Reading>>,
 }
 
 impl Sinks {
@@ -307,6 +309,9 @@ impl PolledFrame {
         if let Err(error) = sinks.writer.reading(reading) {
             tracing::error!("reading not stored: {error}");
             return;
+        }
+        if let Some(tap) = &sinks.tap {
+            let _ = tap.send(reading);
         }
         sinks.live.update(self.index, |f| {
             f.counters.readings += 1;

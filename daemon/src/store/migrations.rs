@@ -7,7 +7,10 @@ use rusqlite::Connection;
 use super::StoreError;
 
 /// Every migration, in order: (file name, SQL). Keep equal to the files on disk (a test checks).
-pub const MIGRATIONS: &[(&str, &str)] = &[("0001_init.sql", include_str!("../../../migrations/0001_init.sql"))];
+pub const MIGRATIONS: &[(&str, &str)] = &[
+    ("0001_init.sql", include_str!("../../../migrations/0001_init.sql")),
+    ("0002_watch.sql", include_str!("../../../migrations/0002_watch.sql")),
+];
 
 /// The schema version this binary writes.
 pub fn latest_version() -> u32 {

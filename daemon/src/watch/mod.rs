@@ -1,9 +1,11 @@
 //! The live watch: per frame, the increment lifecycle and end-of-primary detection as readings arrive.
-//! [`frame`] is the pure state machine; the hub that feeds it and persists its notes comes with the
-//! daemon's wiring.
+//! [`frame`] is the pure state machine; [`hub`] feeds it from acquisition, persists what it decides and
+//! takes operator actions.
 
 pub mod frame;
+pub mod hub;
 
 pub use frame::{
     EopRule, FrameWatch, Note, OnsetSource, Phase, Reseat, Specimen, WatchError, WatchParams, WatchStatus,
 };
+pub use hub::{Hub, HubError};

@@ -1,0 +1,281 @@
+//! The hub: feeds every frame's [`FrameWatch`] with the readings acquisition stored, turns its notes
+//! into journal events and lab-book changes, and takes operator actions. Runs on its own thread (the
+//! store's writer answers it synchronously); the screens read its status.
+
+use std::collections::HashMap;
+use std::sync::mpsc::{Receiver, RecvTimeoutError};
+use std::sync::{Arc, Mutex};
+use std::time::Duration;
+
+use rusqlite::{Connection, params};
+
+use super::frame::{FrameWatch, Note, OnsetSource, Phase, Specimen, WatchError, WatchParams, WatchStatus};
+use crate::clock::Clock;
+use crate::lab::{self, Lab};
+use crate::store::{ChannelKind, Event, Reading, StoreError, Writer};
+
+/// Why an operator action through the hub failed.
+#[derive(Debug, thiserror::Error)]
+pub enum HubError {
+    /// No frame with that index.
+    #[error("no such frame")]
+    NoFrame,
+    /// The watch refused it.
+    #[error("{0}")]
+    Watch(#[from] WatchError),
+    /// The store failed.
+    #[error("{0}")]
+    Store(#[from] StoreError),
+}
+
+struct State {
+    watches: Vec<FrameWatch>,
+    /// Per frame key: (index, the poll being gathered: at_us, displacement, load).
+    pending: HashMap<i64, (usize, i64, Option<f64>, Option<f64>)>,
+}
+
+/// Shared handle to every frame's watch.
+#[derive(Clone)]
+pub struct Hub {
+    state: Arc<Mutex<State>>,
+    lab: Lab,
+    writer: Writer,
+    clock: Arc<dyn Clock>,
+    areas_mm2: Arc<Vec<f64>>,
+}
+
+/// One poll as stored: (at_us, displacement, load).
+type Poll = (i64, Option<f64>, Option<f64>);
+
+fn load_since(conn: &Connection, key: i64, since_us: i64) -> Result<Vec<Poll>, StoreError> {
+    let mut statement = conn.prepare(
+        "SELECT at_us, channel, value FROM readings WHERE frame_key = ?1 AND channel IN (0, 1) AND at_us >= ?2 ORDER BY at_us, channel",
+    )?;
+    let mut out: Vec<Poll> = Vec::new();
+    let rows = statement
+        .query_map(params![key, since_us], |r| Ok((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?, r.get::<_, f64>(2)?)))?;
+    for row in rows {
+        let (at, channel, value) = row?;
+        if out.last().is_none_or(|l| l.0 != at) {
+            out.push((at, None, None));
+        }
+        let last = out.last_mut().expect("pushed");
+        if channel == ChannelKind::Displacement.code() {
+            last.1 = Some(value);
+        } else {
+            last.2 = Some(value);
+        }
+    }
+    Ok(out)
+}
+
+impl Hub {
+    /// A hub for the configured frames (`areas_mm2[i]` = ring area of frame i), resuming every running
+    /// test from the lab book and the readings since its increment's onset.
+    pub fn resume(
+        conn: &Connection,
+        lab: Lab,
+        writer: Writer,
+        clock: Arc<dyn Clock>,
+        areas_mm2: Vec<f64>,
+        params: WatchParams,
+    ) -> Result<Hub, StoreError> {
+        let mut watches = Vec::new();
+        for (i, test) in lab.snapshot().into_iter().enumerate() {
+            let mut watch = FrameWatch::new(params.clone());
+            if let Some(t) = test {
+                let specimen = Specimen { area_mm2: areas_mm2[i], height_mm: t.height_mm };
+                let zero = conn
+                    .query_row(
+                        "SELECT value FROM readings WHERE frame_key = ?1 AND channel = 0 AND at_us >= ?2 ORDER BY at_us LIMIT 1",
+                        params![lab.key(i), t.started_us],
+                        |r| r.get::<_, f64>(0),
+                    )
+                    .ok();
+                let since = t.onset_us.map_or(clock.now_us(), |onset| onset - 120_000_000);
+                let readings = if t.onset_us.is_some() { load_since(conn, lab.key(i), since)? } else { Vec::new() };
+                if t.increment == 0 {
+                    watch.start_test(specimen, t.seating_kpa);
+                } else {
+                    watch.resume(
+                        specimen,
+                        zero,
+                        t.increment,
+                        t.stress_kpa.unwrap_or(0.0),
+                        t.from_kpa.unwrap_or(t.seating_kpa),
+                        t.armed_us,
+                        t.onset_us,
+                        t.ready_us,
+                        &readings,
+                    );
+                }
+            }
+            watches.push(watch);
+        }
+        Ok(Hub {
+            state: Arc::new(Mutex::new(State { watches, pending: HashMap::new() })),
+            lab,
+            writer,
+            clock,
+            areas_mm2: Arc::new(areas_mm2),
+        })
+    }
+
+    fn lock(&self) -> std::sync::MutexGuard<'_, State> {
+        self.state.lock().unwrap_or_else(|e| e.into_inner())
+    }
+
+    /// Feeds readings from `rx` until every sender is gone (run it on its own thread).
+    pub fn run(self, rx: Receiver<Reading>) {
+        let keys: HashMap<i64, usize> = (0..self.areas_mm2.len()).map(|i| (self.lab.key(i), i)).collect();
+        loop {
+            match rx.recv_timeout(Duration::from_millis(250)) {
+                Ok(reading) => {
+                    let Some(&index) = keys.get(&reading.frame_key) else { continue };
+                    let flushed = {
+                        let mut state = self.lock();
+                        let entry =
+                            state.pending.entry(reading.frame_key).or_insert((index, reading.at_us, None, None));
+                        let flushed = (entry.1 != reading.at_us).then_some(*entry);
+                        if flushed.is_some() {
+                            *entry = (index, reading.at_us, None, None);
+                        }
+                        match reading.channel {
+                            ChannelKind::Displacement => entry.2 = Some(reading.value),
+                            ChannelKind::Load => entry.3 = Some(reading.value),
+                            ChannelKind::Temperature => {}
+                        }
+                        flushed
+                    };
+                    if let Some((i, at, d, l)) = flushed {
+                        self.feed(i, at, d, l);
+                    }
+                }
+                Err(RecvTimeoutError::Timeout) => {
+                    // A quiet bus: hand over polls that are complete by now.
+                    let ready: Vec<_> = self.lock().pending.drain().map(|(_, v)| v).collect();
+                    for (i, at, d, l) in ready {
+                        self.feed(i, at, d, l);
+                    }
+                }
+                Err(RecvTimeoutError::Disconnected) => return,
+            }
+        }
+    }
+
+    fn feed(&self, index: usize, at_us: i64, d: Option<f64>, l: Option<f64>) {
+        let notes = self.lock().watches[index].sample(at_us, d, l);
+        self.act(index, notes);
+    }
+
+    fn act(&self, index: usize, notes: Vec<Note>) {
+        let key = self.lab.key(index);
+        for note in notes {
+            let result = match note {
+                Note::Onset { seq, onset_us, source } => {
+                    let source_name = match source {
+                        OnsetSource::LoadStep => "load-step",
+                        OnsetSource::Deformation => "deformation",
+                    };
+                    let how = if source == OnsetSource::LoadStep { "the load-cell step" } else { "the first sharp deformation" };
+                    self.lab.set_onset(index, onset_us, source_name, format!("increment {seq}: load on at t0 found from {how}"))
+                }
+                Note::Ready { seq, at_us, how } => {
+                    self.lab.set_ready(index, at_us, format!("increment {seq}: end of primary — ready for the next load ({how})"))
+                }
+                Note::LoadOff { measured_kn, expected_kn } => self.event(
+                    key,
+                    "load-off",
+                    format!("load {measured_kn:.4} kN differs from the expected {expected_kn:.4} kN by more than ±0.5 %"),
+                ),
+                Note::LoadBack => self.event(key, "load-back", "load back within ±0.5 % of the expected force".into()),
+                Note::ReseatProposed { at_us, jump_mm } => self.event(
+                    key,
+                    "reseat-proposed",
+                    format!("gauge jumped {jump_mm:+.3} mm at {}: a re-seat? Confirm to stitch the curve; nothing is reduced across it until then", crate::clock::rfc3339(at_us)),
+                ),
+                Note::UnarmedLoadChange { from_kn, to_kn, .. } => self.event(
+                    key,
+                    "load-change-unarmed",
+                    format!("load changed from {from_kn:.4} to {to_kn:.4} kN with no increment armed"),
+                ),
+            };
+            if let Err(error) = result {
+                tracing::error!("watch note not stored: {error}");
+            }
+        }
+    }
+
+    fn event(&self, key: i64, kind: &'static str, message: String) -> Result<(), StoreError> {
+        tracing::info!(kind, "{message}");
+        self.writer.event(Event {
+            at_us: self.clock.now_us(),
+            frame_key: Some(key),
+            kind,
+            message,
+            actor: None,
+            data: None,
+        })
+    }
+
+    /// Starts a test on frame `index`.
+    pub fn start_test(
+        &self,
+        index: usize,
+        specimen: lab::Specimen,
+        seating_kpa: f64,
+        actor: Option<String>,
+    ) -> Result<lab::RunningTest, HubError> {
+        let area = *self.areas_mm2.get(index).ok_or(HubError::NoFrame)?;
+        let height_mm = specimen.height_mm;
+        let test = self.lab.start_test(index, specimen, seating_kpa, self.clock.now_us(), actor)?;
+        self.lock().watches[index].start_test(Specimen { area_mm2: area, height_mm }, seating_kpa);
+        Ok(test)
+    }
+
+    /// Finishes the test on frame `index`.
+    pub fn finish_test(&self, index: usize, why: &str) -> Result<(), HubError> {
+        self.areas_mm2.get(index).ok_or(HubError::NoFrame)?;
+        self.lab.finish_test(index, self.clock.now_us(), why)?;
+        self.lock().watches[index].finish_test();
+        Ok(())
+    }
+
+    /// Arms the next increment of frame `index` at `stress_kpa`.
+    pub fn arm(&self, index: usize, stress_kpa: f64, actor: Option<String>) -> Result<(), HubError> {
+        let now = self.clock.now_us();
+        let notes = {
+            let mut state = self.lock();
+            let watch = state.watches.get_mut(index).ok_or(HubError::NoFrame)?;
+            watch.arm(stress_kpa, now)?
+        };
+        self.lab.arm(index, stress_kpa, now, actor)?;
+        self.act(index, notes);
+        Ok(())
+    }
+
+    /// Answers a proposed gauge re-seat of frame `index`.
+    pub fn resolve_reseat(&self, index: usize, accept: bool, actor: Option<String>) -> Result<(), HubError> {
+        let notes = {
+            let mut state = self.lock();
+            state.watches.get_mut(index).ok_or(HubError::NoFrame)?.resolve_reseat(accept)?
+        };
+        let what =
+            if accept { "confirmed: readings stitched across the jump" } else { "rejected: the jump is taken as real" };
+        self.writer.event(Event {
+            at_us: self.clock.now_us(),
+            frame_key: Some(self.lab.key(index)),
+            kind: "reseat-resolved",
+            message: format!("gauge re-seat {what}"),
+            actor,
+            data: None,
+        })?;
+        self.act(index, notes);
+        Ok(())
+    }
+
+    /// Every frame's phase and status.
+    pub fn status(&self) -> Vec<(Phase, WatchStatus)> {
+        self.lock().watches.iter().map(|w| (w.phase(), w.status())).collect()
+    }
+}
