@@ -10,6 +10,7 @@ pub mod demo;
 pub mod http;
 pub mod lab;
 pub mod logging;
+pub mod offline;
 pub mod service;
 pub mod store;
 pub mod watch;

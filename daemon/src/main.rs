@@ -64,6 +64,38 @@ enum Command {
         #[arg(long, value_name = "PATH")]
         db: Option<PathBuf>,
     },
+    /// Reduce files logged by hand or on other equipment: one increment's time curve, or a whole test.
+    Analyze {
+        #[command(subcommand)]
+        what: AnalyzeCommand,
+    },
+}
+
+#[derive(Subcommand, Debug)]
+enum AnalyzeCommand {
+    /// One time curve: a CSV with the header `time_min,displacement_mm` (minutes since the load went on,
+    /// compression positive, mm). Prints both constructions, cv by each, and Cα; d0, d50, d100 and t50 are
+    /// reported from log t (Casagrande) when it finds d100, else from √t (Taylor); t90 is Taylor's.
+    Increment {
+        /// The CSV file.
+        file: PathBuf,
+        /// Longest drainage path Hdr, mm (half the specimen height for double drainage). Cα is strain over a
+        /// height of 2 × Hdr.
+        #[arg(long, value_name = "MM", allow_negative_numbers = true)]
+        drainage_path_mm: f64,
+        /// Print one JSON object instead of a table.
+        #[arg(long)]
+        json: bool,
+    },
+    /// A whole test: a TOML file with `[specimen]` and `[[increment]]` tables (optional `readings` time
+    /// curves, double drainage). Prints the e–log σ′ curve, mv, cv, Cc, Cr and σ′p.
+    Test {
+        /// The TOML file.
+        file: PathBuf,
+        /// Print one JSON object instead of a table.
+        #[arg(long)]
+        json: bool,
+    },
 }
 
 async fn shutdown_signal() -> &'static str {
@@ -150,6 +182,20 @@ async fn run(command: Command) -> anyhow::Result<()> {
             store::backup(&source, &dest)
                 .with_context(|| format!("backing up {} to {}", source.display(), dest.display()))?;
             println!("backup of {} written to {}", source.display(), dest.display());
+            Ok(())
+        }
+        Command::Analyze { what } => {
+            let text = match what {
+                AnalyzeCommand::Increment { file, drainage_path_mm, json } => {
+                    let report = oedolog::offline::analyze_increment(&file, drainage_path_mm)?;
+                    if json { report.to_json() } else { report.to_table() }
+                }
+                AnalyzeCommand::Test { file, json } => {
+                    let report = oedolog::offline::analyze_test(&file)?;
+                    if json { report.to_json() } else { report.to_table() }
+                }
+            };
+            println!("{}", text.trim_end());
             Ok(())
         }
     }

@@ -113,10 +113,11 @@ async fn main() -> anyhow::Result<()> {
     };
     for path in &args.rtu {
         let line = RtuLine { path: path.clone(), baud: args.baud, parity };
-        // Open once here so a wrong path fails at start; the server reopens it if it vanishes later.
-        drop(open_rtu(&line).with_context(|| format!("--rtu {path}"))?);
+        // Open here so a wrong path fails at start, and keep that port: a request sent right after the
+        // readiness line must find it open. The server reopens the path if it vanishes later.
+        let port = open_rtu(&line).with_context(|| format!("--rtu {path}"))?;
         say(&format!("listening on rtu {path}"));
-        tokio::spawn(serve_rtu(line, shared.clone(), Duration::from_millis(500)));
+        tokio::spawn(serve_rtu(line, port, shared.clone(), Duration::from_millis(500)));
     }
     if automatic {
         tokio::spawn(run_schedules(shared.clone(), Duration::from_millis(50), |unit, onset_s, stress_kpa| {

@@ -237,11 +237,16 @@ pub async fn serve_rtu_port<S: AsyncRead + AsyncWrite + Unpin>(
     }
 }
 
-/// Serves an RTU line for ever: opens it, serves it, and when it fails (adapter unplugged, pty closed)
-/// reopens it every `retry` until it comes back.
-pub async fn serve_rtu(line: RtuLine, shared: Arc<Shared>, retry: Duration) {
+/// Serves an RTU line for ever: serves `first` (already opened, so nothing sent before the readiness
+/// line is lost), and when the line fails (adapter unplugged, pty closed) reopens it every `retry`.
+pub async fn serve_rtu(line: RtuLine, first: tokio_serial::SerialStream, shared: Arc<Shared>, retry: Duration) {
+    let mut first = Some(first);
     loop {
-        match open_rtu(&line) {
+        let port = match first.take() {
+            Some(port) => Ok(port),
+            None => open_rtu(&line),
+        };
+        match port {
             Ok(mut port) => {
                 if let Err(error) = serve_rtu_port(&mut port, line.baud, &shared).await {
                     eprintln!("rtu {}: {error}; reopening", line.path);

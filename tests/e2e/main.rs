@@ -3,6 +3,7 @@
 //! Each suite runs real processes (the workspace binaries, socat, mbpoll, pymodbus scripts) and must
 //! not skip when a peer is missing: `oedolog_tests` panics with what to install instead.
 
+mod analyze;
 mod daemon;
 mod peers_mbpoll;
 mod peers_pymodbus;

@@ -1,0 +1,1472 @@
+//! Offline reduction of files logged by hand or on other equipment: one increment's time curve (CSV,
+//! `oedolog analyze increment`) or a whole test (TOML, `oedolog analyze test`), reduced by `analysis` and
+//! given back as one JSON object or an aligned table. It must not do any construction itself (that is
+//! `analysis`), touch the store or a frame, or panic on a bad file: every problem names its file and its
+//! line and column or field. Results are proposals for a qualified engineer to review (REFERENCES §7).
+
+use std::fmt::Write as _;
+use std::ops::Range;
+use std::path::{Path, PathBuf};
+
+use serde::{Deserialize, Serialize};
+use toml::Spanned;
+
+use crate::analysis::compression::{Branch, CurveBasis, StatePoint};
+use crate::analysis::curve::{MAX_DISPLACEMENT_MM, MAX_TIME_MIN};
+use crate::analysis::cv::Method;
+use crate::analysis::phase::final_water_check;
+use crate::analysis::secondary::secondary_compression;
+use crate::analysis::{
+    AnalysisError, CompressionInput, CompressionParams, CompressionPoint, Drainage, Flag, IncrementParams,
+    IncrementReduction, SpecimenMeasurements, phase_relations, reduce_compression, reduce_increment,
+};
+
+/// The one header a time-curve CSV may have: minutes since the load went on, compression positive in mm.
+pub const CSV_HEADER: &str = "time_min,displacement_mm";
+/// Largest drainage path `analyze increment` accepts, mm (a 2 m specimen is no oedometer specimen).
+pub const MAX_DRAINAGE_PATH_MM: f64 = 1000.0;
+/// Largest stress a test file may give, kPa (the analysis refuses more).
+const MAX_STRESS_KPA: f64 = 1e6;
+
+// ---------------------------------------------------------------------------------------------------------
+// Errors
+
+/// What is wrong with a time-curve CSV, without where (see [`CsvError`]).
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum CsvProblem {
+    /// Nothing in the file, not even the header.
+    #[error("the file is empty; its first line must be the header `time_min,displacement_mm`")]
+    Empty,
+    /// The first line is not the header.
+    #[error("the header must be exactly `time_min,displacement_mm`, found `{found}`")]
+    WrongHeader {
+        /// The first line as written.
+        found: String,
+    },
+    /// A reading line without exactly two comma-separated fields.
+    #[error("expected 2 fields (time_min,displacement_mm), found {found}")]
+    FieldCount {
+        /// Fields on the line.
+        found: usize,
+    },
+    /// A field with nothing in it.
+    #[error("{column} is empty")]
+    EmptyField {
+        /// `time_min` or `displacement_mm`.
+        column: &'static str,
+    },
+    /// A field that is not a decimal number.
+    #[error("{column} `{text}` is not a number")]
+    NotANumber {
+        /// `time_min` or `displacement_mm`.
+        column: &'static str,
+        /// The field as written.
+        text: String,
+    },
+    /// NaN or infinity.
+    #[error("{column} `{text}` is not a finite number")]
+    NotFinite {
+        /// `time_min` or `displacement_mm`.
+        column: &'static str,
+        /// The field as written.
+        text: String,
+    },
+    /// A time before the load went on.
+    #[error("time_min {time_min} is negative (times count in minutes from the load going on)")]
+    NegativeTime {
+        /// The time.
+        time_min: f64,
+    },
+    /// A time earlier than the line before it.
+    #[error("time_min {time_min} is earlier than {previous_min} on line {previous_line}: times must not decrease")]
+    Unsorted {
+        /// The time.
+        time_min: f64,
+        /// The time of the reading before it.
+        previous_min: f64,
+        /// The line of the reading before it.
+        previous_line: usize,
+    },
+    /// A value too large to be a reading of a laboratory increment.
+    #[error("{column} {value} is outside ±{limit}")]
+    OutOfRange {
+        /// `time_min` or `displacement_mm`.
+        column: &'static str,
+        /// The value.
+        value: f64,
+        /// The largest magnitude allowed.
+        limit: f64,
+    },
+    /// A header and nothing after it.
+    #[error("no readings after the header")]
+    NoReadings,
+}
+
+/// A problem in a time-curve CSV and the 1-based line it is on (`None`: the file as a whole).
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{}{problem}", at_line(*.line))]
+pub struct CsvError {
+    /// 1-based line, counting the header as line 1.
+    pub line: Option<usize>,
+    /// What is wrong.
+    pub problem: CsvProblem,
+}
+
+fn at_line(line: Option<usize>) -> String {
+    line.map(|l| format!("line {l}: ")).unwrap_or_default()
+}
+
+fn at_line_column(at: Option<(usize, usize)>) -> String {
+    at.map(|(l, c)| format!("line {l}, column {c}: ")).unwrap_or_default()
+}
+
+/// Why a file could not be reduced. `Display` starts with the file, then the line and column or field.
+#[derive(Debug, thiserror::Error)]
+pub enum OfflineError {
+    /// The file could not be read.
+    #[error("{}: cannot read the file: {error}", .path.display())]
+    Read {
+        /// The file.
+        path: PathBuf,
+        /// What the system said.
+        error: std::io::Error,
+    },
+    /// A bad time-curve CSV.
+    #[error("{}: {error}", .path.display())]
+    Csv {
+        /// The file.
+        path: PathBuf,
+        /// Where and what.
+        error: CsvError,
+    },
+    /// A test file that is not the TOML the command reads (syntax, unknown or missing field, wrong type).
+    #[error("{}: {}{field}: {message}", .path.display(), at_line_column(*.at))]
+    Toml {
+        /// The file.
+        path: PathBuf,
+        /// 1-based line and column, when the parser gave a place.
+        at: Option<(usize, usize)>,
+        /// The field as a path, e.g. `increment[3].stress_kpa`.
+        field: String,
+        /// What the parser said.
+        message: String,
+    },
+    /// A test-file value outside what the reduction allows.
+    #[error("{}: {}{field}: {message}", .path.display(), at_line_column(*.at))]
+    Field {
+        /// The file.
+        path: PathBuf,
+        /// 1-based line and column of the value, when it is in the file.
+        at: Option<(usize, usize)>,
+        /// The field as a path, e.g. `increment[3].stress_kpa`.
+        field: String,
+        /// What is wrong and what is allowed.
+        message: String,
+    },
+    /// An increment's time curve (`readings = "…"`) could not be used.
+    #[error("{}: {}{field}: {problem}", .path.display(), at_line_column(*.at))]
+    Readings {
+        /// The test file.
+        path: PathBuf,
+        /// Line and column of the `readings` value.
+        at: Option<(usize, usize)>,
+        /// `increment[i].readings`.
+        field: String,
+        /// The problem with the CSV (it names the CSV and its line).
+        problem: Box<OfflineError>,
+    },
+    /// `--drainage-path-mm` outside what is allowed.
+    #[error("--drainage-path-mm {value}: allowed a drainage path above 0 and up to 1000 mm")]
+    DrainagePath {
+        /// The value given.
+        value: f64,
+    },
+    /// The analysis refused its input (a check here should have caught it first).
+    #[error("{}: {error}", .path.display())]
+    Analysis {
+        /// The file.
+        path: PathBuf,
+        /// What the analysis said.
+        error: AnalysisError,
+    },
+}
+
+// ---------------------------------------------------------------------------------------------------------
+// The time-curve CSV
+
+/// Parses a time-curve CSV: the header [`CSV_HEADER`], then one `time_min,displacement_mm` reading a line.
+/// Spaces around fields, a UTF-8 byte-order mark, CRLF line ends and blank lines are allowed; times must not
+/// decrease, be negative or be anything but finite decimal numbers.
+pub fn parse_readings(text: &str) -> Result<Vec<(f64, f64)>, CsvError> {
+    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    let mut lines = text.lines().enumerate().map(|(i, l)| (i + 1, l.trim()));
+    let err = |line: usize, problem: CsvProblem| CsvError { line: Some(line), problem };
+    let header = lines.by_ref().find(|(_, l)| !l.is_empty());
+    match header {
+        None => return Err(CsvError { line: None, problem: CsvProblem::Empty }),
+        Some((n, l)) => {
+            let names: Vec<&str> = l.split(',').map(str::trim).collect();
+            if names != ["time_min", "displacement_mm"] {
+                return Err(err(n, CsvProblem::WrongHeader { found: l.to_string() }));
+            }
+        }
+    }
+    let mut readings = Vec::new();
+    let mut previous: Option<(f64, usize)> = None;
+    for (n, l) in lines {
+        if l.is_empty() {
+            continue;
+        }
+        let fields: Vec<&str> = l.split(',').map(str::trim).collect();
+        if fields.len() != 2 {
+            return Err(err(n, CsvProblem::FieldCount { found: fields.len() }));
+        }
+        let t = number(fields[0], "time_min", MAX_TIME_MIN).map_err(|p| err(n, p))?;
+        let d = number(fields[1], "displacement_mm", MAX_DISPLACEMENT_MM).map_err(|p| err(n, p))?;
+        if t < 0.0 {
+            return Err(err(n, CsvProblem::NegativeTime { time_min: t }));
+        }
+        if let Some((previous_min, previous_line)) = previous
+            && t < previous_min
+        {
+            return Err(err(n, CsvProblem::Unsorted { time_min: t, previous_min, previous_line }));
+        }
+        previous = Some((t, n));
+        readings.push((t, d));
+    }
+    if readings.is_empty() {
+        return Err(CsvError { line: None, problem: CsvProblem::NoReadings });
+    }
+    Ok(readings)
+}
+
+fn number(text: &str, column: &'static str, limit: f64) -> Result<f64, CsvProblem> {
+    if text.is_empty() {
+        return Err(CsvProblem::EmptyField { column });
+    }
+    let value: f64 = text.parse().map_err(|_| CsvProblem::NotANumber { column, text: text.to_string() })?;
+    if !value.is_finite() {
+        return Err(CsvProblem::NotFinite { column, text: text.to_string() });
+    }
+    if value.abs() > limit {
+        return Err(CsvProblem::OutOfRange { column, value, limit });
+    }
+    Ok(value)
+}
+
+fn read_text(path: &Path) -> Result<String, OfflineError> {
+    std::fs::read_to_string(path).map_err(|error| OfflineError::Read { path: path.to_path_buf(), error })
+}
+
+/// Reads and parses a time-curve CSV file.
+pub fn read_readings(path: &Path) -> Result<Vec<(f64, f64)>, OfflineError> {
+    parse_readings(&read_text(path)?).map_err(|error| OfflineError::Csv { path: path.to_path_buf(), error })
+}
+
+// ---------------------------------------------------------------------------------------------------------
+// Remarks
+
+/// A quality remark as printed: a stable code and the sentence.
+#[derive(Debug, Clone, PartialEq, Eq)]
+struct Remark {
+    code: &'static str,
+    message: String,
+}
+
+impl From<&Flag> for Remark {
+    fn from(flag: &Flag) -> Self {
+        Remark { code: flag.code(), message: flag.to_string() }
+    }
+}
+
+fn split_remarks(remarks: &[Remark]) -> (Vec<String>, Vec<&'static str>) {
+    (remarks.iter().map(|r| r.message.clone()).collect(), remarks.iter().map(|r| r.code).collect())
+}
+
+// ---------------------------------------------------------------------------------------------------------
+// analyze increment
+
+/// The √t construction as reported.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TaylorSummary {
+    /// Corrected zero, mm.
+    pub d0_mm: Option<f64>,
+    /// Reading at t90, mm.
+    pub d90_mm: Option<f64>,
+    /// d0 + (d90 − d0)/0.9, mm.
+    pub d100_mm: Option<f64>,
+    /// (d0 + d100)/2, mm.
+    pub d50_mm: Option<f64>,
+    /// Time the curve reaches d50, min.
+    pub t50_min: Option<f64>,
+    /// Where the construction line meets the curve, min.
+    pub t90_min: Option<f64>,
+    /// cv = 0.848·Hdr²/t90, mm²/min [R S28].
+    pub cv_mm2_per_min: Option<f64>,
+    /// The same in m²/yr.
+    pub cv_m2_per_year: Option<f64>,
+    /// Time window of the straight early part, min.
+    pub fit_window_min: Option<[f64; 2]>,
+    /// Abscissa ratio of the construction line (1.15 [R S11, S12]).
+    pub factor: f64,
+}
+
+/// The log-t construction as reported.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct CasagrandeSummary {
+    /// Corrected zero by the 1:4 offset, mm.
+    pub d0_mm: Option<f64>,
+    /// Where the inflection tangent meets the secondary line, mm.
+    pub d100_mm: Option<f64>,
+    /// (d0 + d100)/2, mm.
+    pub d50_mm: Option<f64>,
+    /// Time the curve reaches d50, min.
+    pub t50_min: Option<f64>,
+    /// Time at d100, min.
+    pub t100_min: Option<f64>,
+    /// cv = 0.197·Hdr²/t50, mm²/min [R S28].
+    pub cv_mm2_per_min: Option<f64>,
+    /// The same in m²/yr.
+    pub cv_m2_per_year: Option<f64>,
+    /// 1:4 time pairs averaged for d0.
+    pub offset_pairs: usize,
+    /// Time of the steepest point (inflection), min.
+    pub inflection_t_min: Option<f64>,
+    /// Time window of the secondary line, min.
+    pub secondary_window_min: Option<[f64; 2]>,
+}
+
+/// `analyze increment`: one time curve reduced. The first keys are the command's contract; the rest are
+/// extras. Top-level d0, d50, d100 and t50 all come from one construction, named in `primary_from`: log t
+/// (Casagrande) when it found d100, else √t (Taylor); t90 is always Taylor's.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct IncrementReport {
+    /// Corrected zero of the construction in `primary_from`, mm.
+    pub d0_mm: Option<f64>,
+    /// d50 of that construction, mm.
+    pub d50_mm: Option<f64>,
+    /// End of primary consolidation of that construction, mm.
+    pub d100_mm: Option<f64>,
+    /// t50 of that construction, min.
+    pub t50_min: Option<f64>,
+    /// t90 by the √t construction, min.
+    pub t90_min: Option<f64>,
+    /// cv by √t, mm²/min.
+    pub cv_taylor_mm2_per_min: Option<f64>,
+    /// cv by log t, mm²/min.
+    pub cv_casagrande_mm2_per_min: Option<f64>,
+    /// Cα(ε): strain per log cycle of time on the secondary line, strain over `c_alpha_height_mm`.
+    pub c_alpha: Option<f64>,
+    /// Every quality remark, as sentences.
+    pub flags: Vec<String>,
+    /// The remarks' stable codes, in the same order.
+    pub flag_codes: Vec<&'static str>,
+    /// `casagrande` or `taylor`: where the top-level d0, d50, d100, t50 come from (`None`: neither found d100).
+    pub primary_from: Option<&'static str>,
+    /// The drainage path given, mm.
+    pub drainage_path_mm: f64,
+    /// Height Cα's strain is taken over: 2 × the drainage path (double drainage assumed), mm.
+    pub c_alpha_height_mm: f64,
+    /// Slope of the secondary line, mm per log cycle (height-free).
+    pub secondary_slope_mm_per_log_cycle: Option<f64>,
+    /// Readings in the file.
+    pub reading_count: usize,
+    /// Log-time nodes the constructions ran on.
+    pub node_count: usize,
+    /// Reading noise estimated from the scatter inside bins, mm.
+    pub noise_mm: Option<f64>,
+    /// The √t construction.
+    pub taylor: TaylorSummary,
+    /// The log-t construction.
+    pub casagrande: CasagrandeSummary,
+    /// The file reduced.
+    pub file: String,
+}
+
+fn method_name(method: Method) -> &'static str {
+    match method {
+        Method::Taylor => "taylor",
+        Method::Casagrande => "casagrande",
+    }
+}
+
+impl IncrementReport {
+    fn new(path: &Path, drainage_path_mm: f64, c_alpha_height_mm: f64, r: &IncrementReduction) -> Self {
+        let (t, c) = (&r.taylor, &r.casagrande);
+        let taylor = TaylorSummary {
+            d0_mm: t.d0_mm,
+            d90_mm: t.d90_mm,
+            d100_mm: t.d100_mm,
+            d50_mm: t.d50_mm,
+            t50_min: t.t50_min,
+            t90_min: t.t90_min,
+            cv_mm2_per_min: r.cv_taylor.map(|e| e.cv_mm2_per_min),
+            cv_m2_per_year: r.cv_taylor.map(|e| e.cv_m2_per_year),
+            fit_window_min: t.straight.map(|s| [s.t_start_min, s.t_end_min]),
+            factor: t.factor,
+        };
+        let casagrande = CasagrandeSummary {
+            d0_mm: c.d0_mm,
+            d100_mm: c.d100_mm,
+            d50_mm: c.d50_mm,
+            t50_min: c.t50_min,
+            t100_min: c.t100_min,
+            cv_mm2_per_min: r.cv_casagrande.map(|e| e.cv_mm2_per_min),
+            cv_m2_per_year: r.cv_casagrande.map(|e| e.cv_m2_per_year),
+            offset_pairs: c.offset_pairs.len(),
+            inflection_t_min: c.inflection.map(|i| i.t_min),
+            secondary_window_min: c.secondary.map(|s| [s.t_start_min, s.t_end_min]),
+        };
+        // One construction for d0, d50, d100, t50, so d50 = (d0 + d100)/2 holds in what is printed.
+        let primary_from = r.end_of_primary.map(|e| method_name(e.method));
+        let (d0_mm, d50_mm, d100_mm, t50_min) = match primary_from {
+            Some("casagrande") => (c.d0_mm, c.d50_mm, c.d100_mm, c.t50_min),
+            Some(_) => (t.d0_mm, t.d50_mm, t.d100_mm, t.t50_min),
+            None => (t.d0_mm.or(c.d0_mm), None, None, None),
+        };
+        let mut remarks: Vec<Remark> = r.flags.iter().map(Remark::from).collect();
+        let mut report = IncrementReport {
+            d0_mm,
+            d50_mm,
+            d100_mm,
+            t50_min,
+            t90_min: t.t90_min,
+            cv_taylor_mm2_per_min: taylor.cv_mm2_per_min,
+            cv_casagrande_mm2_per_min: casagrande.cv_mm2_per_min,
+            c_alpha: r.secondary.map(|s| s.c_alpha_strain),
+            flags: Vec::new(),
+            flag_codes: Vec::new(),
+            primary_from,
+            drainage_path_mm,
+            c_alpha_height_mm,
+            secondary_slope_mm_per_log_cycle: r.secondary.map(|s| s.slope_mm_per_log_cycle),
+            reading_count: r.reading_count,
+            node_count: r.nodes.len(),
+            noise_mm: r.noise_mm,
+            taylor,
+            casagrande,
+            file: path.display().to_string(),
+        };
+        // The contract: a value that cannot be determined is null *with a flag*. The constructions flag
+        // every case they know; this only guards against a silent null.
+        let missing = report.undetermined();
+        if !missing.is_empty() && remarks.is_empty() {
+            remarks.push(Remark { code: "undetermined", message: format!("undetermined: {}", missing.join(", ")) });
+        }
+        (report.flags, report.flag_codes) = split_remarks(&remarks);
+        report
+    }
+
+    /// The contract keys that are null.
+    fn undetermined(&self) -> Vec<&'static str> {
+        [
+            ("d0_mm", self.d0_mm),
+            ("d50_mm", self.d50_mm),
+            ("d100_mm", self.d100_mm),
+            ("t50_min", self.t50_min),
+            ("t90_min", self.t90_min),
+            ("cv_taylor_mm2_per_min", self.cv_taylor_mm2_per_min),
+            ("cv_casagrande_mm2_per_min", self.cv_casagrande_mm2_per_min),
+            ("c_alpha", self.c_alpha),
+        ]
+        .into_iter()
+        .filter_map(|(name, value)| value.is_none().then_some(name))
+        .collect()
+    }
+
+    /// One JSON object on one line.
+    pub fn to_json(&self) -> String {
+        to_json(self)
+    }
+
+    /// A readable table with units.
+    pub fn to_table(&self) -> String {
+        let mut out = String::new();
+        let (t, c) = (&self.taylor, &self.casagrande);
+        let _ = writeln!(out, "Increment time curve: {}", self.file);
+        let _ = writeln!(
+            out,
+            "{} readings ({} log-time nodes), drainage path Hdr = {} mm",
+            self.reading_count,
+            self.node_count,
+            fixed(Some(self.drainage_path_mm), 3)
+        );
+        let _ = writeln!(out);
+        let _ = writeln!(out, "{:<16}{:<10}{:>16}{:>20}", "", "unit", "√t (Taylor)", "log t (Casagrande)");
+        let rows: [(&str, &str, String, String); 11] = [
+            ("d0", "mm", fixed(t.d0_mm, 4), fixed(c.d0_mm, 4)),
+            ("d50", "mm", fixed(t.d50_mm, 4), fixed(c.d50_mm, 4)),
+            ("d90", "mm", fixed(t.d90_mm, 4), dash()),
+            ("d100", "mm", fixed(t.d100_mm, 4), fixed(c.d100_mm, 4)),
+            ("t50", "min", significant(t.t50_min, 4), significant(c.t50_min, 4)),
+            ("t90", "min", significant(t.t90_min, 4), dash()),
+            ("t100", "min", dash(), significant(c.t100_min, 4)),
+            ("cv", "mm²/min", significant(t.cv_mm2_per_min, 4), significant(c.cv_mm2_per_min, 4)),
+            ("cv", "m²/yr", significant(t.cv_m2_per_year, 4), significant(c.cv_m2_per_year, 4)),
+            ("straight part", "min", window(t.fit_window_min), dash()),
+            ("secondary line", "min", dash(), window(c.secondary_window_min)),
+        ];
+        for (name, unit, a, b) in rows {
+            let _ = writeln!(out, "{name:<16}{unit:<10}{a:>16}{b:>20}");
+        }
+        let _ = writeln!(out);
+        let _ = match self.primary_from {
+            Some(m) => writeln!(
+                out,
+                "reported: d0, d50, d100, t50 from {}; t90 from √t (Taylor)",
+                if m == "casagrande" { "log t (Casagrande)" } else { "√t (Taylor), as log t found no d100" }
+            ),
+            None => writeln!(out, "reported: no end of primary from either construction"),
+        };
+        let _ = writeln!(
+            out,
+            "Cα = {} strain per log cycle (secondary slope {} mm per log cycle over H = {} mm = 2 × Hdr)",
+            significant(self.c_alpha, 4),
+            significant(self.secondary_slope_mm_per_log_cycle, 4),
+            fixed(Some(self.c_alpha_height_mm), 3)
+        );
+        write_flags(&mut out, &self.flags);
+        out
+    }
+}
+
+/// `oedolog analyze increment FILE.csv --drainage-path-mm H`: reduces one time curve with the drainage
+/// path given. Cα is strain over 2·H (double drainage, the usual oedometer set-up [CP]).
+pub fn analyze_increment(path: &Path, drainage_path_mm: f64) -> Result<IncrementReport, OfflineError> {
+    if !(drainage_path_mm.is_finite() && drainage_path_mm > 0.0 && drainage_path_mm <= MAX_DRAINAGE_PATH_MM) {
+        return Err(OfflineError::DrainagePath { value: drainage_path_mm });
+    }
+    let readings = read_readings(path)?;
+    let analysis = |error| OfflineError::Analysis { path: path.to_path_buf(), error };
+    let params = IncrementParams::with_drainage_path_mm(drainage_path_mm);
+    let mut reduction = reduce_increment(&readings, &params).map_err(analysis)?;
+    // The command is given a drainage path, not a height, so the reduction left Cα out (`HeightUnknown`);
+    // take the strain over 2·Hdr instead, as documented.
+    let height_mm = 2.0 * drainage_path_mm;
+    if let Some(line) = reduction.casagrande.secondary {
+        reduction.flags.retain(|f| *f != Flag::HeightUnknown);
+        reduction.secondary =
+            Some(secondary_compression(&line, height_mm, None, &mut reduction.flags).map_err(analysis)?);
+    }
+    Ok(IncrementReport::new(path, drainage_path_mm, height_mm, &reduction))
+}
+
+// ---------------------------------------------------------------------------------------------------------
+// The test file
+
+/// A test file as written (`analyze test`). Every table refuses unknown fields.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct TestFile {
+    /// `[specimen]`
+    pub specimen: SpecimenEntry,
+    /// `[[increment]]`, in the order applied.
+    #[serde(default, rename = "increment")]
+    pub increments: Vec<IncrementEntry>,
+}
+
+/// `[specimen]`: what was measured before and after the test.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SpecimenEntry {
+    /// Ring diameter, mm.
+    pub diameter_mm: Spanned<f64>,
+    /// Initial height H0, mm.
+    pub height_mm: Spanned<f64>,
+    /// Oven-dry mass of the specimen, g.
+    pub dry_mass_g: Spanned<f64>,
+    /// Specific gravity of the solids Gs.
+    pub specific_gravity: Spanned<f64>,
+    /// Initial water content (fraction), e.g. from trimmings.
+    pub initial_water_content: Option<Spanned<f64>>,
+    /// Water content at the end of the test (fraction), for the cross-check of e.
+    pub final_water_content: Option<Spanned<f64>>,
+    /// In-situ vertical effective stress σ′v0, kPa, for OCR.
+    pub sigma_v0_kpa: Option<Spanned<f64>>,
+    /// Stress under which `height_mm` was measured, kPa (default 0).
+    pub seating_stress_kpa: Option<Spanned<f64>>,
+}
+
+/// `[[increment]]`: one load increment (or decrement).
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct IncrementEntry {
+    /// Effective vertical stress of the increment, kPa.
+    pub stress_kpa: Spanned<f64>,
+    /// Cumulative compression from the initial height at the end of the increment, apparatus-corrected, mm.
+    pub settlement_mm: Spanned<f64>,
+    /// A time-curve CSV for the increment, relative to the test file.
+    pub readings: Option<Spanned<String>>,
+}
+
+/// One increment of `analyze test`.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct IncrementRow {
+    /// σ′, kPa.
+    pub stress_kpa: f64,
+    /// e on the curve's basis: end of primary where a time curve gives it, else end of increment.
+    pub e: f64,
+    /// mv = av/(1 + e before), 1/kPa = m²/kN [R S9 Ex 7.1].
+    pub mv_per_kpa: Option<f64>,
+    /// cv by √t, mm²/min (time curve only).
+    pub cv_taylor_mm2_per_min: Option<f64>,
+    /// cv by log t, mm²/min (time curve only).
+    pub cv_casagrande_mm2_per_min: Option<f64>,
+    /// `loading`, `unloading` or `reloading`.
+    pub branch: &'static str,
+    /// Settlement at the end of the increment, as given, mm.
+    pub settlement_mm: f64,
+    /// Settlement at the end of primary, from the time curve, mm.
+    pub settlement_eop_mm: Option<f64>,
+    /// Which construction gave the end of primary.
+    pub eop_from: Option<&'static str>,
+    /// e at the end of the increment.
+    pub e_end: f64,
+    /// e at the end of primary.
+    pub e_eop: Option<f64>,
+    /// av = −Δe/Δσ′, 1/kPa.
+    pub av_per_kpa: Option<f64>,
+    /// LIR = Δσ′/σ′ before.
+    pub load_increment_ratio: Option<f64>,
+    /// k = cv·mv·γw, m/s, with the log-t cv where found, else the √t cv.
+    pub k_m_per_s: Option<f64>,
+    /// t50 by log t, min.
+    pub t50_min: Option<f64>,
+    /// t90 by √t, min.
+    pub t90_min: Option<f64>,
+    /// Drainage path of the √t cv: half the specimen height at its d50, mm.
+    pub drainage_path_taylor_mm: Option<f64>,
+    /// Drainage path of the log-t cv: half the specimen height at its d50, mm.
+    pub drainage_path_casagrande_mm: Option<f64>,
+    /// Cα(ε), strain per log cycle, over the height at the start of secondary compression.
+    pub c_alpha: Option<f64>,
+    /// Cα on the void-ratio basis, Δe per log cycle.
+    pub c_alpha_void_ratio: Option<f64>,
+    /// The time-curve file, as written in the test file.
+    pub readings: Option<String>,
+    /// Remarks on this increment and its time curve.
+    pub flags: Vec<String>,
+    /// Their codes.
+    pub flag_codes: Vec<&'static str>,
+}
+
+/// `analyze test`: the e–log σ′ reduction of a whole test. The first keys are the command's contract.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TestReport {
+    /// Height of solids Hs = Ms/(Gs·ρw·A), mm [R S28].
+    pub hs_mm: f64,
+    /// e0 = (H0 − Hs)/Hs.
+    pub e0: f64,
+    /// Each increment, in the order applied.
+    pub increments: Vec<IncrementRow>,
+    /// Cc on the virgin branch (the three highest loading stresses).
+    pub cc: Option<f64>,
+    /// Cr on the first unload–reload cycle; null without unloading.
+    pub cr: Option<f64>,
+    /// σ′p by Casagrande's construction, kPa.
+    pub sigma_p_kpa: Option<f64>,
+    /// σ′p by the strain-energy (work) method, kPa [R S19].
+    pub sigma_p_work_kpa: Option<f64>,
+    /// Test-level remarks (each increment's are in its own `flags`).
+    pub flags: Vec<String>,
+    /// Their codes.
+    pub flag_codes: Vec<&'static str>,
+    /// `end_of_primary` (where time curves give it) or `end_of_increment` (no time curves at all).
+    pub curve_basis: &'static str,
+    /// Stresses of the points Cc was fitted to, kPa.
+    pub cc_stresses_kpa: Vec<f64>,
+    /// Stresses of the points Cr was fitted to, kPa.
+    pub cr_stresses_kpa: Vec<f64>,
+    /// CR = Cc/(1 + e0).
+    pub compression_ratio: Option<f64>,
+    /// OCR = σ′p (Casagrande)/σ′v0.
+    pub ocr: Option<f64>,
+    /// OCR from the work σ′p.
+    pub ocr_work: Option<f64>,
+    /// Stress at the point of maximum curvature of Casagrande's construction, kPa.
+    pub max_curvature_stress_kpa: Option<f64>,
+    /// Plotting ratio of Casagrande's construction: Δe per log cycle drawn equal.
+    pub e_per_log_cycle: Option<f64>,
+    /// Ring area, mm².
+    pub area_mm2: f64,
+    /// H0, mm.
+    pub initial_height_mm: f64,
+    /// Seating stress, kPa.
+    pub seating_stress_kpa: f64,
+    /// Initial water content (fraction), when given.
+    pub initial_water_content: Option<f64>,
+    /// S0 = w0·Gs/e0.
+    pub initial_saturation: Option<f64>,
+    /// e0 back-calculated from the final water content and final height, when given.
+    pub e0_from_final_water: Option<f64>,
+    /// The file reduced.
+    pub file: String,
+}
+
+fn line_column(source: &str, offset: usize) -> (usize, usize) {
+    let before = &source[..floor_char_boundary(source, offset)];
+    let line = before.matches('\n').count() + 1;
+    let column = before.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
+    (line, column)
+}
+
+fn floor_char_boundary(source: &str, offset: usize) -> usize {
+    let mut i = offset.min(source.len());
+    while !source.is_char_boundary(i) {
+        i -= 1;
+    }
+    i
+}
+
+/// The dotted field at a byte offset: the table header above it (`[[increment]]` numbered from 0) and the
+/// key on its line.
+fn field_at(source: &str, offset: usize) -> String {
+    let offset = floor_char_boundary(source, offset);
+    let line_start = source[..offset].rfind('\n').map_or(0, |i| i + 1);
+    let line_end = source[offset..].find('\n').map_or(source.len(), |i| offset + i);
+    let mut table = String::new();
+    let mut increments = 0usize;
+    // Headers up to and including the offset's own line.
+    for line in source[..line_end].lines() {
+        let t = line.trim();
+        if t.starts_with("[[") {
+            let name = t.trim_start_matches('[').split(']').next().unwrap_or("").trim();
+            if name == "increment" {
+                table = format!("increment[{increments}]");
+                increments += 1;
+            } else {
+                table = name.to_string();
+            }
+        } else if t.starts_with('[') {
+            table = t.trim_start_matches('[').split(']').next().unwrap_or("").trim().to_string();
+        }
+    }
+    let line = source[line_start..line_end].trim();
+    let key = if line.starts_with('[') || !line.contains('=') {
+        ""
+    } else {
+        line.split('=').next().unwrap_or("").trim().trim_matches('"')
+    };
+    match (table.is_empty(), key.is_empty()) {
+        (true, true) => "file".into(),
+        (true, false) => key.to_string(),
+        (false, true) => table,
+        (false, false) => format!("{table}.{key}"),
+    }
+}
+
+struct Checker<'a> {
+    source: &'a str,
+    path: &'a Path,
+}
+
+impl Checker<'_> {
+    fn at(&self, span: Range<usize>) -> Option<(usize, usize)> {
+        Some(line_column(self.source, span.start))
+    }
+
+    fn field(&self, span: Option<Range<usize>>, field: impl Into<String>, message: impl Into<String>) -> OfflineError {
+        OfflineError::Field {
+            path: self.path.to_path_buf(),
+            at: span.and_then(|s| self.at(s)),
+            field: field.into(),
+            message: message.into(),
+        }
+    }
+
+    /// A value finite and within `[low, high]`.
+    fn range(
+        &self,
+        value: &Spanned<f64>,
+        field: &str,
+        low: f64,
+        high: f64,
+        allowed: &str,
+    ) -> Result<f64, OfflineError> {
+        let v = *value.get_ref();
+        if v.is_finite() && v >= low && v <= high {
+            Ok(v)
+        } else {
+            Err(self.field(Some(value.span()), field, format!("{v} is not allowed (allowed {allowed})")))
+        }
+    }
+}
+
+/// `oedolog analyze test FILE.toml`: reads the test file and each increment's time curve and reduces the test.
+pub fn analyze_test(path: &Path) -> Result<TestReport, OfflineError> {
+    let source = read_text(path)?;
+    analyze_test_source(&source, path)
+}
+
+/// As [`analyze_test`], with the file's text already read; `readings` paths are relative to `path`'s folder.
+pub fn analyze_test_source(source: &str, path: &Path) -> Result<TestReport, OfflineError> {
+    let file: TestFile = toml::from_str(source).map_err(|error| OfflineError::Toml {
+        path: path.to_path_buf(),
+        at: error.span().map(|s| line_column(source, s.start)),
+        field: error.span().map_or_else(|| "file".into(), |s| field_at(source, s.start)),
+        message: error.message().trim().to_string(),
+    })?;
+    let check = Checker { source, path };
+    let s = &file.specimen;
+
+    // Phase relations; the analysis names the measurement it refuses, here given its place in the file.
+    let mut measurements = SpecimenMeasurements::new(
+        *s.diameter_mm.get_ref(),
+        *s.height_mm.get_ref(),
+        *s.dry_mass_g.get_ref(),
+        *s.specific_gravity.get_ref(),
+    );
+    measurements.initial_water_content = s.initial_water_content.as_ref().map(|w| *w.get_ref());
+    let phase = phase_relations(&measurements).map_err(|error| match error {
+        AnalysisError::InvalidParameter { name, value, allowed } => {
+            let span = match name {
+                "diameter_mm" => Some(s.diameter_mm.span()),
+                "height_mm" => Some(s.height_mm.span()),
+                "dry_mass_g" => Some(s.dry_mass_g.span()),
+                "specific_gravity" => Some(s.specific_gravity.span()),
+                "initial_water_content" => s.initial_water_content.as_ref().map(|w| w.span()),
+                _ => None,
+            };
+            check.field(span, format!("specimen.{name}"), format!("{value} is not allowed (allowed {allowed})"))
+        }
+        error => OfflineError::Analysis { path: path.to_path_buf(), error },
+    })?;
+    let (h0, hs) = (phase.height_mm, phase.solids_height_mm);
+    let seating_stress_kpa = match &s.seating_stress_kpa {
+        Some(v) => check.range(v, "specimen.seating_stress_kpa", 0.0, MAX_STRESS_KPA, "0 to 1e6 kPa")?,
+        None => 0.0,
+    };
+    let sigma_v0_kpa = match &s.sigma_v0_kpa {
+        Some(v) => Some(check.range(
+            v,
+            "specimen.sigma_v0_kpa",
+            f64::MIN_POSITIVE,
+            MAX_STRESS_KPA,
+            "above 0, up to 1e6 kPa",
+        )?),
+        None => None,
+    };
+    let final_water_content = match &s.final_water_content {
+        Some(v) => Some(check.range(v, "specimen.final_water_content", 0.0, 20.0, "0 to 20, a fraction")?),
+        None => None,
+    };
+    if file.increments.is_empty() {
+        return Err(check.field(None, "increment", "no [[increment]] tables: at least one is needed"));
+    }
+
+    let base = path.parent().unwrap_or(Path::new(""));
+    let max_settlement = h0 - hs;
+    let settlement_allowed =
+        format!("−H0 = {} mm up to below H0 − Hs = {} mm (e stays above 0)", fmt_g(-h0), fmt_g(max_settlement));
+    let mut points = Vec::with_capacity(file.increments.len());
+    let mut curves: Vec<Option<IncrementReduction>> = Vec::with_capacity(file.increments.len());
+    let mut previous_stress = seating_stress_kpa;
+    for (i, inc) in file.increments.iter().enumerate() {
+        let stress = check.range(
+            &inc.stress_kpa,
+            &format!("increment[{i}].stress_kpa"),
+            f64::MIN_POSITIVE,
+            MAX_STRESS_KPA,
+            "above 0, up to 1e6 kPa",
+        )?;
+        let settlement = *inc.settlement_mm.get_ref();
+        if !(settlement.is_finite() && settlement >= -h0 && settlement < max_settlement) {
+            return Err(check.field(
+                Some(inc.settlement_mm.span()),
+                format!("increment[{i}].settlement_mm"),
+                format!("{settlement} is not allowed (allowed {settlement_allowed})"),
+            ));
+        }
+        let mut point = CompressionPoint {
+            stress_kpa: stress,
+            settlement_mm: settlement,
+            settlement_eop_mm: None,
+            cv_mm2_per_min: None,
+        };
+        let mut curve = None;
+        if let Some(readings) = &inc.readings {
+            let field = format!("increment[{i}].readings");
+            let at = check.at(readings.span());
+            let wrap = |problem: OfflineError| OfflineError::Readings {
+                path: path.to_path_buf(),
+                at,
+                field: field.clone(),
+                problem: Box::new(problem),
+            };
+            if readings.get_ref().trim().is_empty() {
+                return Err(check.field(
+                    Some(readings.span()),
+                    field,
+                    "empty path (give the CSV file, relative to this file)",
+                ));
+            }
+            let csv_path = base.join(readings.get_ref());
+            let data = read_readings(&csv_path).map_err(wrap)?;
+            let (_, last_mm) = data[data.len() - 1];
+            // Tie the gauge to the specimen: at the last reading (the end of the increment) the height is
+            // H0 − settlement. Drainage is double, Hdr = half the height at each method's d50 (D2435) [M/CP].
+            let mut params = IncrementParams::with_specimen(h0 - settlement, last_mm, Drainage::Double);
+            params.solids_height_mm = Some(hs);
+            params.load_increment_ratio = (previous_stress > 0.0).then(|| (stress - previous_stress) / previous_stress);
+            let reduction = reduce_increment(&data, &params)
+                .map_err(|error| wrap(OfflineError::Analysis { path: csv_path.clone(), error }))?;
+            point.settlement_eop_mm = reduction.end_of_primary.map(|e| settlement - (last_mm - e.d100_mm));
+            // k uses the log-t cv where found, else the √t cv.
+            point.cv_mm2_per_min = reduction.cv_casagrande.or(reduction.cv_taylor).map(|e| e.cv_mm2_per_min);
+            if let Some(eop) = point.settlement_eop_mm
+                && !(eop >= -h0 && eop < max_settlement)
+            {
+                return Err(wrap(OfflineError::Field {
+                    path: csv_path,
+                    at: None,
+                    field: "end of primary".into(),
+                    message: format!("settlement at d100 {eop} mm is outside {settlement_allowed}"),
+                }));
+            }
+            curve = Some(reduction);
+        }
+        points.push(point);
+        curves.push(curve);
+        previous_stress = stress;
+    }
+
+    let any_curve = curves.iter().any(Option::is_some);
+    let basis = if any_curve { CurveBasis::EndOfPrimary } else { CurveBasis::EndOfIncrement };
+    let params = CompressionParams { basis, sigma_v0_kpa, ..CompressionParams::default() };
+    let input = CompressionInput { initial_height_mm: h0, solids_height_mm: hs, seating_stress_kpa, points: &points };
+    let reduced = reduce_compression(&input, &params)
+        .map_err(|error| OfflineError::Analysis { path: path.to_path_buf(), error })?;
+
+    let mut remarks: Vec<Remark> = phase.flags.iter().map(Remark::from).collect();
+    let mut e0_from_final_water = None;
+    if let Some(wf) = final_water_content {
+        let final_height_mm = h0 - points[points.len() - 1].settlement_mm;
+        let fw = final_water_check(&phase, final_height_mm, wf).map_err(|error| {
+            let span = s.final_water_content.as_ref().map(|w| w.span());
+            check.field(span, "specimen.final_water_content", error.to_string())
+        })?;
+        e0_from_final_water = Some(fw.e0_from_final_water);
+        remarks.extend(fw.flags.iter().map(Remark::from));
+    }
+    remarks.extend(reduced.flags.iter().map(Remark::from));
+    if !any_curve {
+        remarks.push(Remark {
+            code: "end_of_increment_curve",
+            message: "no time curves: e is at the end of each increment (a Method A curve), not at end of primary"
+                .into(),
+        });
+    }
+
+    let increments = reduced
+        .points
+        .iter()
+        .zip(&points)
+        .zip(&curves)
+        .zip(&file.increments)
+        .map(|(((state, point), curve), entry)| increment_row(state, point, curve.as_ref(), entry))
+        .collect();
+    let stresses = |indices: &[usize]| indices.iter().map(|&i| reduced.points[i].stress_kpa).collect::<Vec<f64>>();
+    let casagrande = reduced.sigma_p_casagrande.as_ref();
+    let (flags, flag_codes) = split_remarks(&remarks);
+    Ok(TestReport {
+        hs_mm: hs,
+        e0: reduced.e0,
+        increments,
+        cc: reduced.cc.as_ref().map(|l| l.index),
+        cr: reduced.cr.as_ref().map(|l| l.index),
+        sigma_p_kpa: casagrande.map(|c| c.sigma_p_kpa),
+        sigma_p_work_kpa: reduced.sigma_p_work.as_ref().map(|w| w.sigma_p_kpa),
+        flags,
+        flag_codes,
+        curve_basis: if any_curve { "end_of_primary" } else { "end_of_increment" },
+        cc_stresses_kpa: reduced.cc.as_ref().map(|l| stresses(&l.points)).unwrap_or_default(),
+        cr_stresses_kpa: reduced.cr.as_ref().map(|l| stresses(&l.points)).unwrap_or_default(),
+        compression_ratio: reduced.compression_ratio,
+        ocr: reduced.ocr_casagrande,
+        ocr_work: reduced.ocr_work,
+        max_curvature_stress_kpa: casagrande.map(|c| c.max_curvature_stress_kpa),
+        e_per_log_cycle: casagrande.map(|c| c.e_per_log_cycle),
+        area_mm2: phase.area_mm2,
+        initial_height_mm: h0,
+        seating_stress_kpa,
+        initial_water_content: phase.initial_water_content,
+        initial_saturation: phase.initial_saturation,
+        e0_from_final_water,
+        file: path.display().to_string(),
+    })
+}
+
+fn increment_row(
+    state: &StatePoint,
+    point: &CompressionPoint,
+    curve: Option<&IncrementReduction>,
+    entry: &IncrementEntry,
+) -> IncrementRow {
+    let mut remarks: Vec<Remark> = state.flags.iter().map(Remark::from).collect();
+    if let Some(c) = curve {
+        for remark in c.flags.iter().map(Remark::from) {
+            if !remarks.contains(&remark) {
+                remarks.push(remark);
+            }
+        }
+    }
+    let (flags, flag_codes) = split_remarks(&remarks);
+    IncrementRow {
+        stress_kpa: state.stress_kpa,
+        e: state.e,
+        mv_per_kpa: state.mv_per_kpa,
+        cv_taylor_mm2_per_min: curve.and_then(|c| c.cv_taylor).map(|e| e.cv_mm2_per_min),
+        cv_casagrande_mm2_per_min: curve.and_then(|c| c.cv_casagrande).map(|e| e.cv_mm2_per_min),
+        branch: match state.branch {
+            Branch::Loading => "loading",
+            Branch::Unloading => "unloading",
+            Branch::Reloading => "reloading",
+        },
+        settlement_mm: point.settlement_mm,
+        settlement_eop_mm: point.settlement_eop_mm,
+        eop_from: curve.and_then(|c| c.end_of_primary).map(|e| method_name(e.method)),
+        e_end: state.e_end,
+        e_eop: state.e_eop,
+        av_per_kpa: state.av_per_kpa,
+        load_increment_ratio: state.load_increment_ratio,
+        k_m_per_s: state.k_m_per_s,
+        t50_min: curve.and_then(|c| c.casagrande.t50_min),
+        t90_min: curve.and_then(|c| c.taylor.t90_min),
+        drainage_path_taylor_mm: curve.and_then(|c| c.cv_taylor).map(|e| e.drainage_path_mm),
+        drainage_path_casagrande_mm: curve.and_then(|c| c.cv_casagrande).map(|e| e.drainage_path_mm),
+        c_alpha: curve.and_then(|c| c.secondary).map(|s| s.c_alpha_strain),
+        c_alpha_void_ratio: curve.and_then(|c| c.secondary).and_then(|s| s.c_alpha_void_ratio),
+        readings: entry.readings.as_ref().map(|r| r.get_ref().clone()),
+        flags,
+        flag_codes,
+    }
+}
+
+impl TestReport {
+    /// One JSON object on one line.
+    pub fn to_json(&self) -> String {
+        to_json(self)
+    }
+
+    /// A readable table with units.
+    pub fn to_table(&self) -> String {
+        let mut out = String::new();
+        let _ = writeln!(out, "Test: {}", self.file);
+        let _ = writeln!(
+            out,
+            "specimen: A = {} mm², H0 = {} mm, Hs = {} mm, e0 = {}, seating {} kPa",
+            fixed(Some(self.area_mm2), 1),
+            fixed(Some(self.initial_height_mm), 3),
+            fixed(Some(self.hs_mm), 4),
+            fixed(Some(self.e0), 4),
+            fmt_g(self.seating_stress_kpa)
+        );
+        let _ = writeln!(
+            out,
+            "e is at {}",
+            if self.curve_basis == "end_of_primary" {
+                "end of primary where a time curve gives it, else at the end of the increment"
+            } else {
+                "the end of each increment (no time curves)"
+            }
+        );
+        let _ = writeln!(out);
+        let _ = writeln!(
+            out,
+            "{:>3}  {:>9}  {:<10}{:>12}{:>10}{:>9}{:>12}{:>13}{:>13}{:>11}",
+            "#", "σ′ kPa", "branch", "settl. mm", "EOP mm", "e", "mv m²/kN", "cv √t", "cv log t", "Cα"
+        );
+        let _ = writeln!(
+            out,
+            "{:>3}  {:>9}  {:<10}{:>12}{:>10}{:>9}{:>12}{:>13}{:>13}{:>11}",
+            "", "", "", "", "", "", "", "mm²/min", "mm²/min", ""
+        );
+        for (i, r) in self.increments.iter().enumerate() {
+            let _ = writeln!(
+                out,
+                "{:>3}  {:>9}  {:<10}{:>12}{:>10}{:>9}{:>12}{:>13}{:>13}{:>11}",
+                i,
+                significant(Some(r.stress_kpa), 4),
+                r.branch,
+                fixed(Some(r.settlement_mm), 4),
+                fixed(r.settlement_eop_mm, 4),
+                fixed(Some(r.e), 4),
+                significant(r.mv_per_kpa, 3),
+                significant(r.cv_taylor_mm2_per_min, 4),
+                significant(r.cv_casagrande_mm2_per_min, 4),
+                significant(r.c_alpha, 3),
+            );
+        }
+        let _ = writeln!(out);
+        let through = |what: &str, s: &[f64]| {
+            if s.is_empty() {
+                String::new()
+            } else {
+                format!(" ({what} through {} kPa)", s.iter().map(|&v| fmt_g(v)).collect::<Vec<_>>().join(", "))
+            }
+        };
+        let _ = writeln!(
+            out,
+            "Cc = {}{}, CR = Cc/(1 + e0) = {}",
+            fixed(self.cc, 4),
+            through("virgin line", &self.cc_stresses_kpa),
+            fixed(self.compression_ratio, 4)
+        );
+        let _ = writeln!(out, "Cr = {}{}", fixed(self.cr, 4), through("unload–reload", &self.cr_stresses_kpa));
+        let _ = writeln!(
+            out,
+            "σ′p = {} kPa (Casagrande; maximum curvature at {} kPa, {} e per log cycle drawn), {} kPa (strain energy)",
+            significant(self.sigma_p_kpa, 4),
+            significant(self.max_curvature_stress_kpa, 4),
+            significant(self.e_per_log_cycle, 3),
+            significant(self.sigma_p_work_kpa, 4)
+        );
+        if self.ocr.is_some() || self.ocr_work.is_some() {
+            let _ =
+                writeln!(out, "OCR = {} (Casagrande), {} (strain energy)", fixed(self.ocr, 2), fixed(self.ocr_work, 2));
+        }
+        let mut lines: Vec<String> = self.flags.iter().map(|f| format!("test: {f}")).collect();
+        for (i, r) in self.increments.iter().enumerate() {
+            lines.extend(r.flags.iter().map(|f| format!("increment[{i}] ({} kPa): {f}", fmt_g(r.stress_kpa))));
+        }
+        write_flags(&mut out, &lines);
+        out
+    }
+}
+
+// ---------------------------------------------------------------------------------------------------------
+// Output helpers
+
+fn to_json<T: Serialize>(value: &T) -> String {
+    // Plain structs of numbers and strings always serialise; non-finite numbers become null.
+    serde_json::to_string(value).unwrap_or_else(|error| format!("{{\"error\":\"{error}\"}}"))
+}
+
+fn dash() -> String {
+    "—".into()
+}
+
+fn fixed(value: Option<f64>, decimals: usize) -> String {
+    value.map_or_else(dash, |v| format!("{v:.decimals$}"))
+}
+
+/// `digits` significant figures, in scientific notation outside 1e-3 … 1e6.
+fn significant(value: Option<f64>, digits: usize) -> String {
+    let Some(v) = value else { return dash() };
+    if v == 0.0 {
+        return "0".into();
+    }
+    let magnitude = v.abs().log10().floor();
+    if !(-3.0..6.0).contains(&magnitude) {
+        return format!("{v:.prec$e}", prec = digits.saturating_sub(1));
+    }
+    let decimals = (digits as f64 - 1.0 - magnitude).max(0.0) as usize;
+    format!("{v:.decimals$}")
+}
+
+/// A number as short as it reads exactly (stresses, limits).
+fn fmt_g(value: f64) -> String {
+    format!("{value}")
+}
+
+fn window(w: Option<[f64; 2]>) -> String {
+    w.map_or_else(dash, |[a, b]| format!("{}–{}", significant(Some(a), 3), significant(Some(b), 3)))
+}
+
+fn write_flags(out: &mut String, flags: &[String]) {
+    if flags.is_empty() {
+        let _ = writeln!(out, "\nflags: none");
+        return;
+    }
+    let _ = writeln!(out, "\nflags:");
+    for f in flags {
+        let _ = writeln!(out, "  - {f}");
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::analysis::terzaghi::degree_of_consolidation;
+    use proptest::prelude::*;
+
+    /// A time curve from the exact Terzaghi series (`terzaghi`, REFERENCES §2) plus a straight secondary
+    /// branch from T = 1.10 (REFERENCES §6a) [C]: cv 1.5 mm²/min, Hdr 9.5 mm, 0.03 mm immediate, 1.2 mm
+    /// primary, 0.04 mm per log cycle of secondary.
+    fn curve_mm(t_min: f64) -> f64 {
+        let (cv, hdr) = (1.5, 9.5);
+        if t_min <= 0.0 {
+            return 0.0;
+        }
+        let onset = 1.10 * hdr * hdr / cv;
+        let secondary = if t_min > onset { 0.04 * (t_min / onset).log10() } else { 0.0 };
+        0.03 + 1.2 * degree_of_consolidation(cv * t_min / (hdr * hdr)) + secondary
+    }
+
+    fn csv(times: &[f64], d: impl Fn(f64) -> f64) -> String {
+        let mut text = format!("{CSV_HEADER}\n");
+        for &t in times {
+            let _ = writeln!(text, "{t},{}", d(t));
+        }
+        text
+    }
+
+    fn dense_times() -> Vec<f64> {
+        let n = 2000;
+        std::iter::once(0.0)
+            .chain((0..n).map(|k| 0.01 * (k as f64 * (1440.0f64 / 0.01).ln() / (n - 1) as f64).exp()))
+            .collect()
+    }
+
+    fn write(dir: &Path, name: &str, text: &str) -> PathBuf {
+        let path = dir.join(name);
+        std::fs::write(&path, text).unwrap();
+        path
+    }
+
+    #[test]
+    fn csv_with_bom_crlf_spaces_and_blank_lines_parses() {
+        let text = "\u{feff}time_min, displacement_mm\r\n0,0\r\n\r\n 0.25 , 0.012\r\n1e0,-0.5\r\n0x,1";
+        let err = parse_readings(text).unwrap_err();
+        assert_eq!(err.to_string(), "line 6: time_min `0x` is not a number");
+        let readings = parse_readings(&text[..text.len() - 5]).unwrap();
+        assert_eq!(readings, vec![(0.0, 0.0), (0.25, 0.012), (1.0, -0.5)]);
+    }
+
+    #[test]
+    fn csv_problems_name_their_line_and_column() {
+        let h = CSV_HEADER;
+        let cases: [(String, &str); 12] = [
+            (String::new(), "the file is empty"),
+            (
+                "time,displacement_mm\n0,0\n".into(),
+                "line 1: the header must be exactly `time_min,displacement_mm`, found `time,displacement_mm`",
+            ),
+            ("displacement_mm,time_min\n0,0\n".into(), "line 1: the header must be exactly"),
+            (format!("{h}\n"), "no readings after the header"),
+            (format!("{h}\n0,0\n1,0.1,3\n"), "line 3: expected 2 fields (time_min,displacement_mm), found 3"),
+            (format!("{h}\n0,0\n1\n"), "line 3: expected 2 fields"),
+            (format!("{h}\n0,0\n,0.1\n"), "line 3: time_min is empty"),
+            (format!("{h}\n0,0\n1,abc\n"), "line 3: displacement_mm `abc` is not a number"),
+            (format!("{h}\n0,0\nNaN,0.1\n"), "line 3: time_min `NaN` is not a finite number"),
+            (format!("{h}\n0,0\n1,inf\n"), "line 3: displacement_mm `inf` is not a finite number"),
+            (format!("{h}\n-1,0\n"), "line 2: time_min -1 is negative"),
+            (format!("{h}\n0,0\n4,0.2\n\n2,0.3\n"), "line 5: time_min 2 is earlier than 4 on line 3"),
+        ];
+        for (text, want) in cases {
+            let err = parse_readings(&text).unwrap_err().to_string();
+            assert!(err.contains(want), "{text:?}: got `{err}`, want `{want}`");
+        }
+        let err = parse_readings(&format!("{h}\n2e9,0\n")).unwrap_err();
+        assert!(matches!(err.problem, CsvProblem::OutOfRange { column: "time_min", .. }) && err.line == Some(2));
+    }
+
+    #[test]
+    fn increment_reports_log_time_end_of_primary_and_cv_near_the_series() {
+        // Dense noise-free curve [C]: log-t cv within 1 % (REFERENCES §4: PCHIP in log t −0.9 % on t50), √t cv
+        // +0.5 … +2 % (the 1.15 factor biases it +1.5 %, REFERENCES §3).
+        let dir = tempfile::tempdir().unwrap();
+        let path = write(dir.path(), "dense.csv", &csv(&dense_times(), curve_mm));
+        let r = analyze_increment(&path, 9.5).unwrap();
+        assert_eq!(r.primary_from, Some("casagrande"));
+        assert_eq!((r.d0_mm, r.d100_mm, r.t50_min), (r.casagrande.d0_mm, r.casagrande.d100_mm, r.casagrande.t50_min));
+        let (d0, d100) = (r.d0_mm.unwrap(), r.d100_mm.unwrap());
+        assert!((r.d50_mm.unwrap() - 0.5 * (d0 + d100)).abs() < 1e-12);
+        assert_eq!(r.t90_min, r.taylor.t90_min);
+        let taylor = r.cv_taylor_mm2_per_min.unwrap() / 1.5 - 1.0;
+        let casagrande = r.cv_casagrande_mm2_per_min.unwrap() / 1.5 - 1.0;
+        assert!((0.005..0.02).contains(&taylor), "√t cv error {taylor}");
+        assert!(casagrande.abs() < 0.01, "log-t cv error {casagrande}");
+        // Cα is the secondary slope over 2·Hdr, exactly as documented.
+        assert_eq!(r.c_alpha_height_mm, 19.0);
+        assert!((r.c_alpha.unwrap() - r.secondary_slope_mm_per_log_cycle.unwrap() / 19.0).abs() < 1e-15);
+        assert!(!r.flag_codes.contains(&"height_unknown"), "{:?}", r.flags);
+        let json: serde_json::Value = serde_json::from_str(&r.to_json()).unwrap();
+        for key in [
+            "d0_mm",
+            "d50_mm",
+            "d100_mm",
+            "t50_min",
+            "t90_min",
+            "cv_taylor_mm2_per_min",
+            "cv_casagrande_mm2_per_min",
+            "c_alpha",
+        ] {
+            assert!(json[key].is_f64(), "{key}: {}", json[key]);
+        }
+        assert!(json["flags"].is_array());
+        let table = r.to_table();
+        assert!(
+            table.contains("mm²/min") && table.contains("log t (Casagrande)") && table.contains("2 × Hdr"),
+            "{table}"
+        );
+    }
+
+    #[test]
+    fn every_undetermined_value_is_null_with_a_flag() {
+        let dir = tempfile::tempdir().unwrap();
+        // The first 10 minutes only: no t90, no secondary branch.
+        let times: Vec<f64> = dense_times().into_iter().filter(|&t| t <= 10.0).collect();
+        let short = analyze_increment(&write(dir.path(), "short.csv", &csv(&times, curve_mm)), 9.5).unwrap();
+        assert!(short.t90_min.is_none() && short.c_alpha.is_none() && short.cv_casagrande_mm2_per_min.is_none());
+        assert!(short.flag_codes.contains(&"t90_not_reached"), "{:?}", short.flags);
+        assert!(short.flag_codes.contains(&"no_secondary_branch"), "{:?}", short.flags);
+        // Three readings: nothing at all.
+        let few = analyze_increment(&write(dir.path(), "few.csv", &csv(&[0.0, 1.0, 2.0, 4.0], curve_mm)), 9.5).unwrap();
+        assert!(!few.undetermined().is_empty() && !few.flags.is_empty(), "{few:?}");
+        assert_eq!(few.primary_from, None);
+        // A swelling curve.
+        let swell =
+            analyze_increment(&write(dir.path(), "swell.csv", &csv(&dense_times(), |t| -curve_mm(t))), 9.5).unwrap();
+        assert!(swell.flag_codes.contains(&"net_swelling") && swell.d100_mm.is_none());
+    }
+
+    #[test]
+    fn drainage_path_outside_the_allowed_range_is_refused() {
+        for bad in [0.0, -1.0, f64::NAN, f64::INFINITY, 2000.0] {
+            let err = analyze_increment(Path::new("unused.csv"), bad).unwrap_err();
+            assert!(err.to_string().starts_with("--drainage-path-mm"), "{err}");
+        }
+        let err = analyze_increment(Path::new("/nonexistent/x.csv"), 9.5).unwrap_err();
+        assert!(err.to_string().contains("/nonexistent/x.csv: cannot read the file"), "{err}");
+    }
+
+    const SPECIMEN: &str =
+        "[specimen]\ndiameter_mm = 75\nheight_mm = 19.0\ndry_mass_g = 110\nspecific_gravity = 2.68\n";
+
+    fn test_text(increments: &[(f64, f64, Option<&str>)]) -> String {
+        let mut text = SPECIMEN.to_string();
+        for (stress, settlement, readings) in increments {
+            let _ = write!(text, "\n[[increment]]\nstress_kpa = {stress}\nsettlement_mm = {settlement}\n");
+            if let Some(r) = readings {
+                let _ = writeln!(text, "readings = \"{r}\"");
+            }
+        }
+        text
+    }
+
+    #[test]
+    fn test_file_problems_name_the_line_column_and_field() {
+        let dir = tempfile::tempdir().unwrap();
+        write(dir.path(), "bad.csv", "time_min,displacement_mm\n0,0\n1,abc\n");
+        let good = test_text(&[(25.0, 0.1, None), (50.0, 0.3, None)]);
+        let cases: Vec<(String, &str)> = vec![
+            (good.replace("height_mm = 19.0", "height_mm = 19.0.0"), "line 3, column"),
+            (good.replace("dry_mass_g", "dry_mas_g"), "specimen.dry_mas_g: unknown field `dry_mas_g`"),
+            (good.replace("specific_gravity = 2.68\n", ""), "missing field `specific_gravity`"),
+            (good.replace("stress_kpa = 50", "stress_kpa = \"fifty\""), "line 12, column 14: increment[1].stress_kpa"),
+            (
+                good.replace("stress_kpa = 50", "stress_kpa = -50"),
+                "line 12, column 14: increment[1].stress_kpa: -50 is not allowed",
+            ),
+            (
+                good.replace("2.68", "7.5"),
+                "line 5, column 20: specimen.specific_gravity: 7.5 is not allowed (allowed 1.0 to 6.0)",
+            ),
+            (good.replace("dry_mass_g = 110", "dry_mass_g = 400"), "specimen.dry_mass_g: 400 is not allowed"),
+            (
+                good.replace("settlement_mm = 0.3", "settlement_mm = 12"),
+                "line 13, column 17: increment[1].settlement_mm: 12 is not allowed",
+            ),
+            (SPECIMEN.into(), "increment: no [[increment]] tables"),
+            (format!("{good}sigma_v0_kpa = 0\n"), "increment[1].sigma_v0_kpa: unknown field"),
+            (test_text(&[(25.0, 0.1, Some("missing.csv"))]), "increment[0].readings: "),
+            (test_text(&[(25.0, 0.1, Some("bad.csv"))]), "line 10, column 12: increment[0].readings: "),
+        ];
+        for (text, want) in &cases {
+            let err = analyze_test_source(text, &dir.path().join("t.toml")).unwrap_err().to_string();
+            assert!(err.contains(want), "got `{err}`, want `{want}` in\n{text}");
+        }
+        let err = analyze_test_source(&cases[10].0, &dir.path().join("t.toml")).unwrap_err().to_string();
+        assert!(err.contains("missing.csv: cannot read the file"), "{err}");
+        let err = analyze_test_source(&cases[11].0, &dir.path().join("t.toml")).unwrap_err().to_string();
+        assert!(err.contains("bad.csv: line 3: displacement_mm `abc` is not a number"), "{err}");
+    }
+
+    #[test]
+    fn field_paths_count_increment_tables_from_zero() {
+        let text = "[specimen]\nheight_mm = 1\n\n[[increment]]\nstress_kpa = 1\n[[increment]]\n  stress_kpa = 2\n";
+        assert_eq!(field_at(text, text.find("1\n").unwrap()), "specimen.height_mm");
+        assert_eq!(field_at(text, text.rfind("stress_kpa").unwrap()), "increment[1].stress_kpa");
+        assert_eq!(field_at(text, text.find("[[increment]]").unwrap()), "increment[0]");
+        assert_eq!(field_at(text, 0), "specimen");
+        assert_eq!(line_column(text, text.rfind("stress_kpa").unwrap()), (7, 3));
+    }
+
+    #[test]
+    fn a_time_curve_puts_the_increment_at_end_of_primary_with_double_drainage() {
+        // 0.5 mm at 25 kPa before; the curve adds its own compression on top, so the end of increment is
+        // 0.5 mm + the last reading. The gauge is tied to the height there (H0 − settlement).
+        let dir = tempfile::tempdir().unwrap();
+        write(dir.path(), "c.csv", &csv(&dense_times(), curve_mm));
+        let last = curve_mm(1440.0);
+        let settlement = 0.5 + last;
+        let text = test_text(&[(25.0, 0.5, None), (50.0, settlement, Some("c.csv")), (100.0, settlement + 1.0, None)]);
+        let r = analyze_test_source(&text, &dir.path().join("t.toml")).unwrap();
+        assert_eq!(r.curve_basis, "end_of_primary");
+        let inc = &r.increments[1];
+        let curve = analyze_increment(&dir.path().join("c.csv"), 9.5).unwrap();
+        let d100 = curve.casagrande.d100_mm.unwrap();
+        assert_eq!(inc.eop_from, Some("casagrande"));
+        assert!((inc.settlement_eop_mm.unwrap() - (settlement - (last - d100))).abs() < 1e-12);
+        assert!((inc.e - (r.e0 - inc.settlement_eop_mm.unwrap() / r.hs_mm)).abs() < 1e-12);
+        assert!((inc.e_end - (r.e0 - settlement / r.hs_mm)).abs() < 1e-12);
+        // Hdr = half the height at log-t d50: H0 − settlement + (last − d50).
+        let h50 = 19.0 - settlement + (last - curve.casagrande.d50_mm.unwrap());
+        assert!((inc.drainage_path_casagrande_mm.unwrap() - h50 / 2.0).abs() < 1e-9);
+        let cv = 0.197 * (h50 / 2.0).powi(2) / inc.t50_min.unwrap();
+        assert!((inc.cv_casagrande_mm2_per_min.unwrap() - cv).abs() < 1e-9);
+        assert!(inc.cv_taylor_mm2_per_min.is_some() && inc.c_alpha.is_some() && inc.k_m_per_s.is_some());
+        // Increments without a curve use their end and say so.
+        assert!(r.increments[0].flag_codes.contains(&"end_of_primary_missing"));
+        assert!(r.increments[0].cv_taylor_mm2_per_min.is_none());
+        let table = r.to_table();
+        assert!(table.contains("increment[0] (25 kPa): no end of primary"), "{table}");
+    }
+
+    #[test]
+    fn integers_are_accepted_and_a_file_without_curves_is_an_end_of_increment_curve() {
+        let dir = tempfile::tempdir().unwrap();
+        let text = test_text(&[(25.0, 0.1, None), (50.0, 0.3, None)]).replace("0.3", "1");
+        let r = analyze_test_source(&text, &dir.path().join("t.toml")).unwrap();
+        assert_eq!(r.curve_basis, "end_of_increment");
+        assert!(r.flag_codes.contains(&"end_of_increment_curve"), "{:?}", r.flags);
+        assert!(r.increments.iter().all(|i| i.flags.is_empty()));
+        assert_eq!(r.increments[1].settlement_mm, 1.0);
+        let json: serde_json::Value = serde_json::from_str(&r.to_json()).unwrap();
+        for key in ["hs_mm", "e0", "increments", "cc", "cr", "sigma_p_kpa", "sigma_p_work_kpa", "flags"] {
+            assert!(json.get(key).is_some(), "{key}");
+        }
+        assert!(json["cr"].is_null() && json["sigma_p_kpa"].is_null());
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(2000))]
+
+        #[test]
+        fn any_csv_text_gives_readings_or_a_located_error(
+            lines in prop::collection::vec(
+                prop_oneof![
+                    Just("time_min,displacement_mm".to_string()),
+                    "[0-9]{1,3}(\\.[0-9]{1,2})?,-?[0-9]{1,2}(\\.[0-9]{1,3})?",
+                    "[ -~]{0,12}",
+                    Just("NaN,1".to_string()),
+                    Just(String::new()),
+                ],
+                0..12,
+            ),
+        ) {
+            let text = lines.join("\n");
+            match parse_readings(&text) {
+                Ok(readings) => prop_assert!(readings.windows(2).all(|w| w[0].0 <= w[1].0)),
+                Err(e) => prop_assert!(e.line.is_some_and(|l| l <= lines.len()) || e.line.is_none()),
+            }
+        }
+
+        #[test]
+        fn any_test_text_gives_a_report_or_an_error_never_a_panic(text in "[ -~\n]{0,200}") {
+            let source = format!("{SPECIMEN}{text}");
+            let _ = analyze_test_source(&source, Path::new("/nonexistent/t.toml"));
+        }
+    }
+}
