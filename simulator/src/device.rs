@@ -134,6 +134,14 @@ impl SimFrame {
         }
     }
 
+    /// The automatic schedule's next load: (when it is due on the simulated timeline, stress), so a demo's
+    /// stand-in technician can enter it before putting it on.
+    pub fn next_load(&self) -> Option<(f64, f64)> {
+        let schedule = self.schedule.as_ref()?;
+        let due_s = schedule.due_at_s(&self.model)?;
+        Some((due_s, *schedule.steps_kpa().get(schedule.next_step())?))
+    }
+
     /// The loads the schedule applied since the last call: (onset on the simulated timeline, stress).
     pub fn take_applied(&mut self) -> Vec<(f64, f64)> {
         std::mem::take(&mut self.applied)
