@@ -92,6 +92,35 @@ install_python_peers() {
   venv_versions_ok || die "venv $VENV_DIR does not hold pymodbus==$PYMODBUS_VERSION and pyserial==$PYSERIAL_VERSION after installing"
 }
 
+# ---- browser suite ----------------------------------------------------------
+# Debian's chromium driven by playwright-core (pinned in tests/browser/package.json), shared/ECOSYSTEM.md §7.
+readonly CHROMIUM_BIN="${OEDOLOG_CHROMIUM:-/usr/bin/chromium}"
+readonly BROWSER_DIR="$repo_root/tests/browser"
+
+install_browser() {
+  if [ ! -x "$CHROMIUM_BIN" ]; then
+    is_root || die "chromium missing at $CHROMIUM_BIN; install it (sudo apt-get install -y chromium) or run as root"
+    log "installing Debian package: chromium"
+    apt_install chromium || die "could not install chromium with apt-get; install it by hand"
+    [ -x "$CHROMIUM_BIN" ] || die "chromium still not at $CHROMIUM_BIN after installing it"
+  fi
+  if ! command -v node >/dev/null 2>&1 || ! command -v npm >/dev/null 2>&1; then
+    is_root || die "node/npm missing; install them (sudo apt-get install -y nodejs npm) or run as root"
+    log "installing Debian packages: nodejs npm"
+    apt_install nodejs npm || die "could not install nodejs and npm with apt-get; install them by hand"
+  fi
+  if [ ! -d "$BROWSER_DIR/node_modules/playwright-core" ]; then
+    log "installing tests/browser's npm packages (npm ci)"
+    (cd "$BROWSER_DIR" && capped 5 npm ci --no-audit --no-fund) \
+      || die "npm ci in tests/browser failed; the suite needs playwright-core from the npm registry"
+  fi
+}
+
+run_browser_suite() {
+  install_browser
+  OEDOLOG_CHROMIUM="$CHROMIUM_BIN" capped 5 node "$BROWSER_DIR/run.mjs" "$repo_root/target/debug/oedolog"
+}
+
 # ---- steps ------------------------------------------------------------------
 
 step_names=()
@@ -158,6 +187,7 @@ run_step "cargo fmt" capped 2 cargo fmt --all --check
 run_step "cargo clippy" capped 20 cargo clippy --workspace --all-targets -- -D warnings
 run_step "cargo build bins" capped 15 cargo build --workspace --bins
 run_step "workspace tests" run_workspace_tests
+run_step "browser suite" run_browser_suite
 run_step "doc tests" capped 8 cargo test --workspace --doc
 
 printf '\n%-20s %-20s %8s\n' "step" "result" "seconds"

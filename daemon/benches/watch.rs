@@ -34,10 +34,17 @@ fn main() {
     let elapsed = started.elapsed();
     let per = elapsed.as_secs_f64() / (samples.len() - 1) as f64;
     println!("polls: {}", samples.len() - 1);
-    println!("watch live update: {:.1} µs per poll amortised over the day ({:.2} s in all)", per * 1e6, elapsed.as_secs_f64());
+    println!(
+        "watch live update: {:.1} µs per poll amortised over the day ({:.2} s in all)",
+        per * 1e6,
+        elapsed.as_secs_f64()
+    );
     if let Some((polls, took)) = primary {
         // While primary runs every poll re-runs both constructions: the worst case.
-        println!("  while in primary ({polls} polls until ready): {:.1} µs per poll", took.as_secs_f64() / polls as f64 * 1e6);
+        println!(
+            "  while in primary ({polls} polls until ready): {:.1} µs per poll",
+            took.as_secs_f64() / polls as f64 * 1e6
+        );
     }
     println!("phase at the end: {:?}; status: {:?}", watch.phase(), watch.status().t90_min);
 }

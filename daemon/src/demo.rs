@@ -9,7 +9,6 @@ use std::path::PathBuf;
 use std::sync::Arc;
 use std::time::Duration;
 
-use oedolog_protocol::UnitId;
 use oedolog_protocol::registers::{RegisterMap, RegisterTable, ValueType, WordOrder};
 use oedolog_sim::device::Simulation;
 use oedolog_sim::server::{Shared, run_schedules, serve_tcp};
@@ -32,6 +31,8 @@ pub struct DemoOptions {
     pub listen: SocketAddr,
     /// Database file.
     pub db: PathBuf,
+    /// `[[http.user]]` of the `--config` file: who may read and act (none: loopback only).
+    pub users: Vec<crate::config::User>,
 }
 
 /// The default database of the demo: `$XDG_DATA_HOME/oedolog/demo.sqlite` (or `~/.local/share/…`), else
@@ -152,7 +153,12 @@ pub async fn start(
         .collect();
     let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await?;
     let sim_addr = listener.local_addr()?;
-    let config = demo_config(&sim, sim_addr, &options, crate::config::HttpConfig { listen: options.listen });
+    let config = demo_config(
+        &sim,
+        sim_addr,
+        &options,
+        crate::config::HttpConfig { listen: options.listen, users: options.users.clone() },
+    );
     let shared = Shared::new(sim, Arc::new(SimTime(scaled.clone())));
     tokio::spawn(serve_tcp(listener, shared.clone()));
 
@@ -166,22 +172,40 @@ pub async fn start(
         })
         .await??;
     }
-    let (tx, mut rx) = tokio::sync::mpsc::unbounded_channel::<(UnitId, f64, f64)>();
-    tokio::spawn(run_schedules(shared, Duration::from_millis(50), move |unit, onset_s, stress_kpa| {
-        let _ = tx.send((unit, onset_s, stress_kpa));
-    }));
-    // The stand-in technician puts the load on, then reports it (a little late, as people do): the
-    // daemon arms the increment and finds t0 from the load-cell step in the readings.
+    let shared_for_arming = shared.clone();
+    tokio::spawn(run_schedules(shared, Duration::from_millis(50), |_, _, _| {}));
+    // The stand-in technician enters each load shortly before putting it on, as the dashboard asks; the
+    // daemon then finds t0 itself from the load-cell step in the readings.
     let hub = running.hub.clone();
+    let sim = shared_for_arming;
+    let sim_clock = SimTime(scaled.clone());
     tokio::spawn(async move {
-        while let Some((unit, _onset_s, stress_kpa)) = rx.recv().await {
-            let index = usize::from(unit.0) - 1;
-            let hub = hub.clone();
-            match tokio::task::spawn_blocking(move || hub.arm(index, stress_kpa, Some("demo technician".into()))).await
-            {
-                Ok(Err(error)) => tracing::warn!("demo: increment not armed: {error}"),
-                Err(error) => tracing::error!("demo: {error}"),
-                Ok(Ok(())) => {}
+        use oedolog_sim::clock::Clock as _;
+        let mut armed: std::collections::HashSet<(u8, u64)> = std::collections::HashSet::new();
+        let mut tick = tokio::time::interval(Duration::from_millis(100));
+        loop {
+            tick.tick().await;
+            let now_s = sim_clock.now_s();
+            let due: Vec<(usize, u8, f64, f64)> = sim.with(|s| {
+                s.frames()
+                    .iter()
+                    .enumerate()
+                    .filter_map(|(i, f)| f.next_load().map(|(at, kpa)| (i, f.unit().0, at, kpa)))
+                    .collect()
+            });
+            for (index, unit, due_s, stress_kpa) in due {
+                // A simulated minute or two ahead of the load.
+                if due_s - now_s > 120.0 || !armed.insert((unit, due_s.to_bits())) {
+                    continue;
+                }
+                let hub = hub.clone();
+                match tokio::task::spawn_blocking(move || hub.arm(index, stress_kpa, Some("demo technician".into())))
+                    .await
+                {
+                    Ok(Err(error)) => tracing::warn!("demo: increment not armed: {error}"),
+                    Err(error) => tracing::error!("demo: {error}"),
+                    Ok(Ok(())) => {}
+                }
             }
         }
     });

@@ -147,11 +147,12 @@ async fn run(command: Command) -> anyhow::Result<()> {
             let listen =
                 listen.or(file.as_ref().map(|c| c.http.listen)).unwrap_or(oedolog::config::DEFAULT_LISTEN.parse()?);
             let db = db.unwrap_or_else(demo::default_db);
+            let users = file.as_ref().map(|c| c.http.users.clone()).unwrap_or_default();
             println!(
                 "demo: {frames} simulated frames, clock {speed}× real time (simulated), database {}",
                 db.display()
             );
-            let (running, _clock) = demo::start(demo::DemoOptions { frames, speed, listen, db })
+            let (running, _clock) = demo::start(demo::DemoOptions { frames, speed, listen, db, users })
                 .await
                 .map_err(|e| anyhow::anyhow!("{e}"))
                 .context("starting the demo")?;

@@ -24,6 +24,14 @@ pub enum StartError {
     /// The store could not be opened.
     #[error("{0}")]
     Store(#[from] StoreError),
+    /// Open to the network with nobody to keep out.
+    #[error(
+        "http.listen = {addr} is not a loopback address and no [[http.user]] is configured: listen on 127.0.0.1 (or ::1), or add [[http.user]] tables with name, role and token"
+    )]
+    Exposed {
+        /// The address.
+        addr: SocketAddr,
+    },
     /// The HTTP address could not be bound.
     #[error("cannot listen on {addr}: {source}")]
     Bind {
@@ -67,6 +75,10 @@ pub fn commit_line(report: &CommitReport) -> String {
 /// Starts everything the configuration describes.
 pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> Result<Running, StartError> {
     let store_config = config.store.as_ref().ok_or(StartError::NoStore)?;
+    // Checked again here, not only in the config: the demo's --listen bypasses the file.
+    if config.http.users.is_empty() && !config.http.listen.ip().is_loopback() {
+        return Err(StartError::Exposed { addr: config.http.listen });
+    }
     let conn = store::open(&store_config.path)?;
     let now = clock.now_us();
     let keys =
@@ -99,6 +111,8 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
     let areas = config.frames.iter().map(|f| f.ring_area_mm2).collect();
     let hub = Hub::resume(&reader, lab.clone(), writer.clone(), clock.clone(), areas, WatchParams::default())?;
     drop(reader);
+    // The start and resume entries are committed before the daemon says it is listening.
+    writer.sync()?;
     let (tap, taps) = std::sync::mpsc::channel();
     let hub_thread = hub.clone();
     std::thread::Builder::new()
@@ -128,6 +142,10 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
         clock: clock.clone(),
         stale_after,
         started_us: now,
+        writer: writer.clone(),
+        store_path: store_config.path.clone(),
+        frames: Arc::new(config.frames.clone()),
+        users: Arc::new(config.http.users.clone()),
     };
     let app = router(state);
     tasks.push(tokio::spawn(async move {

@@ -4,6 +4,7 @@
 //! not skip when a peer is missing: `oedolog_tests` panics with what to install instead.
 
 mod analyze;
+mod api;
 mod daemon;
 mod peers_mbpoll;
 mod peers_pymodbus;

@@ -96,7 +96,39 @@ pub struct StoreConfig {
 pub struct HttpConfig {
     /// Listen address.
     pub listen: SocketAddr,
+    /// Users; when any is configured every request must name one.
+    pub users: Vec<User>,
 }
+
+/// What a user may do.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Role {
+    /// Reads everything, changes nothing.
+    Viewer,
+    /// May start tests, arm increments, add notes.
+    Operator,
+}
+
+/// One `[[http.user]]`.
+#[derive(Clone, PartialEq, Eq)]
+pub struct User {
+    /// Login name, written in the journal for the user's actions.
+    pub name: String,
+    /// What the user may do.
+    pub role: Role,
+    /// The secret (never printed: `Debug` hides it).
+    pub token: String,
+}
+
+impl fmt::Debug for User {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.debug_struct("User").field("name", &self.name).field("role", &self.role).field("token", &"…").finish()
+    }
+}
+
+/// Shortest token accepted: 16 characters (about 95 bits from a random base64 string).
+pub const MIN_TOKEN_CHARS: usize = 16;
 
 /// `[log]`
 #[derive(Clone, Debug, PartialEq)]
@@ -503,6 +535,7 @@ fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
             DEFAULT_LISTEN.parse().expect("constant")
         }),
     };
+    let users = check_users(c, &raw.http);
 
     let log = LogConfig {
         dir: raw.log.dir.map(|d| PathBuf::from(d.into_inner())),
@@ -564,7 +597,63 @@ fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
             });
         }
     }
-    Config { store, http: HttpConfig { listen }, log, buses, frames }
+    Config { store, http: HttpConfig { listen, users }, log, buses, frames }
+}
+
+/// `[[http.user]]`: names unique, roles known, tokens long enough; and without users, loopback only.
+fn check_users(c: &mut Checker<'_>, http: &raw::RawHttp) -> Vec<User> {
+    let mut users = Vec::new();
+    let mut names = HashSet::new();
+    for (i, u) in http.users.iter().enumerate() {
+        let u = u.get_ref();
+        let field = |name: &str| format!("http.user[{i}].{name}");
+        let name = u.name.get_ref().trim().to_string();
+        if name.is_empty() || name.len() > 64 || name.contains(':') || name.chars().any(char::is_control) {
+            c.at(
+                u.name.span(),
+                field("name"),
+                "allowed: 1–64 characters, no `:` (HTTP Basic separates name and token with it)",
+            );
+        } else if !names.insert(name.clone()) {
+            c.at(u.name.span(), field("name"), format!("user `{name}` is configured twice (allowed: unique names)"));
+        }
+        let role = match u.role.get_ref().as_str() {
+            "viewer" => Some(Role::Viewer),
+            "operator" => Some(Role::Operator),
+            other => {
+                c.at(u.role.span(), field("role"), format!("`{other}` is not allowed (allowed: viewer, operator)"));
+                None
+            }
+        };
+        let token = u.token.get_ref();
+        if token.chars().count() < MIN_TOKEN_CHARS || token.chars().any(|ch| ch.is_control() || ch == ' ') {
+            // The token itself is never echoed.
+            c.at(
+                u.token.span(),
+                field("token"),
+                format!(
+                    "too short or has spaces (allowed: at least {MIN_TOKEN_CHARS} printable characters, no spaces)"
+                ),
+            );
+        }
+        if let Some(role) = role {
+            users.push(User { name, role, token: token.clone() });
+        }
+    }
+    if http.users.is_empty()
+        && let Some(listen) = &http.listen
+        && let Ok(addr) = listen.get_ref().parse::<SocketAddr>()
+        && !addr.ip().is_loopback()
+    {
+        c.at(
+            listen.span(),
+            "http.listen",
+            format!(
+                "{addr} is not a loopback address and no [[http.user]] is configured (allowed: a loopback address such as 127.0.0.1:8321, or add [[http.user]] tables with name, role and token)"
+            ),
+        );
+    }
+    users
 }
 
 fn check_bus(c: &mut Checker<'_>, b: &RawBus, i: usize) -> Option<BusKind> {

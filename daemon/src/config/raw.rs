@@ -45,6 +45,21 @@ pub(crate) struct RawStore {
 pub(crate) struct RawHttp {
     /// Listen address (default 127.0.0.1:8321).
     pub listen: Option<Spanned<String>>,
+    /// People and scripts allowed in; with none, only a loopback address may be used.
+    #[serde(default, rename = "user")]
+    pub users: Vec<Spanned<RawUser>>,
+}
+
+/// `[[http.user]]`: one person or script.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawUser {
+    /// Login name (HTTP Basic) and the name written in the journal.
+    pub name: Spanned<String>,
+    /// `viewer` (reads everything, changes nothing) or `operator` (may act).
+    pub role: Spanned<String>,
+    /// Secret: the Basic password or the Bearer token; at least 16 characters.
+    pub token: Spanned<String>,
 }
 
 /// `[log]`

@@ -273,3 +273,48 @@ fn demo_purpose_needs_neither_store_nor_frames() {
     assert!(config.store.is_none());
     assert!(Config::parse("[http]\nlisten = \"127.0.0.1:0\"\n", Purpose::Run).is_err());
 }
+
+#[test]
+fn http_users_are_read_with_their_roles() {
+    let text = format!(
+        "{BASE}\n[http]\nlisten = \"0.0.0.0:8321\"\n[[http.user]]\nname = \"olga\"\nrole = \"operator\"\ntoken = \"0123456789abcdef\"\n\
+         [[http.user]]\nname = \"vera\"\nrole = \"viewer\"\ntoken = \"fedcba9876543210\"\n"
+    );
+    let config = Config::parse(&text, Purpose::Run).unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!(config.http.users.len(), 2);
+    assert_eq!((config.http.users[0].name.as_str(), config.http.users[0].role), ("olga", Role::Operator));
+    assert_eq!(config.http.users[1].role, Role::Viewer);
+    assert!(!format!("{:?}", config.http.users[0]).contains("0123456789abcdef"), "Debug hides the token");
+}
+
+#[test]
+fn bad_http_users_and_an_open_address_without_users_are_refused_at_their_line() {
+    let head = format!("{BASE}\n[http]\n");
+    let base_lines = head.lines().count();
+    let user = |name: &str, role: &str, token: &str| {
+        format!("[[http.user]]\nname = \"{name}\"\nrole = \"{role}\"\ntoken = \"{token}\"\n")
+    };
+    // (what, text after [http], field, words in the message, line relative to the [http] header)
+    let cases: Vec<(&str, String, &str, &str, usize)> = vec![
+        ("short token", user("olga", "operator", "short"), "http.user[0].token", "at least 16", 4),
+        ("unknown role", user("olga", "admin", "0123456789abcdef"), "http.user[0].role", "viewer, operator", 3),
+        (
+            "duplicate name",
+            user("olga", "operator", "0123456789abcdef") + &user("olga", "viewer", "fedcba9876543210"),
+            "http.user[1].name",
+            "twice",
+            6,
+        ),
+        ("colon in a name", user("ol:ga", "viewer", "0123456789abcdef"), "http.user[0].name", "no `:`", 2),
+        ("open without users", "listen = \"0.0.0.0:8321\"\n".into(), "http.listen", "[[http.user]]", 1),
+    ];
+    for (what, tail, field, words, line) in cases {
+        let error = Config::parse(&format!("{head}{tail}"), Purpose::Run).expect_err(what);
+        let problem = error.problems.iter().find(|p| p.field == field).unwrap_or_else(|| panic!("{what}: {error}"));
+        assert!(problem.message.contains(words), "{what}: {}", problem.message);
+        assert_eq!(problem.line, base_lines + line, "{what}: {problem}");
+        assert!(!problem.message.contains("0123456789abcdef"), "tokens are never echoed");
+    }
+    let loopback = format!("{head}listen = \"[::1]:8321\"\n");
+    assert!(Config::parse(&loopback, Purpose::Run).is_ok(), "loopback needs no users");
+}

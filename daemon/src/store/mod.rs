@@ -53,6 +53,9 @@ pub enum StoreError {
     /// The writer thread has stopped.
     #[error("the store's writer has stopped")]
     WriterGone,
+    /// The transaction holding a change could not be committed; nothing of it was stored.
+    #[error("the change could not be committed: {0}")]
+    CommitFailed(String),
 }
 
 /// Channels of a frame, as stored in `readings.channel`.
@@ -133,8 +136,11 @@ pub struct CommitReport {
     pub last: Option<(i64, i64, i64)>,
 }
 
-/// Runs on the writer's connection; returns whether its changes should be kept.
-type Job = Box<dyn FnOnce(&Connection) -> bool + Send>;
+/// Called once the batch a job ran in is committed (`None`) or failed to commit (`Some(why)`).
+type Reply = Box<dyn FnOnce(Option<String>) + Send>;
+/// Runs on the writer's connection; returns whether its changes should be kept, and its reply, which is
+/// sent only after the commit, so a caller told "done" has its change on disk.
+type Job = Box<dyn FnOnce(&Connection) -> (bool, Reply) + Send>;
 
 enum Op {
     Reading(Reading),
@@ -274,11 +280,23 @@ impl Writer {
         let op = Op::Job(Box::new(move |conn| {
             let result = job(conn);
             let keep = result.is_ok();
-            let _ = reply_tx.send(result);
-            keep
+            let reply: Reply = Box::new(move |commit_error| {
+                let outcome = match (result, commit_error) {
+                    (Ok(value), None) => Ok(value),
+                    (Ok(_), Some(why)) => Err(StoreError::CommitFailed(why)),
+                    (Err(error), _) => Err(error),
+                };
+                let _ = reply_tx.send(outcome);
+            });
+            (keep, reply)
         }));
         self.tx.send(op).map_err(|_| StoreError::WriterGone)?;
         reply_rx.recv().map_err(|_| StoreError::WriterGone)?
+    }
+
+    /// Waits until everything queued before this call is committed.
+    pub fn sync(&self) -> Result<(), StoreError> {
+        self.run(|_| Ok(()))
     }
 
     /// Readings queued but not yet committed (for `/metrics` and the soak).
@@ -400,6 +418,20 @@ fn checkpoint(conn: &Connection, last: &mut Instant, every: Duration) {
 }
 
 fn commit(conn: &mut Connection, batch: &mut Batch) -> Result<(u64, u64), rusqlite::Error> {
+    let mut replies: Vec<Reply> = Vec::new();
+    let outcome = commit_inner(conn, batch, &mut replies);
+    let why = outcome.as_ref().err().map(|e| e.to_string());
+    for reply in replies {
+        reply(why.clone());
+    }
+    outcome
+}
+
+fn commit_inner(
+    conn: &mut Connection,
+    batch: &mut Batch,
+    replies: &mut Vec<Reply>,
+) -> Result<(u64, u64), rusqlite::Error> {
     let tx = conn.transaction()?;
     let mut readings = 0;
     {
@@ -427,7 +459,9 @@ fn commit(conn: &mut Connection, batch: &mut Batch) -> Result<(u64, u64), rusqli
     for job in batch.jobs.drain(..) {
         // Each job in its own savepoint: a job that fails changes nothing, and the readings still commit.
         let savepoint = tx.savepoint()?;
-        if job(&savepoint) {
+        let (keep, reply) = job(&savepoint);
+        replies.push(reply);
+        if keep {
             savepoint.commit()?;
         }
     }

@@ -123,3 +123,29 @@ fn a_damaged_file_is_refused() {
     std::fs::write(&path, vec![0x42; 8192]).unwrap();
     assert!(open(&path).is_err());
 }
+
+#[test]
+fn a_job_is_answered_only_after_its_commit() {
+    let (_dir, path) = temp_db();
+    let conn = open(&path).unwrap();
+    // A long flush window: only the job's own urgency may commit the batch.
+    let thread = Writer::spawn(conn, WriterPolicy { flush: Duration::from_secs(30), ..Default::default() }, |_| {});
+    let writer = thread.writer();
+    let other = reader(&path).unwrap();
+    for i in 0..20 {
+        writer
+            .run(move |conn| {
+                Ok(conn.execute("INSERT INTO frames (id, name, created_us) VALUES (?1, 'x', 0)", [format!("F{i}")])?)
+            })
+            .unwrap();
+        // Another connection sees the change as soon as the caller is told it is done.
+        let seen: i64 = other.query_row("SELECT count(*) FROM frames", [], |r| r.get(0)).unwrap();
+        assert_eq!(seen, i + 1);
+    }
+    writer
+        .event(Event { at_us: 1, frame_key: None, kind: "queued", message: "m".into(), actor: None, data: None })
+        .unwrap();
+    writer.sync().unwrap();
+    let events: i64 = other.query_row("SELECT count(*) FROM events WHERE kind = 'queued'", [], |r| r.get(0)).unwrap();
+    assert_eq!(events, 1, "sync waits for what was queued before it");
+}

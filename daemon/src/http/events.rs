@@ -1,0 +1,151 @@
+//! The journal: `GET /api/events?after=ID&limit=N&frame=ID`, and the live stream `GET /api/stream`
+//! (Server-Sent Events).
+//!
+//! How the stream resumes without a gap: each client gets a task with its own read-only connection that
+//! polls the events table every 500 ms for ids above the last one it sent, and sends each as
+//! `id: <event id>` / `event: journal` / `data: {json}` in id order. A reconnecting client's
+//! `Last-Event-ID` (or `?after=`) is where that task starts, so it first gets every event committed after
+//! that id. The events table is the single source (every writer path commits there), so nothing that was
+//! committed can be skipped. Every 2 s, and at once on connecting, an `event: frames` snapshot of
+//! `/api/frames` follows. The stream never writes.
+
+use std::collections::HashMap;
+use std::convert::Infallible;
+use std::time::Duration;
+
+use axum::Router;
+use axum::extract::{Query, State};
+use axum::http::HeaderMap;
+use axum::response::Json;
+use axum::response::sse::{Event, KeepAlive, Sse};
+use axum::routing::get;
+use futures_util::stream::Stream;
+
+use super::increments::{int_param, only_params};
+use super::queries::{self, EventView};
+use super::{ApiError, AppState};
+
+/// How often a stream looks for new journal events.
+const POLL: Duration = Duration::from_millis(500);
+/// A frames snapshot every this many polls.
+const FRAMES_EVERY: u32 = 4;
+/// Events fetched per query while catching up.
+const BATCH: i64 = 500;
+
+fn frame_key(state: &AppState, query: &HashMap<String, String>) -> Result<Option<i64>, ApiError> {
+    match query.get("frame") {
+        None => Ok(None),
+        Some(id) => state.frame_index(id).map(|i| Some(state.lab.key(i))).map_err(|_| {
+            ApiError::bad_query(
+                "frame",
+                format!("no frame `{id}`"),
+                state.frames.iter().map(|f| f.id.as_str()).collect::<Vec<_>>().join(", "),
+            )
+        }),
+    }
+}
+
+async fn list(
+    State(state): State<AppState>,
+    Query(query): Query<HashMap<String, String>>,
+) -> Result<Json<Vec<EventView>>, ApiError> {
+    only_params(&query, &["after", "limit", "frame"])?;
+    let after = int_param(&query, "after", 0, 0, i64::MAX)?;
+    let limit = int_param(&query, "limit", 100, 1, 1000)?;
+    let key = frame_key(&state, &query)?;
+    Ok(Json(state.read(move |conn| queries::events(conn, after, limit, key)).await?))
+}
+
+/// Where a stream starts: `Last-Event-ID`, else `?after=`, else the newest event (only new ones follow).
+fn resume_from(headers: &HeaderMap, query: &HashMap<String, String>) -> Result<Option<i64>, ApiError> {
+    if let Some(v) = headers.get("last-event-id") {
+        let text = v.to_str().unwrap_or("");
+        return text.trim().parse::<i64>().map(Some).map_err(|_| ApiError::BadRequest {
+            error: format!("Last-Event-ID `{text}` is not an event id"),
+            field: Some("Last-Event-ID".into()),
+            allowed: Some("a whole number (the id of the last event received)".into()),
+        });
+    }
+    query.get("after").map(|_| int_param(query, "after", 0, 0, i64::MAX)).transpose()
+}
+
+fn journal_event(e: &EventView) -> Event {
+    Event::default()
+        .id(e.id.to_string())
+        .event("journal")
+        .data(serde_json::to_string(e).unwrap_or_else(|_| "{}".into()))
+}
+
+async fn stream(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    Query(query): Query<HashMap<String, String>>,
+) -> Result<Sse<impl Stream<Item = Result<Event, Infallible>>>, ApiError> {
+    only_params(&query, &["after"])?;
+    let start = resume_from(&headers, &query)?;
+    let path = state.store_path.clone();
+    let (conn, mut last) = tokio::task::spawn_blocking(move || -> Result<_, ApiError> {
+        let conn = crate::store::reader(&path)?;
+        let last = match start {
+            Some(id) => id,
+            None => queries::last_event_id(&conn)?,
+        };
+        Ok((conn, last))
+    })
+    .await
+    .map_err(|e| ApiError::Internal(format!("stream task: {e}")))??;
+    let (tx, rx) = tokio::sync::mpsc::channel::<Event>(64);
+    tokio::spawn(async move {
+        let mut conn = Some(conn);
+        let mut ticker = tokio::time::interval(POLL);
+        ticker.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
+        let mut tick = 0u32;
+        loop {
+            ticker.tick().await;
+            if tick.is_multiple_of(FRAMES_EVERY) {
+                let frames = super::frames::views(&state);
+                let data = serde_json::to_string(&frames).unwrap_or_else(|_| "[]".into());
+                if tx.send(Event::default().event("frames").data(data)).await.is_err() {
+                    return;
+                }
+            }
+            tick = tick.wrapping_add(1);
+            // Catch up in batches until nothing newer is committed.
+            loop {
+                let Some(c) = conn.take() else { return };
+                let from = last;
+                let fetched = tokio::task::spawn_blocking(move || {
+                    let events = queries::events(&c, from, BATCH, None);
+                    (c, events)
+                })
+                .await;
+                let Ok((c, events)) = fetched else { return };
+                conn = Some(c);
+                let events = match events {
+                    Ok(events) => events,
+                    Err(error) => {
+                        // Logged once per poll; the client keeps its place and the next poll retries.
+                        tracing::warn!("event stream: {error}");
+                        break;
+                    }
+                };
+                let full = events.len() as i64 == BATCH;
+                for e in &events {
+                    if tx.send(journal_event(e)).await.is_err() {
+                        return;
+                    }
+                    last = e.id;
+                }
+                if !full {
+                    break;
+                }
+            }
+        }
+    });
+    let events = futures_util::stream::unfold(rx, |mut rx| async move { rx.recv().await.map(|e| (Ok(e), rx)) });
+    Ok(Sse::new(events).keep_alive(KeepAlive::new().interval(Duration::from_secs(15))))
+}
+
+pub(super) fn router() -> Router<AppState> {
+    Router::new().route("/api/events", get(list)).route("/api/stream", get(stream))
+}

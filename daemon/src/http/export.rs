@@ -1,0 +1,148 @@
+//! CSV exports with units in the headers, RFC 4180 quoting, `text/csv; charset=utf-8` and a file name:
+//! an increment's readings, a test's increment table, and its e–σ′ table. Read-only.
+
+use axum::Router;
+use axum::extract::{Path, State};
+use axum::http::header;
+use axum::response::{IntoResponse, Response};
+use axum::routing::get;
+
+use super::csv::{Cell, Csv};
+use super::increments::{increment_polls, seq_of};
+use super::lab_tests::test_id;
+use super::queries;
+use super::{ApiError, AppState};
+use crate::clock::rfc3339;
+
+fn csv_response(filename: String, body: String) -> Response {
+    (
+        [
+            (header::CONTENT_TYPE, "text/csv; charset=utf-8".to_string()),
+            (header::CONTENT_DISPOSITION, format!("attachment; filename=\"{filename}\"")),
+        ],
+        body,
+    )
+        .into_response()
+}
+
+/// Every reading of increment `seq`, from t0 to its end.
+async fn readings(
+    State(state): State<AppState>,
+    Path((id, seq)): Path<(String, String)>,
+) -> Result<Response, ApiError> {
+    let id = test_id(&id)?;
+    let seq = seq_of(&seq)?;
+    let now = state.clock.now_us();
+    let body = state
+        .read(move |conn| {
+            let test = queries::test(conn, id)?;
+            let inc = queries::increment(conn, id, seq)?;
+            let onset = inc.onset_us;
+            let mut csv = Csv::default();
+            csv.header(&["time_min", "displacement_mm", "load_kn", "at_utc"]);
+            for (t, d, l) in increment_polls(conn, &test, &inc, now)? {
+                let at = onset.map(|o| rfc3339(o + (t * 6e7).round() as i64)).unwrap_or_default();
+                csv.row(&[Cell::Number(Some(t)), Cell::Number(d), Cell::Number(l), Cell::Text(&at)]);
+            }
+            Ok(csv.finish())
+        })
+        .await?;
+    Ok(csv_response(format!("test-{id}-increment-{seq}-readings.csv"), body))
+}
+
+/// The increment table of a test.
+async fn increment_table(State(state): State<AppState>, Path(id): Path<String>) -> Result<Response, ApiError> {
+    let id = test_id(&id)?;
+    let now = state.clock.now_us();
+    let reduced = state.read(move |conn| queries::reduce_test(conn, id, now)).await?;
+    let mut csv = Csv::default();
+    csv.header(&[
+        "seq",
+        "stress_kpa",
+        "from_kpa",
+        "armed_at_utc",
+        "onset_at_utc",
+        "ready_at_utc",
+        "ended_at_utc",
+        "readings",
+        "settlement_mm",
+        "settlement_eop_mm",
+        "t50_min",
+        "t90_min",
+        "cv_taylor_mm2_per_min",
+        "cv_casagrande_mm2_per_min",
+        "c_alpha_strain",
+        "flags",
+    ]);
+    let text = |s: &Option<String>| s.clone().unwrap_or_default();
+    for inc in &reduced.increments {
+        let (armed, onset, ready, ended) =
+            (text(&inc.row.armed_at), text(&inc.row.onset_at), text(&inc.row.ready_at), text(&inc.row.ended_at));
+        let flags = inc.flags.join(" ");
+        csv.row(&[
+            Cell::Int(inc.row.seq),
+            Cell::Number(Some(inc.row.stress_kpa)),
+            Cell::Number(inc.row.from_kpa),
+            Cell::Text(&armed),
+            Cell::Text(&onset),
+            Cell::Text(&ready),
+            Cell::Text(&ended),
+            Cell::Int(inc.reading_count as i64),
+            Cell::Number(inc.settlement_mm),
+            Cell::Number(inc.settlement_eop_mm),
+            Cell::Number(inc.t50_min),
+            Cell::Number(inc.t90_min),
+            Cell::Number(inc.cv_taylor_mm2_per_min),
+            Cell::Number(inc.cv_casagrande_mm2_per_min),
+            Cell::Number(inc.c_alpha_strain),
+            Cell::Text(&flags),
+        ]);
+    }
+    Ok(csv_response(format!("test-{id}-increments.csv"), csv.finish()))
+}
+
+/// The e–σ′ table of a test.
+async fn compression_table(State(state): State<AppState>, Path(id): Path<String>) -> Result<Response, ApiError> {
+    let id = test_id(&id)?;
+    let now = state.clock.now_us();
+    let reduced = state.read(move |conn| queries::reduce_test(conn, id, now)).await?;
+    let mut csv = Csv::default();
+    csv.header(&[
+        "stress_kpa",
+        "branch",
+        "void_ratio",
+        "void_ratio_end",
+        "void_ratio_eop",
+        "strain",
+        "load_increment_ratio",
+        "av_per_kpa",
+        "mv_per_kpa",
+        "k_m_per_s",
+    ]);
+    if let Some(c) = &reduced.compression {
+        for p in &c.points {
+            let branch =
+                serde_json::to_value(p.branch).ok().and_then(|v| v.as_str().map(String::from)).unwrap_or_default();
+            csv.row(&[
+                Cell::Number(Some(p.stress_kpa)),
+                Cell::Text(&branch),
+                Cell::Number(Some(p.e)),
+                Cell::Number(Some(p.e_end)),
+                Cell::Number(p.e_eop),
+                Cell::Number(Some(p.strain)),
+                Cell::Number(p.load_increment_ratio),
+                Cell::Number(p.av_per_kpa),
+                Cell::Number(p.mv_per_kpa),
+                Cell::Number(p.k_m_per_s),
+            ]);
+        }
+    }
+    Ok(csv_response(format!("test-{id}-e-log-stress.csv"), csv.finish()))
+}
+
+pub(super) fn router() -> Router<AppState> {
+    Router::new()
+        .route("/api/tests/{id}/increments/{seq}/readings.csv", get(readings))
+        .route("/api/tests/{id}/increments.csv", get(increment_table))
+        .route("/api/tests/{id}/compression.csv", get(compression_table))
+}

@@ -1,0 +1,72 @@
+//! `/metrics` in the Prometheus text exposition format (version 0.0.4): readings per frame, bus errors by
+//! frame and kind, frames by state, the store's backlog, uptime. Read-only; counters come from the live
+//! view, so they restart at zero with the daemon.
+
+use std::fmt::Write;
+
+use axum::Router;
+use axum::extract::State;
+use axum::http::header;
+use axum::response::IntoResponse;
+use axum::routing::get;
+
+use super::AppState;
+use super::frames::views;
+
+/// Every state a frame can be in, so each series exists even at zero.
+const STATES: [&str; 7] = ["offline", "idle", "seating", "armed", "primary", "ready", "finished"];
+
+/// A label value escaped as the exposition format says: backslash, double quote and line feed.
+fn label(value: &str) -> String {
+    value.replace('\\', "\\\\").replace('"', "\\\"").replace('\n', "\\n")
+}
+
+pub(crate) fn render(state: &AppState) -> String {
+    let frames = views(state);
+    let mut out = String::new();
+    let _ = writeln!(out, "# HELP oedolog_readings_total Valid readings handed to the store since the daemon started.");
+    let _ = writeln!(out, "# TYPE oedolog_readings_total counter");
+    for f in &frames {
+        let _ = writeln!(out, "oedolog_readings_total{{frame=\"{}\"}} {}", label(&f.id), f.counters.readings);
+    }
+    let _ = writeln!(out, "# HELP oedolog_bus_requests_total Requests sent to the frame's devices (each attempt).");
+    let _ = writeln!(out, "# TYPE oedolog_bus_requests_total counter");
+    for f in &frames {
+        let _ = writeln!(out, "oedolog_bus_requests_total{{frame=\"{}\"}} {}", label(&f.id), f.counters.requests);
+    }
+    let _ = writeln!(out, "# HELP oedolog_bus_errors_total Failed requests and refused values, by kind.");
+    let _ = writeln!(out, "# TYPE oedolog_bus_errors_total counter");
+    for f in &frames {
+        let c = &f.counters;
+        for (kind, n) in [
+            ("timeout", c.timeouts),
+            ("crc", c.crc_errors),
+            ("exception", c.exceptions),
+            ("bad_frame", c.bad_frames),
+            ("refused_value", c.refused_values),
+        ] {
+            let _ = writeln!(out, "oedolog_bus_errors_total{{frame=\"{}\",kind=\"{kind}\"}} {n}", label(&f.id));
+        }
+    }
+    let _ = writeln!(out, "# HELP oedolog_frames Frames in each state.");
+    let _ = writeln!(out, "# TYPE oedolog_frames gauge");
+    for s in STATES {
+        let n = frames.iter().filter(|f| f.state == s).count();
+        let _ = writeln!(out, "oedolog_frames{{state=\"{s}\"}} {n}");
+    }
+    let _ = writeln!(out, "# HELP oedolog_store_backlog_readings Readings queued for the store but not yet committed.");
+    let _ = writeln!(out, "# TYPE oedolog_store_backlog_readings gauge");
+    let _ = writeln!(out, "oedolog_store_backlog_readings {}", state.writer.backlog());
+    let _ = writeln!(out, "# HELP oedolog_uptime_seconds Clock seconds since the daemon started.");
+    let _ = writeln!(out, "# TYPE oedolog_uptime_seconds gauge");
+    let _ = writeln!(out, "oedolog_uptime_seconds {}", (state.clock.now_us() - state.started_us) as f64 / 1e6);
+    out
+}
+
+async fn metrics(State(state): State<AppState>) -> impl IntoResponse {
+    ([(header::CONTENT_TYPE, "text/plain; version=0.0.4; charset=utf-8")], render(&state))
+}
+
+pub(super) fn router() -> Router<AppState> {
+    Router::new().route("/metrics", get(metrics))
+}

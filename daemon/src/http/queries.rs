@@ -1,0 +1,476 @@
+//! The read side of the API: tests, increments, readings and events from a read-only connection, and the
+//! reduction of a test's stored readings with the pure `analysis` functions. No writes, no HTTP types.
+
+use rusqlite::{Connection, OptionalExtension, params};
+use serde::Serialize;
+
+use super::ApiError;
+use crate::analysis::{
+    CompressionInput, CompressionParams, CompressionPoint, CompressionReduction, Drainage, IncrementParams,
+    IncrementReduction, PhaseRelations, SpecimenMeasurements, cv::Method, phase_relations, reduce_compression,
+    reduce_increment,
+};
+use crate::clock::rfc3339;
+use crate::watch::WatchParams;
+
+/// A test as stored, with its specimen data.
+#[derive(Clone, Debug, Serialize)]
+pub(crate) struct TestRow {
+    /// `tests.id`.
+    pub id: i64,
+    /// The frame's config id.
+    pub frame: String,
+    /// `frames.key`.
+    #[serde(skip)]
+    pub frame_key: i64,
+    /// Specimen reference.
+    pub specimen: String,
+    /// Soil description, borehole, depth.
+    pub description: String,
+    /// Initial height H0, mm.
+    pub height_mm: f64,
+    /// Ring diameter, mm.
+    pub diameter_mm: f64,
+    /// Dry mass, g.
+    pub dry_mass_g: Option<f64>,
+    /// Gs.
+    pub specific_gravity: Option<f64>,
+    /// w0 as a ratio.
+    pub initial_water_content: Option<f64>,
+    /// wf as a ratio.
+    pub final_water_content: Option<f64>,
+    /// Seating stress, kPa.
+    pub seating_kpa: Option<f64>,
+    /// `seating`, `armed`, `primary`, `ready` or `finished`.
+    pub state: String,
+    /// Start, RFC 3339 UTC.
+    pub started_at: String,
+    /// Finish, RFC 3339 UTC.
+    pub finished_at: Option<String>,
+    /// Start, µs.
+    #[serde(skip)]
+    pub started_us: i64,
+}
+
+const TEST_COLUMNS: &str = "t.id, f.id, t.frame_key, t.specimen, t.description, t.height_mm, t.diameter_mm, t.dry_mass_g,
+    t.specific_gravity, t.initial_water_content, t.final_water_content, t.seating_kpa, t.state, t.started_us, t.finished_us";
+
+fn test_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<TestRow> {
+    let started_us: i64 = r.get(13)?;
+    Ok(TestRow {
+        id: r.get(0)?,
+        frame: r.get(1)?,
+        frame_key: r.get(2)?,
+        specimen: r.get(3)?,
+        description: r.get(4)?,
+        height_mm: r.get(5)?,
+        diameter_mm: r.get(6)?,
+        dry_mass_g: r.get(7)?,
+        specific_gravity: r.get(8)?,
+        initial_water_content: r.get(9)?,
+        final_water_content: r.get(10)?,
+        seating_kpa: r.get(11)?,
+        state: r.get(12)?,
+        started_at: rfc3339(started_us),
+        finished_at: r.get::<_, Option<i64>>(14)?.map(rfc3339),
+        started_us,
+    })
+}
+
+/// Test `id`, or 404.
+pub(crate) fn test(conn: &Connection, id: i64) -> Result<TestRow, ApiError> {
+    conn.query_row(
+        &format!("SELECT {TEST_COLUMNS} FROM tests t JOIN frames f ON f.key = t.frame_key WHERE t.id = ?1"),
+        [id],
+        test_row,
+    )
+    .optional()?
+    .ok_or_else(|| ApiError::NotFound(format!("no test {id}")))
+}
+
+/// The running test of a frame, else its most recent one.
+pub(crate) fn latest_test(conn: &Connection, frame_key: i64) -> Result<Option<TestRow>, ApiError> {
+    Ok(conn
+        .query_row(
+            &format!(
+                "SELECT {TEST_COLUMNS} FROM tests t JOIN frames f ON f.key = t.frame_key WHERE t.frame_key = ?1
+                 ORDER BY (t.finished_us IS NULL) DESC, t.id DESC LIMIT 1"
+            ),
+            [frame_key],
+            test_row,
+        )
+        .optional()?)
+}
+
+/// One increment as stored.
+#[derive(Clone, Debug, Serialize)]
+pub(crate) struct IncrementRow {
+    /// 1, 2, … within the test.
+    pub seq: i64,
+    /// Target stress, kPa.
+    pub stress_kpa: f64,
+    /// Stress before it, kPa.
+    pub from_kpa: Option<f64>,
+    /// When the operator armed it.
+    pub armed_at: Option<String>,
+    /// When someone said the load went on.
+    pub reported_at: Option<String>,
+    /// t0, found from the data.
+    pub onset_at: Option<String>,
+    /// `load-step` or `deformation`.
+    pub onset_source: Option<String>,
+    /// End of primary established.
+    pub ready_at: Option<String>,
+    /// When the next increment began or the test finished.
+    pub ended_at: Option<String>,
+    /// t0, µs.
+    #[serde(skip)]
+    pub onset_us: Option<i64>,
+    /// End, µs.
+    #[serde(skip)]
+    pub ended_us: Option<i64>,
+}
+
+/// The increments of test `test_id` in order.
+pub(crate) fn increments(conn: &Connection, test_id: i64) -> Result<Vec<IncrementRow>, ApiError> {
+    let mut statement = conn.prepare_cached(
+        "SELECT seq, stress_kpa, from_kpa, armed_us, reported_us, onset_us, onset_source, ready_us, ended_us
+         FROM increments WHERE test_id = ?1 ORDER BY seq",
+    )?;
+    let rows = statement.query_map([test_id], |r| {
+        let at = |i: usize| r.get::<_, Option<i64>>(i).map(|v| v.map(rfc3339));
+        Ok(IncrementRow {
+            seq: r.get(0)?,
+            stress_kpa: r.get(1)?,
+            from_kpa: r.get(2)?,
+            armed_at: at(3)?,
+            reported_at: at(4)?,
+            onset_at: at(5)?,
+            onset_source: r.get(6)?,
+            ready_at: at(7)?,
+            ended_at: at(8)?,
+            onset_us: r.get(5)?,
+            ended_us: r.get(8)?,
+        })
+    })?;
+    Ok(rows.collect::<Result<_, _>>()?)
+}
+
+/// Increment `seq` of a test, or 404.
+pub(crate) fn increment(conn: &Connection, test_id: i64, seq: i64) -> Result<IncrementRow, ApiError> {
+    increments(conn, test_id)?
+        .into_iter()
+        .find(|i| i.seq == seq)
+        .ok_or_else(|| ApiError::NotFound(format!("test {test_id} has no increment {seq}")))
+}
+
+/// One poll: (at_us, displacement mm, load kN).
+pub(crate) type Poll = (i64, Option<f64>, Option<f64>);
+
+/// Displacement and load polls of a frame in `[from_us, to_us]`, in time order.
+pub(crate) fn polls(conn: &Connection, frame_key: i64, from_us: i64, to_us: i64) -> Result<Vec<Poll>, ApiError> {
+    let mut statement = conn.prepare_cached(
+        "SELECT at_us, channel, value FROM readings WHERE frame_key = ?1 AND channel IN (0, 1) AND at_us >= ?2 AND at_us <= ?3
+         ORDER BY at_us, channel",
+    )?;
+    let mut out: Vec<Poll> = Vec::new();
+    let rows = statement.query_map(params![frame_key, from_us, to_us], |r| {
+        Ok((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?, r.get::<_, f64>(2)?))
+    })?;
+    for row in rows {
+        let (at, channel, value) = row?;
+        if out.last().is_none_or(|l| l.0 != at) {
+            out.push((at, None, None));
+        }
+        if let Some(last) = out.last_mut() {
+            if channel == 0 {
+                last.1 = Some(value);
+            } else {
+                last.2 = Some(value);
+            }
+        }
+    }
+    Ok(out)
+}
+
+fn displacement_at_or_before(conn: &Connection, key: i64, at_us: i64) -> Result<Option<f64>, ApiError> {
+    Ok(conn
+        .query_row(
+            "SELECT value FROM readings WHERE frame_key = ?1 AND channel = 0 AND at_us <= ?2 ORDER BY at_us DESC LIMIT 1",
+            params![key, at_us],
+            |r| r.get(0),
+        )
+        .optional()?)
+}
+
+/// The gauge reading at the test's zero: the first displacement at or after its start (as the hub does).
+fn zero_reading(conn: &Connection, test: &TestRow) -> Result<Option<f64>, ApiError> {
+    Ok(conn
+        .query_row(
+            "SELECT value FROM readings WHERE frame_key = ?1 AND channel = 0 AND at_us >= ?2 ORDER BY at_us LIMIT 1",
+            params![test.frame_key, test.started_us],
+            |r| r.get(0),
+        )
+        .optional()?)
+}
+
+/// An increment's stored time curve, ready for the analysis: `(t_min, d_mm)` from t0, plus its window.
+pub(crate) struct StoredCurve {
+    /// (t_min, d_mm), t = 0 at the onset.
+    pub readings: Vec<(f64, f64)>,
+    /// Gauge reading at t0.
+    pub d_onset_mm: Option<f64>,
+    /// The last reading of the increment.
+    pub d_end_mm: Option<f64>,
+}
+
+/// The increment's readings from its onset to its end (or `now_us` while it runs).
+pub(crate) fn stored_curve(
+    conn: &Connection,
+    test: &TestRow,
+    inc: &IncrementRow,
+    now_us: i64,
+) -> Result<Option<StoredCurve>, ApiError> {
+    let Some(onset) = inc.onset_us else { return Ok(None) };
+    let end = inc.ended_us.unwrap_or(now_us);
+    let d_onset = displacement_at_or_before(conn, test.frame_key, onset)?;
+    let mut readings: Vec<(f64, f64)> = d_onset.map(|d| (0.0, d)).into_iter().collect();
+    for (at, d, _) in polls(conn, test.frame_key, onset + 1, end)? {
+        if let Some(d) = d {
+            readings.push(((at - onset) as f64 / 6e7, d));
+        }
+    }
+    let d_end = readings.last().map(|r| r.1);
+    Ok(Some(StoredCurve { readings, d_onset_mm: d_onset, d_end_mm: d_end }))
+}
+
+/// The reduction parameters the live watch uses (`watch::frame`), so a stored increment reduces the same.
+fn increment_params(test: &TestRow, inc: &IncrementRow, zero: Option<f64>, d_onset: Option<f64>) -> IncrementParams {
+    let watch = WatchParams::default();
+    let height_mm = match (zero, d_onset) {
+        (Some(z), Some(d)) => test.height_mm - (d - z),
+        _ => test.height_mm,
+    };
+    let mut params = IncrementParams::with_specimen(height_mm, d_onset.unwrap_or(0.0), Drainage::Double);
+    params.gauge_resolution_mm = watch.gauge_resolution_mm;
+    params.casagrande.secondary_min_decades = watch.min_secondary_decades;
+    params.casagrande.max_secondary_slope_ratio = watch.max_secondary_slope_ratio;
+    if let Some(from) = inc.from_kpa.filter(|f| *f > 0.0) {
+        params.load_increment_ratio = Some((inc.stress_kpa - from) / from);
+    }
+    params
+}
+
+/// Reduces one stored increment; `None` before its onset or without readings.
+pub(crate) fn reduce_stored(
+    conn: &Connection,
+    test: &TestRow,
+    inc: &IncrementRow,
+    now_us: i64,
+) -> Result<Option<(StoredCurve, IncrementReduction)>, ApiError> {
+    let Some(curve) = stored_curve(conn, test, inc, now_us)? else { return Ok(None) };
+    if curve.readings.len() < 2 {
+        return Ok(None);
+    }
+    let zero = zero_reading(conn, test)?;
+    let params = increment_params(test, inc, zero, curve.d_onset_mm);
+    let reduction = reduce_increment(&curve.readings, &params)?;
+    Ok(Some((curve, reduction)))
+}
+
+/// One increment with what its time curve gave.
+#[derive(Clone, Debug, Serialize)]
+pub(crate) struct IncrementSummary {
+    /// The stored row.
+    #[serde(flatten)]
+    pub row: IncrementRow,
+    /// Readings in the increment.
+    pub reading_count: usize,
+    /// Cumulative compression since the test's zero at the end of the increment, mm.
+    pub settlement_mm: Option<f64>,
+    /// The same at the end of primary (d100), mm.
+    pub settlement_eop_mm: Option<f64>,
+    /// t50 (log-t construction), min.
+    pub t50_min: Option<f64>,
+    /// t90 (√t construction), min.
+    pub t90_min: Option<f64>,
+    /// cv by √t, mm²/min.
+    pub cv_taylor_mm2_per_min: Option<f64>,
+    /// cv by log t, mm²/min.
+    pub cv_casagrande_mm2_per_min: Option<f64>,
+    /// cv used for k (the end-of-primary construction's), mm²/min.
+    pub cv_mm2_per_min: Option<f64>,
+    /// Cα on the strain basis.
+    pub c_alpha_strain: Option<f64>,
+    /// Quality flags, by code.
+    pub flags: Vec<String>,
+}
+
+/// A whole test reduced: the increments' summaries and the e–log σ′ curve.
+#[derive(Clone, Debug, Serialize)]
+pub(crate) struct TestReduction {
+    /// The test.
+    pub test: TestRow,
+    /// Every increment.
+    pub increments: Vec<IncrementSummary>,
+    /// Phase relations (needs dry mass and Gs).
+    pub phase: Option<PhaseRelations>,
+    /// The e–log σ′ reduction, when it could run.
+    pub compression: Option<CompressionReduction>,
+    /// Why it could not, if so.
+    pub compression_unavailable: Option<String>,
+    /// Whether settlements were corrected for apparatus deflection (not yet: see the frame's calibration).
+    pub apparatus_corrected: bool,
+}
+
+/// Reduces every increment of test `id` and then the test's e–log σ′ curve.
+pub(crate) fn reduce_test(conn: &Connection, id: i64, now_us: i64) -> Result<TestReduction, ApiError> {
+    let test = test(conn, id)?;
+    let zero = zero_reading(conn, &test)?;
+    let mut summaries = Vec::new();
+    for row in increments(conn, id)? {
+        let reduced = match reduce_stored(conn, &test, &row, now_us) {
+            Ok(r) => r,
+            // A curve the analysis refuses still gets its row, with the reason as a flag.
+            Err(ApiError::Conflict(why)) => {
+                tracing::debug!("increment {} of test {id}: {why}", row.seq);
+                None
+            }
+            Err(e) => return Err(e),
+        };
+        let summary = match reduced {
+            Some((curve, r)) => {
+                let cv = match r.end_of_primary.map(|e| e.method) {
+                    Some(Method::Casagrande) => r.cv_casagrande.map(|c| c.cv_mm2_per_min),
+                    Some(Method::Taylor) => r.cv_taylor.map(|c| c.cv_mm2_per_min),
+                    None => None,
+                };
+                IncrementSummary {
+                    reading_count: curve.readings.len(),
+                    settlement_mm: zero.zip(curve.d_end_mm).map(|(z, d)| d - z),
+                    settlement_eop_mm: zero.zip(r.end_of_primary).map(|(z, e)| e.d100_mm - z),
+                    t50_min: r.casagrande.t50_min,
+                    t90_min: r.taylor.t90_min,
+                    cv_taylor_mm2_per_min: r.cv_taylor.map(|c| c.cv_mm2_per_min),
+                    cv_casagrande_mm2_per_min: r.cv_casagrande.map(|c| c.cv_mm2_per_min),
+                    cv_mm2_per_min: cv,
+                    c_alpha_strain: r.secondary.map(|s| s.c_alpha_strain),
+                    flags: r.flags.iter().map(|f| f.code().to_string()).collect(),
+                    row,
+                }
+            }
+            None => IncrementSummary {
+                row,
+                reading_count: 0,
+                settlement_mm: None,
+                settlement_eop_mm: None,
+                t50_min: None,
+                t90_min: None,
+                cv_taylor_mm2_per_min: None,
+                cv_casagrande_mm2_per_min: None,
+                cv_mm2_per_min: None,
+                c_alpha_strain: None,
+                flags: Vec::new(),
+            },
+        };
+        summaries.push(summary);
+    }
+    let phase = match (test.dry_mass_g, test.specific_gravity) {
+        (Some(m), Some(gs)) => phase_relations(&SpecimenMeasurements {
+            diameter_mm: test.diameter_mm,
+            height_mm: test.height_mm,
+            dry_mass_g: m,
+            specific_gravity: gs,
+            initial_mass_g: None,
+            initial_water_content: test.initial_water_content,
+            water_density_g_per_cm3: 1.0,
+        })
+        .ok(),
+        _ => None,
+    };
+    let points: Vec<CompressionPoint> = summaries
+        .iter()
+        .filter_map(|s| {
+            s.settlement_mm.map(|settlement_mm| CompressionPoint {
+                stress_kpa: s.row.stress_kpa,
+                settlement_mm,
+                settlement_eop_mm: s.settlement_eop_mm,
+                cv_mm2_per_min: s.cv_mm2_per_min,
+            })
+        })
+        .collect();
+    let (compression, compression_unavailable) = match &phase {
+        None => (None, Some("the e–log σ′ curve needs the dry mass and the specific gravity of the specimen".into())),
+        Some(_) if points.is_empty() => (None, Some("no increment has readings after its onset yet".into())),
+        Some(p) => {
+            let input = CompressionInput {
+                initial_height_mm: test.height_mm,
+                solids_height_mm: p.solids_height_mm,
+                seating_stress_kpa: test.seating_kpa.unwrap_or(0.0),
+                points: &points,
+            };
+            match reduce_compression(&input, &CompressionParams::default()) {
+                Ok(r) => (Some(r), None),
+                Err(e) => (None, Some(e.to_string())),
+            }
+        }
+    };
+    Ok(TestReduction {
+        test,
+        increments: summaries,
+        phase,
+        compression,
+        compression_unavailable,
+        apparatus_corrected: false,
+    })
+}
+
+/// One journal entry as the API gives it.
+#[derive(Clone, Debug, Serialize)]
+pub(crate) struct EventView {
+    /// `events.id` (the SSE id).
+    pub id: i64,
+    /// RFC 3339 UTC.
+    pub at: String,
+    /// The frame's config id, if any.
+    pub frame: Option<String>,
+    /// Machine name.
+    pub kind: String,
+    /// What a person reads.
+    pub message: String,
+    /// Who, for operator actions.
+    pub actor: Option<String>,
+    /// Details.
+    pub data: Option<serde_json::Value>,
+}
+
+/// Events with id > `after`, oldest first, at most `limit`, optionally of one frame.
+pub(crate) fn events(
+    conn: &Connection,
+    after: i64,
+    limit: i64,
+    frame_key: Option<i64>,
+) -> Result<Vec<EventView>, ApiError> {
+    let mut statement = conn.prepare_cached(
+        "SELECT e.id, e.at_us, f.id, e.kind, e.message, e.actor, e.data FROM events e LEFT JOIN frames f ON f.key = e.frame_key
+         WHERE e.id > ?1 AND (?2 IS NULL OR e.frame_key = ?2) ORDER BY e.id LIMIT ?3",
+    )?;
+    let rows = statement.query_map(params![after, frame_key, limit], |r| {
+        let data: Option<String> = r.get(6)?;
+        Ok(EventView {
+            id: r.get(0)?,
+            at: rfc3339(r.get(1)?),
+            frame: r.get(2)?,
+            kind: r.get(3)?,
+            message: r.get(4)?,
+            actor: r.get(5)?,
+            data: data.and_then(|d| serde_json::from_str(&d).ok()),
+        })
+    })?;
+    Ok(rows.collect::<Result<_, _>>()?)
+}
+
+/// The newest event id (0 for none).
+pub(crate) fn last_event_id(conn: &Connection) -> Result<i64, ApiError> {
+    Ok(conn.query_row("SELECT coalesce(max(id), 0) FROM events", [], |r| r.get(0))?)
+}

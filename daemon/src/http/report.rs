@@ -1,0 +1,246 @@
+//! The printable report of one test, server-rendered at `/tests/{id}/report`: specimen data, the increment
+//! table, the e–log σ′ table and an inline SVG of e against log σ′, the parameters (cv, Cα, mv, k, Cc, Cr,
+//! σ′p with the method of each) and the cautions. Read-only; print CSS, no scripts, nothing external.
+
+use std::fmt::Write;
+
+use axum::Router;
+use axum::extract::{Path, State};
+use axum::http::header;
+use axum::response::{Html, IntoResponse};
+use axum::routing::get;
+
+use super::lab_tests::test_id;
+use super::overview::escape;
+use super::queries::{self, TestReduction};
+use super::{ApiError, AppState};
+use crate::analysis::CompressionReduction;
+use crate::clock::rfc3339;
+
+fn num(x: Option<f64>, digits: usize) -> String {
+    x.filter(|v| v.is_finite()).map_or("—".to_string(), |v| format!("{v:.digits$}"))
+}
+
+fn sci(x: Option<f64>) -> String {
+    x.filter(|v| v.is_finite()).map_or("—".to_string(), |v| format!("{v:.3e}"))
+}
+
+/// The e–log σ′ curve as an SVG drawn here: points joined in order, decades on the x axis.
+pub(crate) fn e_log_svg(c: &CompressionReduction) -> String {
+    let pts: Vec<(f64, f64)> =
+        c.points.iter().filter(|p| p.stress_kpa > 0.0).map(|p| (p.stress_kpa.log10(), p.e)).collect();
+    if pts.is_empty() {
+        return String::new();
+    }
+    let (w, h, left, right, top, bottom) = (640.0, 360.0, 60.0, 20.0, 20.0, 44.0);
+    let x_lo = pts.iter().map(|p| p.0).fold(f64::INFINITY, f64::min).floor();
+    let x_hi = pts.iter().map(|p| p.0).fold(f64::NEG_INFINITY, f64::max).ceil().max(x_lo + 1.0);
+    let e_lo = pts.iter().map(|p| p.1).fold(c.e0, f64::min);
+    let e_hi = pts.iter().map(|p| p.1).fold(c.e0, f64::max);
+    let pad = ((e_hi - e_lo) * 0.08).max(0.01);
+    let (y_lo, y_hi) = (e_lo - pad, e_hi + pad);
+    let sx = |x: f64| left + (x - x_lo) / (x_hi - x_lo) * (w - left - right);
+    let sy = |y: f64| top + (y_hi - y) / (y_hi - y_lo) * (h - top - bottom);
+    let mut svg = format!(
+        "<svg class=\"plot\" viewBox=\"0 0 {w} {h}\" role=\"img\" aria-label=\"void ratio against effective stress, log scale\" xmlns=\"http://www.w3.org/2000/svg\">"
+    );
+    let _ = write!(
+        svg,
+        "<rect x=\"{left}\" y=\"{top}\" width=\"{}\" height=\"{}\" fill=\"none\" stroke=\"#888\"/>",
+        w - left - right,
+        h - top - bottom
+    );
+    let mut decade = x_lo;
+    while decade <= x_hi + 1e-9 {
+        let x = sx(decade);
+        let _ = write!(
+            svg,
+            "<line x1=\"{x:.1}\" y1=\"{top}\" x2=\"{x:.1}\" y2=\"{}\" stroke=\"#ddd\"/><text x=\"{x:.1}\" y=\"{}\" font-size=\"11\" text-anchor=\"middle\">{}</text>",
+            h - bottom,
+            h - bottom + 14.0,
+            10f64.powf(decade)
+        );
+        decade += 1.0;
+    }
+    for k in 0..=4 {
+        let e = y_lo + (y_hi - y_lo) * f64::from(k) / 4.0;
+        let _ = write!(
+            svg,
+            "<text x=\"{}\" y=\"{:.1}\" font-size=\"11\" text-anchor=\"end\">{e:.3}</text>",
+            left - 6.0,
+            sy(e) + 4.0
+        );
+    }
+    let path: Vec<String> = pts.iter().map(|&(x, y)| format!("{:.1},{:.1}", sx(x), sy(y))).collect();
+    let _ =
+        write!(svg, "<polyline points=\"{}\" fill=\"none\" stroke=\"#2b5d8a\" stroke-width=\"1.6\"/>", path.join(" "));
+    for &(x, y) in &pts {
+        let _ = write!(svg, "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"3\" fill=\"#2b5d8a\"/>", sx(x), sy(y));
+    }
+    if let Some(p) = &c.sigma_p_casagrande
+        && p.sigma_p_kpa > 0.0
+    {
+        let x = sx(p.sigma_p_kpa.log10().clamp(x_lo, x_hi));
+        let _ = write!(
+            svg,
+            "<line x1=\"{x:.1}\" y1=\"{top}\" x2=\"{x:.1}\" y2=\"{}\" stroke=\"#9b2c2c\" stroke-dasharray=\"4 3\"/><text x=\"{:.1}\" y=\"{}\" font-size=\"11\" fill=\"#9b2c2c\">σ′p</text>",
+            h - bottom,
+            x + 3.0,
+            top + 12.0
+        );
+    }
+    let _ = write!(
+        svg,
+        "<text x=\"{}\" y=\"{}\" font-size=\"12\" text-anchor=\"middle\">effective vertical stress σ′, kPa (log scale)</text><text x=\"14\" y=\"{}\" font-size=\"12\" transform=\"rotate(-90 14 {})\" text-anchor=\"middle\">void ratio e</text></svg>",
+        (left + w - right) / 2.0,
+        h - 8.0,
+        h / 2.0,
+        h / 2.0
+    );
+    svg
+}
+
+pub(crate) fn render(r: &TestReduction, now_us: i64) -> String {
+    let t = &r.test;
+    let mut html = String::new();
+    let _ = write!(
+        html,
+        "<!doctype html><html lang=\"en\"><head><meta charset=\"utf-8\"><meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\
+<title>Test {} — {}</title><style>\
+body{{font-family:system-ui,sans-serif;margin:1.5rem;color:#1d2a30}}table{{border-collapse:collapse;margin:.5rem 0 1rem}}\
+td,th{{padding:.25rem .5rem;border:1px solid #c9c4b7;text-align:right;font-variant-numeric:tabular-nums}}th{{background:#efece4}}\
+td.l,th.l{{text-align:left}}.plot{{max-width:640px;width:100%}}.caution{{border:1px solid #c9a13b;background:#fff8e0;padding:.5rem .8rem}}\
+@media print{{body{{margin:0;font-size:10pt}}.noprint{{display:none}}h2{{page-break-after:avoid}}table{{page-break-inside:avoid}}}}\
+</style></head><body>",
+        t.id,
+        escape(&t.specimen)
+    );
+    let _ = write!(
+        html,
+        "<h1>Consolidation test {} — specimen {}</h1><p class=\"noprint\"><a href=\"/api/tests/{}/increments.csv\">increments.csv</a> · <a href=\"/api/tests/{}/compression.csv\">e–σ′ table.csv</a></p>",
+        t.id,
+        escape(&t.specimen),
+        t.id,
+        t.id
+    );
+    html += "<h2>Specimen</h2><table>";
+    let mut row = |k: &str, v: String| {
+        let _ = write!(html, "<tr><th class=\"l\">{k}</th><td class=\"l\">{v}</td></tr>");
+    };
+    row("Frame", escape(&t.frame));
+    row("Description", escape(&t.description));
+    row("Initial height H0", format!("{:.3} mm", t.height_mm));
+    row("Ring diameter", format!("{:.2} mm", t.diameter_mm));
+    row("Dry mass", t.dry_mass_g.map_or("—".into(), |m| format!("{m:.2} g")));
+    row("Specific gravity Gs", num(t.specific_gravity, 3));
+    row("Initial water content", t.initial_water_content.map_or("—".into(), |w| format!("{:.1} %", w * 100.0)));
+    row("Final water content", t.final_water_content.map_or("—".into(), |w| format!("{:.1} %", w * 100.0)));
+    row("Seating stress", t.seating_kpa.map_or("—".into(), |s| format!("{s:.1} kPa")));
+    if let Some(p) = &r.phase {
+        row("Height of solids Hs", format!("{:.3} mm", p.solids_height_mm));
+        row("Initial void ratio e0", format!("{:.3}", p.e0));
+        row("Dry density", format!("{:.3} Mg/m³", p.dry_density_mg_per_m3));
+    }
+    row("Started", escape(&t.started_at));
+    row("Finished", t.finished_at.as_deref().map_or("running".into(), escape));
+    html += "</table>";
+
+    html += "<h2>Increments</h2><table><tr><th>#</th><th>σ′ kPa</th><th>settlement mm</th><th>at end of primary mm</th>\
+<th>t50 min</th><th>t90 min</th><th>cv (√t) mm²/min</th><th>cv (log t) mm²/min</th><th>Cα</th><th class=\"l\">flags</th></tr>";
+    for i in &r.increments {
+        let _ = write!(
+            html,
+            "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td class=\"l\">{}</td></tr>",
+            i.row.seq,
+            num(Some(i.row.stress_kpa), 1),
+            num(i.settlement_mm, 3),
+            num(i.settlement_eop_mm, 3),
+            num(i.t50_min, 2),
+            num(i.t90_min, 2),
+            num(i.cv_taylor_mm2_per_min, 3),
+            num(i.cv_casagrande_mm2_per_min, 3),
+            sci(i.c_alpha_strain),
+            escape(&i.flags.join(", "))
+        );
+    }
+    html += "</table>";
+
+    html += "<h2>Void ratio and effective stress</h2>";
+    match &r.compression {
+        None => {
+            let _ = write!(
+                html,
+                "<p>No e–log σ′ curve yet: {}.</p>",
+                escape(r.compression_unavailable.as_deref().unwrap_or("no data"))
+            );
+        }
+        Some(c) => {
+            html += &e_log_svg(c);
+            html += "<table><tr><th>σ′ kPa</th><th class=\"l\">branch</th><th>e</th><th>strain</th><th>mv 1/kPa</th><th>k m/s</th></tr>";
+            for p in &c.points {
+                let branch =
+                    serde_json::to_value(p.branch).ok().and_then(|v| v.as_str().map(String::from)).unwrap_or_default();
+                let _ = write!(
+                    html,
+                    "<tr><td>{}</td><td class=\"l\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+                    num(Some(p.stress_kpa), 1),
+                    escape(&branch),
+                    num(Some(p.e), 4),
+                    num(Some(p.strain), 4),
+                    sci(p.mv_per_kpa),
+                    sci(p.k_m_per_s)
+                );
+            }
+            html += "</table><h2>Parameters</h2><table>";
+            let mut row = |k: &str, v: String, how: &str| {
+                let _ = write!(html, "<tr><th class=\"l\">{k}</th><td>{v}</td><td class=\"l\">{how}</td></tr>");
+            };
+            row("e0", num(Some(c.e0), 3), "from H0 and the height of solids Hs = Ms/(Gs·ρw·A)");
+            row(
+                "Cc",
+                num(c.cc.as_ref().map(|l| l.index), 3),
+                "slope of a straight line fitted to the highest loading points (virgin branch)",
+            );
+            row("Cr", num(c.cr.as_ref().map(|l| l.index), 3), "slope of the unload–reload branch");
+            row(
+                "σ′p",
+                c.sigma_p_casagrande.as_ref().map_or("—".into(), |p| format!("{:.0} kPa", p.sigma_p_kpa)),
+                "Casagrande's construction (maximum curvature, bisector, virgin line)",
+            );
+            row(
+                "σ′p",
+                c.sigma_p_work.as_ref().map_or("—".into(), |p| format!("{:.0} kPa", p.sigma_p_kpa)),
+                "strain-energy (work) method",
+            );
+            html += "</table>";
+            if !c.flags.is_empty() {
+                html += "<p>Remarks: ";
+                html += &c.flags.iter().map(|f| escape(&f.to_string())).collect::<Vec<_>>().join("; ");
+                html += "</p>";
+            }
+        }
+    }
+    if !r.apparatus_corrected {
+        html += "<p>Settlements are gauge readings from the test's zero, not corrected for apparatus deflection.</p>";
+    }
+    let _ = write!(
+        html,
+        "<div class=\"caution\"><p><strong>Cautions.</strong> These results are proposals for a qualified engineer to review. \
+Follow the governing standard and local codes. oedolog never changes a load on a dead-weight frame: every load is put on by a person.</p></div>\
+<p><small>Printed from oedolog {} at {}.</small></p></body></html>",
+        env!("CARGO_PKG_VERSION"),
+        rfc3339(now_us)
+    );
+    html
+}
+
+async fn report(State(state): State<AppState>, Path(id): Path<String>) -> Result<impl IntoResponse, ApiError> {
+    let id = test_id(&id)?;
+    let now = state.clock.now_us();
+    let reduced = state.read(move |conn| queries::reduce_test(conn, id, now)).await?;
+    Ok(([(header::CACHE_CONTROL, "no-store")], Html(render(&reduced, now))))
+}
+
+pub(super) fn router() -> Router<AppState> {
+    Router::new().route("/tests/{id}/report", get(report))
+}

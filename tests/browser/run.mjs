@@ -1,0 +1,282 @@
+// Browser suite: real Chromium (Debian's) against the running demo. Asserts on what the pages expose
+// (window.oedolog, data-* attributes), never on pixels; saves screenshots for a person to look at.
+// Usage: node run.mjs [path/to/oedolog]   (default: target/debug/oedolog)
+import fs from "node:fs";
+import path from "node:path";
+import { openBrowser, repoRoot, startDemo } from "./demo.mjs";
+
+const binary = path.resolve(process.argv[2] || path.join(repoRoot, "target/debug/oedolog"));
+const shots = path.join(repoRoot, "target/screenshots");
+fs.mkdirSync(shots, { recursive: true });
+const STATES = ["offline", "idle", "seating", "armed", "primary", "ready", "finished"];
+const VIEWER = { username: "vera", password: "viewer-token-3f9a27c1d4" };
+const OPERATOR = { username: "otto", password: "operator-token-8b41e6c0a2" };
+const AUTH_CONFIG = `[http]
+[[http.user]]
+name = "${VIEWER.username}"
+role = "viewer"
+token = "${VIEWER.password}"
+
+[[http.user]]
+name = "${OPERATOR.username}"
+role = "operator"
+token = "${OPERATOR.password}"
+`;
+
+const results = [];
+class Pending extends Error {}
+function check(cond, message) { if (!cond) throw new Error(message); }
+
+async function step(name, fn, timeoutMs = 45000) {
+  const started = Date.now();
+  let timer;
+  try {
+    await Promise.race([fn(), new Promise((_, reject) => { timer = setTimeout(() => reject(new Error("timed out after " + timeoutMs + " ms")), timeoutMs); })]);
+    results.push({ name, result: "ok", ms: Date.now() - started });
+  } catch (e) {
+    results.push({ name, result: e instanceof Pending ? "PENDING" : "FAILED", ms: Date.now() - started, why: e.message });
+  } finally { clearTimeout(timer); }
+}
+
+// Pages report their own errors; any uncaught one fails the suite.
+const pageErrors = [];
+function watch(page, label) {
+  page.on("pageerror", (e) => pageErrors.push(label + ": " + e.message));
+  return page;
+}
+
+// The page's own files (document, scripts, styles), uncompressed; API replies are data, not weight.
+const pageWeight = (page) => page.evaluate(() => {
+  const nav = performance.getEntriesByType("navigation")[0];
+  const files = performance.getEntriesByType("resource").filter((r) => r.initiatorType === "script" || r.initiatorType === "link" || r.initiatorType === "css");
+  return nav.decodedBodySize + files.reduce((sum, r) => sum + r.decodedBodySize, 0);
+});
+
+const api = (page, method, url, body) => page.evaluate(async ([m, u, b]) => {
+  const r = await fetch(u, { method: m, headers: b === undefined ? {} : { "Content-Type": "application/json" }, body: b === undefined ? undefined : JSON.stringify(b) });
+  let data = null; try { data = await r.json(); } catch (e) { /* not JSON */ }
+  return { status: r.status, data };
+}, [method, url, body]);
+
+if (!fs.existsSync(binary)) { console.error("browser suite: no daemon binary at " + binary + " (cargo build --bins first)"); process.exit(1); }
+
+const demo = await startDemo({ binary, label: "demo" });
+console.log("browser suite: demo at " + demo.base);
+const context = await openBrowser();
+const page = watch(await context.newPage(), "open demo");
+let chosen = null; // the frame the operator flow takes over
+let finishedTest = null; // the demo test it finished, which has load steps
+
+try {
+  await step("overview lists every frame", async () => {
+    await page.goto(demo.base + "/");
+    await page.waitForFunction(() => document.querySelectorAll(".tile[data-frame-id]").length === 4, null, { timeout: 20000 });
+    const tiles = await page.$$eval(".tile[data-frame-id]", (els) => els.map((e) => ({ id: e.dataset.frameId, state: e.dataset.state, urgency: Number(e.dataset.urgency), word: e.querySelector(".state-word").textContent })));
+    const ids = tiles.map((t) => t.id).sort();
+    check(JSON.stringify(ids) === JSON.stringify(["F1", "F2", "F3", "F4"]), "frames on the board: " + ids.join(","));
+    for (const t of tiles) { check(STATES.includes(t.state), t.id + " state " + t.state); check(t.word.trim().length > 1, t.id + " has no state word"); }
+    for (let i = 1; i < tiles.length; i++) check(tiles[i - 1].urgency <= tiles[i].urgency, "frames needing a person are not first: " + JSON.stringify(tiles));
+    const sim = await page.textContent("#sim-banner").catch(() => null);
+    check(sim && /simulated/i.test(sim), "no simulated-time banner");
+    const bytes = await pageWeight(page);
+    check(bytes > 1000 && bytes <= 300 * 1024, "overview page weight " + bytes + " bytes");
+    console.log("  overview weight " + bytes + " bytes");
+  });
+
+  await step("the board's order and alarms follow the rules", async () => {
+    // Synthetic frames through the page's own ordering: people-needed first (ready, re-seat, load off,
+    // offline), then armed, settling by soonest end, seating, free.
+    const order = await page.evaluate(() => {
+      const f = (id, state, extra) => Object.assign({ id, name: id, state, bus_up: true, reading_age_s: 5, increment_elapsed_s: 600, last_reading_at: "2026-01-01T00:00:00Z", test: state === "idle" ? null : { onset_us: 1e15, increment: 2 }, watch: null }, extra);
+      const frames = [
+        f("idle", "idle"), f("seat", "seating"), f("late", "primary", { watch: { ready_eta_us: 1e15 + 9e9 } }),
+        f("soon", "primary", { watch: { ready_eta_us: 1e15 + 7e8 } }), f("armed", "armed"), f("off", "offline"),
+        f("loadoff", "primary", { watch: { load_off: true } }), f("reseat", "primary", { watch: { pending_reseat: { at_us: 1e15, jump_mm: -0.4 } } }), f("ready", "ready"),
+      ];
+      const stale = window.oedolog.alarms(f("x", "primary", { reading_age_s: 900 })).map((a) => a.code);
+      const fresh = window.oedolog.alarms(f("y", "primary")).map((a) => a.code);
+      return { order: window.oedolog.sortFrames(frames).map((x) => x.id), stale, fresh };
+    });
+    check(order.order.join(" ") === "ready reseat loadoff off armed soon late seat idle", "order " + order.order.join(" "));
+    check(order.stale.includes("stale") && order.fresh.length === 0, "stale alarm " + JSON.stringify(order));
+  });
+
+  await step("overview is live without reloading", async () => {
+    const first = await page.evaluate(() => window.oedolog.link.lastSnapshotAt);
+    await page.waitForFunction((t) => window.oedolog.link.lastSnapshotAt > t, first, { timeout: 15000 });
+    const link = await page.evaluate(() => window.oedolog.link.state);
+    check(link === "live", "the page is not on the event stream (link state " + link + ")");
+  });
+
+  await page.setViewportSize({ width: 1440, height: 900 });
+  await page.screenshot({ path: path.join(shots, "overview-wide.png"), fullPage: true });
+  await page.setViewportSize({ width: 390, height: 844 });
+  await page.waitForTimeout(300); // a layout pass after the resize, for the screenshot only
+  await page.screenshot({ path: path.join(shots, "overview-phone.png"), fullPage: true });
+  await page.setViewportSize({ width: 1440, height: 900 });
+
+  await step("frame page charts hold data", async () => {
+    // A frame with a finished step, so the e–σ′ curve has points too.
+    await page.waitForFunction(() => window.oedolog.frames.some((f) => f.test && f.test.increment >= 3), null, { timeout: 30000 });
+    const id = await page.evaluate(() => window.oedolog.frames.filter((f) => f.test && f.test.increment >= 3).sort((a, b) => b.test.increment - a.test.increment)[0].id);
+    await page.goto(demo.base + "/frame.html?id=" + id);
+    await page.waitForFunction(() => {
+      const c = window.oedolog.charts;
+      return c.logt && c.sqrt && c.compression && c.logt.data[0].length > 5 && c.sqrt.data[0].length > 5 && c.compression.data[0].length >= 2;
+    }, null, { timeout: 30000 });
+    const info = await page.evaluate(() => ({
+      logt: window.oedolog.charts.logt.data[1].filter((v) => v != null).length,
+      sqrt: window.oedolog.charts.sqrt.data[1].filter((v) => v != null).length,
+      comp: window.oedolog.charts.compression.data[0].length,
+      logtLines: (window.oedolog.constructions.logt || []).length,
+      sqrtLines: (window.oedolog.constructions.sqrt || []).length,
+      rows: document.querySelectorAll("#inc-table tbody tr[data-seq]").length,
+      head: document.getElementById("head").dataset.frameId,
+    }));
+    check(info.head === id, "frame page shows " + info.head + ", not " + id);
+    check(info.logt > 5 && info.sqrt > 5, "time curves without readings: " + JSON.stringify(info));
+    check(info.rows >= 2, "load-step table rows: " + info.rows);
+    const bytes = await pageWeight(page);
+    check(bytes > 50000 && bytes <= 300 * 1024, "frame page weight " + bytes + " bytes");
+    console.log("  frame page weight " + bytes + " bytes");
+    console.log("  frame " + id + ": " + JSON.stringify(info));
+    // An earlier step's curve loads from the picker.
+    await page.click('#seq-pick button[data-seq="1"]');
+    await page.waitForFunction(() => window.oedolog.step && window.oedolog.step.seq === 1 && window.oedolog.charts.logt.data[0].length > 5, null, { timeout: 15000 });
+  });
+  await page.screenshot({ path: path.join(shots, "frame-wide.png"), fullPage: true });
+  await page.setViewportSize({ width: 390, height: 844 });
+  await page.waitForTimeout(400);
+  await page.screenshot({ path: path.join(shots, "frame-phone.png"), fullPage: true });
+  await page.setViewportSize({ width: 1440, height: 900 });
+
+  await step("operator finishes a test, starts one with the form, arms a load", async () => {
+    chosen = await page.evaluate(() => window.oedolog.frame.id);
+    finishedTest = await page.evaluate(() => window.oedolog.frame.test.test_id);
+    await page.goto(demo.base + "/frame.html?id=" + chosen);
+    await page.waitForSelector("#finish-form [data-role=ask]");
+    await page.click("#finish-form [data-role=ask]");
+    await page.click("#finish-form button[type=submit]");
+    await page.waitForSelector("#start-form", { timeout: 15000 });
+    // A height out of range: the daemon's message must sit next to that field.
+    await page.fill("#f-specimen", "BRW-07-A");
+    await page.fill("#f-description", "grey silty clay, browser test");
+    await page.fill("#f-height_mm", "1");
+    await page.fill("#f-diameter_mm", "50");
+    await page.fill("#f-dry_mass_g", "60");
+    await page.fill("#f-specific_gravity", "2.68");
+    await page.fill("#f-seating_kpa", "5");
+    await page.click("#start-form button[type=submit]");
+    await page.waitForFunction(() => document.querySelector("#start-form").dataset.status, null, { timeout: 10000 });
+    const bad = await page.evaluate(() => ({ status: document.querySelector("#start-form").dataset.status, err: document.querySelector('#start-form [data-err-for="height_mm"]').textContent, invalid: document.querySelector("#f-height_mm").getAttribute("aria-invalid") }));
+    check(bad.status === "400" || bad.status === "422", "a 1 mm specimen was not refused: " + JSON.stringify(bad));
+    check(bad.err.length > 3 && bad.invalid === "true", "the refusal is not shown next to the height field: " + JSON.stringify(bad));
+    await page.screenshot({ path: path.join(shots, "start-form-refused.png"), fullPage: true });
+    await page.fill("#f-height_mm", "19.5");
+    await page.click("#start-form button[type=submit]");
+    await page.waitForSelector("#arm-form", { timeout: 15000 });
+    const started = await page.evaluate(() => window.oedolog.frame.test);
+    check(started && started.specimen === "BRW-07-A", "the new test is not on the frame: " + JSON.stringify(started));
+    // Arming with nothing filled in is refused with a message on the page, and nothing is armed.
+    await page.click("#arm-form button[type=submit]");
+    await page.waitForFunction(() => document.querySelector("#arm-form").dataset.status, null, { timeout: 10000 });
+    const empty = await page.evaluate(() => ({ status: document.querySelector("#arm-form").dataset.status, text: [...document.querySelectorAll("#arm-form .err, #arm-form [data-role=msg]")].map((e) => e.textContent).join(" ").trim() }));
+    check((empty.status === "400" || empty.status === "422") && empty.text.length > 3, "an empty arm was not refused visibly: " + JSON.stringify(empty));
+    await page.fill("#f-stress_kpa", "25");
+    await page.click("#arm-form button[type=submit]");
+    await page.waitForFunction(() => document.getElementById("head").dataset.state === "armed", null, { timeout: 15000 });
+    const armed = await page.evaluate(() => ({ stress: window.oedolog.frame.test.stress_kpa, safety: document.querySelector("#actions [data-role=safety]")?.textContent || "" }));
+    check(armed.stress === 25, "armed stress " + armed.stress);
+    check(/never changes the load/i.test(armed.safety), "no caution beside the applied action");
+    const tile = await api(page, "GET", "/api/frames");
+    check(tile.data.find((f) => f.id === chosen).state === "armed", "the API does not show the frame armed");
+  }, 60000);
+
+  await step("a note goes into the frame's journal", async () => {
+    await page.fill("#note-text", "browser test: ring checked");
+    await page.click("#note-form button[type=submit]");
+    await page.waitForFunction(() => document.querySelector("#note-form").dataset.status, null, { timeout: 10000 });
+    const status = await page.evaluate(() => document.querySelector("#note-form").dataset.status);
+    check(status === "201" || status === "200", "note status " + status);
+    await page.waitForFunction(() => [...document.querySelectorAll("#journal li")].some((li) => li.textContent.includes("ring checked")), null, { timeout: 15000 });
+  });
+
+  await step("the report page renders", async () => {
+    const id = await page.evaluate(() => window.oedolog.frame.test.test_id);
+    const link = await page.getAttribute("#report-link a[data-role=report]", "href");
+    check(link === "/tests/" + id + "/report", "report link " + link);
+    const report = watch(await context.newPage(), "report");
+    const reply = await report.goto(demo.base + link);
+    check(reply.status() === 200, "report status " + reply.status());
+    const text = await report.textContent("body");
+    check(text.includes("BRW-07-A"), "the report does not name the specimen");
+    check(/qualified engineer/i.test(text), "the report has no caution");
+    // The finished demo test has load steps: its report carries a row per step.
+    check(finishedTest, "no finished test to report on");
+    const full = await report.goto(demo.base + "/tests/" + finishedTest + "/report");
+    check(full.status() === 200, "report of test " + finishedTest + ": " + full.status());
+    const rows = await report.$$eval("table tr", (trs) => trs.length);
+    check(rows >= 5, "the report of a test with load steps has " + rows + " table rows");
+    await report.emulateMedia({ media: "print" });
+    await report.screenshot({ path: path.join(shots, "report-print.png"), fullPage: true });
+    await report.close();
+  });
+
+  await step("a lost connection is shown", async () => {
+    await page.goto(demo.base + "/");
+    await page.waitForFunction(() => window.oedolog.link.state === "live", null, { timeout: 15000 });
+    await demo.stop();
+    await page.waitForFunction(() => document.body.dataset.link === "lost" && document.getElementById("link-banner"), null, { timeout: 20000 });
+  });
+} finally {
+  await context.close();
+  await demo.stop();
+}
+
+// ---- access: a viewer reads and cannot act -----------------------------------------------------------
+await step("a viewer cannot act; an operator can", async () => {
+  let authDemo;
+  try {
+    authDemo = await startDemo({ binary, config: AUTH_CONFIG, label: "demo with users" });
+  } catch (e) {
+    throw new Pending("`oedolog demo --config` with [[http.user]] did not start: " + e.message.split("\n")[0]);
+  }
+  const viewer = await openBrowser({ httpCredentials: VIEWER });
+  const operator = await openBrowser({ httpCredentials: OPERATOR });
+  try {
+    const anon = await fetch(authDemo.base + "/api/frames");
+    if (anon.status === 200) throw new Pending("the demo ignores [[http.user]]: /api/frames answers 200 without credentials");
+    check(anon.status === 401, "no credentials: " + anon.status);
+    const v = watch(await viewer.newPage(), "viewer");
+    await v.goto(authDemo.base + "/frame.html?id=F1");
+    await v.waitForSelector("#note-form");
+    await v.waitForFunction(() => window.oedolog.frame, null, { timeout: 15000 });
+    await v.fill("#note-text", "a viewer tries to write");
+    await v.click("#note-form button[type=submit]");
+    await v.waitForFunction(() => document.querySelector("#note-form").dataset.status, null, { timeout: 10000 });
+    const shown = await v.evaluate(() => ({ status: document.querySelector("#note-form").dataset.status, text: document.querySelector("#note-form").textContent }));
+    check(shown.status === "403", "viewer's note answered " + shown.status);
+    check(/view only/i.test(shown.text), "the page does not tell the viewer why: " + shown.text);
+    const greyed = await v.evaluate(() => document.body.dataset.readonly === "true" && [...document.querySelectorAll("#actions button")].every((b) => b.disabled));
+    check(greyed, "after the 403 the action buttons are still offered to the viewer");
+    const arm = await api(v, "POST", "/api/frames/F1/increments", { stress_kpa: 50 });
+    check(arm.status === 403, "viewer arming answered " + arm.status);
+    const o = watch(await operator.newPage(), "operator");
+    await o.goto(authDemo.base + "/frame.html?id=F1");
+    await o.waitForFunction(() => window.oedolog.frame, null, { timeout: 15000 });
+    const note = await api(o, "POST", "/api/frames/F1/notes", { text: "an operator writes" });
+    check(note.status === 201 || note.status === 200, "operator's note answered " + note.status);
+    await v.screenshot({ path: path.join(shots, "viewer-refused.png"), fullPage: true });
+  } finally {
+    await viewer.close();
+    await operator.close();
+    await authDemo.stop();
+  }
+}, 60000);
+
+await step("no page raised an error", async () => { check(pageErrors.length === 0, pageErrors.join("\n")); }, 1000);
+
+console.log("\nbrowser suite (screenshots in " + path.relative(repoRoot, shots) + "/):");
+for (const r of results) console.log("  " + r.result.padEnd(8) + " " + r.name + " (" + (r.ms / 1000).toFixed(1) + " s)" + (r.why ? "\n           " + r.why.split("\n").join("\n           ") : ""));
+const failed = results.filter((r) => r.result === "FAILED").length;
+process.exit(failed ? 1 : 0);
