@@ -499,7 +499,8 @@ struct Analysis {
     seq: i64,
     stress_kpa: f64,
     running: bool,
-    /// Where the reduction came from: `stored-readings` (the increment's readings reduced now).
+    /// Where the reduction came from: `live-watch` (the running increment, as the watch sees it, re-seats
+    /// stitched) or `stored-readings` (the increment's readings reduced now).
     source: &'static str,
     reduction: Option<IncrementReduction>,
     constructions: Option<Constructions>,
@@ -519,23 +520,29 @@ async fn analysis(
     let seq = seq_of(&seq)?;
     let key = state.lab.key(index);
     let now = state.clock.now_us();
+    let live = state.hub.reduction(index).filter(|(s, _)| *s == seq).map(|(_, r)| r);
     let out = state
         .read(move |conn| {
             let test = frame_test(conn, key, &id)?;
             let inc = queries::increment(conn, test.id, seq)?;
             let running = test.finished_at.is_none() && inc.ended_us.is_none();
-            let (reduction, unavailable) = match queries::reduce_stored(conn, &test, &inc, now) {
-                Ok(Some((_, r))) => (Some(r), None),
-                Ok(None) => (None, Some("no readings after the onset yet".to_string())),
-                Err(ApiError::Conflict(why)) => (None, Some(why)),
-                Err(e) => return Err(e),
+            let live = live.filter(|_| running);
+            let source = if live.is_some() { "live-watch" } else { "stored-readings" };
+            let (reduction, unavailable) = match live {
+                Some(r) => (Some(r), None),
+                None => match queries::reduce_stored(conn, &test, &inc, now) {
+                    Ok(Some((_, r))) => (Some(r), None),
+                    Ok(None) => (None, Some("no readings after the onset yet".to_string())),
+                    Err(ApiError::Conflict(why)) => (None, Some(why)),
+                    Err(e) => return Err(e),
+                },
             };
             Ok(Analysis {
                 test_id: test.id,
                 seq,
                 stress_kpa: inc.stress_kpa,
                 running,
-                source: "stored-readings",
+                source,
                 constructions: reduction.as_ref().map(constructions),
                 reduction,
                 unavailable,

@@ -274,6 +274,14 @@ impl Hub {
         Ok(())
     }
 
+    /// The watch's latest reduction of frame `index`'s running increment: (its number, the reduction).
+    /// It includes confirmed re-seat stitching, which a reduction of the stored readings would not.
+    pub fn reduction(&self, index: usize) -> Option<(i64, crate::analysis::IncrementReduction)> {
+        let state = self.lock();
+        let watch = state.watches.get(index)?;
+        Some((watch.status().seq?, watch.reduction()?.clone()))
+    }
+
     /// Every frame's phase and status.
     pub fn status(&self) -> Vec<(Phase, WatchStatus)> {
         self.lock().watches.iter().map(|w| (w.phase(), w.status())).collect()
