@@ -164,33 +164,11 @@ pub(crate) fn increment(conn: &Connection, test_id: i64, seq: i64) -> Result<Inc
         .ok_or_else(|| ApiError::NotFound(format!("test {test_id} has no increment {seq}")))
 }
 
-/// One poll: (at_us, displacement mm, load kN).
-pub(crate) type Poll = (i64, Option<f64>, Option<f64>);
+pub(crate) use crate::store::Poll;
 
 /// Displacement and load polls of a frame in `[from_us, to_us]`, in time order.
 pub(crate) fn polls(conn: &Connection, frame_key: i64, from_us: i64, to_us: i64) -> Result<Vec<Poll>, ApiError> {
-    let mut statement = conn.prepare_cached(
-        "SELECT at_us, channel, value FROM readings WHERE frame_key = ?1 AND channel IN (0, 1) AND at_us >= ?2 AND at_us <= ?3
-         ORDER BY at_us, channel",
-    )?;
-    let mut out: Vec<Poll> = Vec::new();
-    let rows = statement.query_map(params![frame_key, from_us, to_us], |r| {
-        Ok((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?, r.get::<_, f64>(2)?))
-    })?;
-    for row in rows {
-        let (at, channel, value) = row?;
-        if out.last().is_none_or(|l| l.0 != at) {
-            out.push((at, None, None));
-        }
-        if let Some(last) = out.last_mut() {
-            if channel == 0 {
-                last.1 = Some(value);
-            } else {
-                last.2 = Some(value);
-            }
-        }
-    }
-    Ok(out)
+    Ok(crate::store::polls(conn, frame_key, from_us, to_us)?)
 }
 
 fn displacement_at_or_before(conn: &Connection, key: i64, at_us: i64) -> Result<Option<f64>, ApiError> {

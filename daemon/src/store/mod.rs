@@ -202,6 +202,50 @@ pub fn latest_reading(
         .optional()?)
 }
 
+/// One poll as stored: (at_us, displacement mm, load kN).
+pub type Poll = (i64, Option<f64>, Option<f64>);
+
+/// A frame's displacement and load readings with `from_us ≤ at_us ≤ to_us`, joined by instant, in time
+/// order. Two range scans in key order (frame, channel, at_us) merged here: no temporary sort in SQLite.
+pub fn polls(conn: &Connection, frame_key: i64, from_us: i64, to_us: i64) -> Result<Vec<Poll>, StoreError> {
+    let channel = |kind: ChannelKind| -> Result<Vec<(i64, f64)>, StoreError> {
+        let mut statement = conn.prepare_cached(
+            "SELECT at_us, value FROM readings WHERE frame_key = ?1 AND channel = ?2 AND at_us BETWEEN ?3 AND ?4 ORDER BY at_us",
+        )?;
+        let rows =
+            statement.query_map(params![frame_key, kind.code(), from_us, to_us], |r| Ok((r.get(0)?, r.get(1)?)))?;
+        Ok(rows.collect::<Result<_, _>>()?)
+    };
+    let displacement = channel(ChannelKind::Displacement)?;
+    let load = channel(ChannelKind::Load)?;
+    let mut out = Vec::with_capacity(displacement.len().max(load.len()));
+    let (mut d, mut l) = (displacement.into_iter().peekable(), load.into_iter().peekable());
+    loop {
+        let poll = match (d.peek().copied(), l.peek().copied()) {
+            (None, None) => break,
+            (Some((at, v)), Some((lat, lv))) if at == lat => {
+                d.next();
+                l.next();
+                (at, Some(v), Some(lv))
+            }
+            (Some((at, v)), Some((lat, _))) if at < lat => {
+                d.next();
+                (at, Some(v), None)
+            }
+            (Some((at, v)), None) => {
+                d.next();
+                (at, Some(v), None)
+            }
+            (_, Some((lat, lv))) => {
+                l.next();
+                (lat, None, Some(lv))
+            }
+        };
+        out.push(poll);
+    }
+    Ok(out)
+}
+
 /// Copies the database to `dest` with SQLite's online backup API: consistent even while the daemon writes.
 pub fn backup(source: &Path, dest: &Path) -> Result<(), StoreError> {
     let from = reader(source)?;

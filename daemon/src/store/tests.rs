@@ -3,6 +3,7 @@
 use std::sync::Mutex;
 
 use super::*;
+use rusqlite::params;
 
 fn temp_db() -> (tempfile::TempDir, PathBuf) {
     let dir = tempfile::tempdir().unwrap();
@@ -148,4 +149,28 @@ fn a_job_is_answered_only_after_its_commit() {
     writer.sync().unwrap();
     let events: i64 = other.query_row("SELECT count(*) FROM events WHERE kind = 'queued'", [], |r| r.get(0)).unwrap();
     assert_eq!(events, 1, "sync waits for what was queued before it");
+}
+
+#[test]
+fn polls_join_displacement_and_load_by_instant_in_time_order() {
+    let (_dir, path) = temp_db();
+    let conn = open(&path).unwrap();
+    let key = frame_key(&conn, "F1", "F1", 0).unwrap();
+    let rows = [(0, 10, 1.0), (1, 10, 0.5), (0, 20, 1.1), (0, 30, 1.2), (1, 30, 0.6), (1, 40, 0.7), (2, 40, 20.0)];
+    for (channel, at, value) in rows {
+        conn.execute("INSERT INTO readings VALUES (?1, ?2, ?3, 0, ?4)", params![key, channel, at, value]).unwrap();
+    }
+    assert_eq!(
+        polls(&conn, key, 0, 100).unwrap(),
+        vec![(10, Some(1.0), Some(0.5)), (20, Some(1.1), None), (30, Some(1.2), Some(0.6)), (40, None, Some(0.7))]
+    );
+    assert_eq!(polls(&conn, key, 15, 30).unwrap(), vec![(20, Some(1.1), None), (30, Some(1.2), Some(0.6))]);
+    let plan: String = conn
+        .query_row(
+            "EXPLAIN QUERY PLAN SELECT at_us, value FROM readings WHERE frame_key = 1 AND channel = 0 AND at_us BETWEEN 0 AND 9 ORDER BY at_us",
+            [],
+            |r| r.get(3),
+        )
+        .unwrap();
+    assert!(!plan.contains("TEMP B-TREE"), "{plan}");
 }

@@ -44,31 +44,6 @@ pub struct Hub {
     areas_mm2: Arc<Vec<f64>>,
 }
 
-/// One poll as stored: (at_us, displacement, load).
-type Poll = (i64, Option<f64>, Option<f64>);
-
-fn load_since(conn: &Connection, key: i64, since_us: i64) -> Result<Vec<Poll>, StoreError> {
-    let mut statement = conn.prepare(
-        "SELECT at_us, channel, value FROM readings WHERE frame_key = ?1 AND channel IN (0, 1) AND at_us >= ?2 ORDER BY at_us, channel",
-    )?;
-    let mut out: Vec<Poll> = Vec::new();
-    let rows = statement
-        .query_map(params![key, since_us], |r| Ok((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?, r.get::<_, f64>(2)?)))?;
-    for row in rows {
-        let (at, channel, value) = row?;
-        if out.last().is_none_or(|l| l.0 != at) {
-            out.push((at, None, None));
-        }
-        let last = out.last_mut().expect("pushed");
-        if channel == ChannelKind::Displacement.code() {
-            last.1 = Some(value);
-        } else {
-            last.2 = Some(value);
-        }
-    }
-    Ok(out)
-}
-
 impl Hub {
     /// A hub for the configured frames (`areas_mm2[i]` = ring area of frame i), resuming every running
     /// test from the lab book and the readings since its increment's onset.
@@ -93,7 +68,11 @@ impl Hub {
                     )
                     .ok();
                 let since = t.onset_us.map_or(clock.now_us(), |onset| onset - 120_000_000);
-                let readings = if t.onset_us.is_some() { load_since(conn, lab.key(i), since)? } else { Vec::new() };
+                let readings = if t.onset_us.is_some() {
+                    crate::store::polls(conn, lab.key(i), since, i64::MAX)?
+                } else {
+                    Vec::new()
+                };
                 if t.increment == 0 {
                     watch.start_test(specimen, t.seating_kpa);
                 } else {
