@@ -249,7 +249,7 @@ fn tcp_master_reads_and_writes_a_pymodbus_tcp_server() -> Result<()> {
     stream.set_read_timeout(Some(POLL_READ))?;
     stream.set_nodelay(true)?;
     let mut link = Link { port: stream, codec: TcpMaster::new() };
-    exercise_pymodbus_server(&mut link).with_context(|| server.transcript())
+    exercise_pymodbus_server(&mut link).with_context(|| server.output_log())
 }
 
 fn open_pty_master(path: &Path) -> Result<Box<dyn serialport::SerialPort>> {
@@ -269,5 +269,5 @@ fn rtu_master_reads_and_writes_a_pymodbus_rtu_server_through_socat() -> Result<(
     let device_end = line.device_end.to_string_lossy().to_string();
     let (server, _) = start_server(&["--rtu", &device_end, "--parity", "N"], "listening on rtu ")?;
     let mut link = Link { port: open_pty_master(&line.master_end)?, codec: RtuMaster::new() };
-    exercise_pymodbus_server(&mut link).with_context(|| server.transcript())
+    exercise_pymodbus_server(&mut link).with_context(|| server.output_log())
 }

@@ -150,7 +150,7 @@ pub struct ChildGuard {
     /// Lines read but not yet taken by a wait, per stream, in order.
     pending: VecDeque<(Stream, String)>,
     /// Every line seen so far, for failure messages.
-    transcript: Vec<(Stream, String)>,
+    output_log: Vec<(Stream, String)>,
     stdout_open: bool,
     stderr_open: bool,
 }
@@ -190,7 +190,7 @@ impl ChildGuard {
             child,
             events,
             pending: VecDeque::new(),
-            transcript: Vec::new(),
+            output_log: Vec::new(),
             stdout_open: true,
             stderr_open: true,
         })
@@ -212,7 +212,7 @@ impl ChildGuard {
     fn record(&mut self, event: Event) {
         match event {
             Event::Line(stream, text) => {
-                self.transcript.push((stream, text.clone()));
+                self.output_log.push((stream, text.clone()));
                 self.pending.push_back((stream, text));
             }
             Event::Closed(Stream::Stdout) => self.stdout_open = false,
@@ -221,7 +221,7 @@ impl ChildGuard {
     }
 
     /// Waits up to `timeout` for a line on `stream` that `matches`, and returns it. Lines before it on
-    /// that stream are passed over (they stay in the transcript). Fails if the stream closes first.
+    /// that stream are passed over (they stay in the output_log). Fails if the stream closes first.
     pub fn wait_for_line(
         &mut self,
         stream: Stream,
@@ -253,7 +253,7 @@ impl ChildGuard {
                 bail!(
                     "{} closed its {stream:?} (exit: {status:?}) before the awaited line\n{}",
                     self.name,
-                    self.transcript()
+                    self.output_log()
                 );
             }
             let left = deadline.saturating_duration_since(Instant::now());
@@ -262,7 +262,7 @@ impl ChildGuard {
                 Err(RecvTimeoutError::Timeout) => bail!(
                     "{} printed no awaited line on {stream:?} within {timeout:?}\n{}",
                     self.name,
-                    self.transcript()
+                    self.output_log()
                 ),
                 Err(RecvTimeoutError::Disconnected) => {
                     self.stdout_open = false;
@@ -291,9 +291,9 @@ impl ChildGuard {
     }
 
     /// Everything the child printed so far, one line each, tagged by stream.
-    pub fn transcript(&self) -> String {
+    pub fn output_log(&self) -> String {
         let mut text = format!("--- output of {} (pid {}) ---\n", self.name, self.child.id());
-        for (stream, line) in &self.transcript {
+        for (stream, line) in &self.output_log {
             let tag = match stream {
                 Stream::Stdout => "out",
                 Stream::Stderr => "err",
@@ -312,7 +312,7 @@ impl ChildGuard {
             match self.events.recv_timeout(left) {
                 Ok(event) => self.record(event),
                 Err(RecvTimeoutError::Timeout) => {
-                    bail!("{} did not finish within {timeout:?}\n{}", self.name, self.transcript())
+                    bail!("{} did not finish within {timeout:?}\n{}", self.name, self.output_log())
                 }
                 Err(RecvTimeoutError::Disconnected) => break,
             }
@@ -328,7 +328,7 @@ impl ChildGuard {
             thread::sleep(Duration::from_millis(5));
         };
         let collect = |wanted: Stream| {
-            self.transcript.iter().filter(|(stream, _)| *stream == wanted).fold(String::new(), |mut all, (_, line)| {
+            self.output_log.iter().filter(|(stream, _)| *stream == wanted).fold(String::new(), |mut all, (_, line)| {
                 all.push_str(line);
                 all.push('\n');
                 all
@@ -379,7 +379,7 @@ pub fn pty_pair(dir: &Path) -> Result<PtyPair> {
     socat.wait_for_line(Stream::Stderr, READY_TIMEOUT, |line| line.contains("starting data transfer loop"))?;
     for link in [&device_end, &master_end] {
         if !link.exists() {
-            bail!("socat reported its ptys but {} does not exist\n{}", link.display(), socat.transcript());
+            bail!("socat reported its ptys but {} does not exist\n{}", link.display(), socat.output_log());
         }
     }
     Ok(PtyPair { device_end, master_end, _socat: socat })
@@ -463,12 +463,12 @@ mod tests {
     }
 
     #[test]
-    fn child_guard_returns_the_awaited_line_and_keeps_earlier_ones_in_the_transcript() {
+    fn child_guard_returns_the_awaited_line_and_keeps_earlier_ones_in_the_output_log() {
         let mut command = Command::new("sh");
         command.args(["-c", "echo starting; echo oops >&2; echo 'ready at 42'; read _"]);
         let (guard, line) = ChildGuard::spawn_ready("sh", command, "ready at").unwrap();
         assert_eq!(line, "ready at 42");
-        assert!(guard.transcript().contains("[out] starting"), "{}", guard.transcript());
+        assert!(guard.output_log().contains("[out] starting"), "{}", guard.output_log());
     }
 
     #[test]

@@ -8,8 +8,7 @@ use oedolog_protocol::gauge::{LineSplitter, parse_reading};
 use tokio::io::{AsyncReadExt, AsyncWriteExt};
 use tokio::time::Instant;
 
-use super::backoff::Backoff;
-use super::link::{Connector, Link};
+use super::link::{Connector, Link, Reconnect};
 use super::{MIN_REAL_POLL, PolledFrame, Sinks};
 use crate::config::LineGauge;
 
@@ -21,36 +20,13 @@ pub async fn run_bus<C: Connector>(
     mut frame: PolledFrame,
     sinks: Sinks,
 ) {
-    let mut backoff = Backoff::default();
-    let mut down_reported = false;
+    let mut reconnect = Reconnect::default();
     loop {
-        let mut link = match connector.connect().await {
-            Ok(link) => link,
-            Err(error) => {
-                if !down_reported {
-                    sinks.event(
-                        None,
-                        "bus-down",
-                        format!("bus {bus_id}: cannot open {}: {error}", connector.describe()),
-                    );
-                    down_reported = true;
-                }
-                tokio::time::sleep(backoff.next_wait()).await;
-                continue;
-            }
-        };
-        backoff.reset();
-        sinks.event(None, "bus-up", format!("bus {bus_id}: connected to {}", connector.describe()));
+        let mut link = reconnect.open(&bus_id, &mut connector, &sinks).await;
         sinks.live.update(frame.index, |f| f.bus_up = true);
         let error = serve(&mut link, &gauge, &mut frame, &sinks).await;
         sinks.live.update(frame.index, |f| f.bus_up = false);
-        sinks.event(
-            None,
-            "bus-down",
-            format!("bus {bus_id}: link to {} lost: {error}; reconnecting", connector.describe()),
-        );
-        down_reported = true;
-        tokio::time::sleep(backoff.next_wait()).await;
+        reconnect.lost(&bus_id, &connector, &sinks, &error).await;
     }
 }
 

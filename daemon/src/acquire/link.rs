@@ -119,3 +119,43 @@ impl Connector for TcpConnector {
         Ok(stream)
     }
 }
+
+/// Opens a bus's link with doubling back-off and journals the outage: `bus-down` once when it starts (or
+/// when a working link is lost), `bus-up` when the link is back. Both bus kinds use it.
+#[derive(Debug, Default)]
+pub struct Reconnect {
+    backoff: super::backoff::Backoff,
+    down_reported: bool,
+}
+
+impl Reconnect {
+    /// Opens the link, waiting and retrying for as long as it takes.
+    pub async fn open<C: Connector>(&mut self, bus_id: &str, connector: &mut C, sinks: &super::Sinks) -> C::Link {
+        loop {
+            match connector.connect().await {
+                Ok(link) => {
+                    self.backoff.reset();
+                    self.down_reported = false;
+                    sinks.event(None, "bus-up", format!("bus {bus_id}: connected to {}", connector.describe()));
+                    return link;
+                }
+                Err(error) => {
+                    if !self.down_reported {
+                        let message = format!("bus {bus_id}: cannot open {}: {error}", connector.describe());
+                        sinks.event(None, "bus-down", message);
+                        self.down_reported = true;
+                    }
+                    tokio::time::sleep(self.backoff.next_wait()).await;
+                }
+            }
+        }
+    }
+
+    /// A working link failed: journal it and wait before the next attempt.
+    pub async fn lost<C: Connector>(&mut self, bus_id: &str, connector: &C, sinks: &super::Sinks, error: &io::Error) {
+        let message = format!("bus {bus_id}: link to {} lost: {error}; reconnecting", connector.describe());
+        sinks.event(None, "bus-down", message);
+        self.down_reported = true;
+        tokio::time::sleep(self.backoff.next_wait()).await;
+    }
+}

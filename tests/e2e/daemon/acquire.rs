@@ -193,3 +193,63 @@ fn a_serial_device_that_vanishes_and_comes_back_is_reopened() {
     let ups: i64 = db.query_row("SELECT count(*) FROM events WHERE kind = 'bus-up'", [], |r| r.get(0)).unwrap();
     assert!(downs >= 1 && ups >= 2, "bus-down {downs}, bus-up {ups}");
 }
+
+#[test]
+fn a_line_output_gauge_is_read_on_request_and_its_noise_never_stored() {
+    use std::io::{Read, Write};
+    let dir = temp_dir();
+    let pty = pty_pair(dir.path()).unwrap();
+    // The gauge: answers each `?` with a reading that grows by 1 µm; every fourth answer comes after a
+    // noise line (non-UTF-8 bytes, then a line too long for any indicator).
+    let mut gauge =
+        serialport::new(pty.device_end.to_string_lossy(), 9600).timeout(Duration::from_millis(200)).open().unwrap();
+    let worker = std::thread::spawn(move || {
+        let mut buf = [0u8; 64];
+        let mut n = 0u32;
+        loop {
+            match gauge.read(&mut buf) {
+                Ok(0) => return n,
+                Ok(k) => {
+                    for _ in buf[..k].iter().filter(|b| **b == b'?') {
+                        if n % 4 == 3 {
+                            let _ = gauge.write_all(b"\xff\xfe\x80 garbage\r\n");
+                            let _ = gauge.write_all(&[b'9'; 200]);
+                            let _ = gauge.write_all(b"\r\n");
+                        }
+                        let _ = gauge.write_all(format!("  {:.3} mm\r\n", 12.0 + f64::from(n) * 0.001).as_bytes());
+                        n += 1;
+                    }
+                }
+                Err(e) if e.kind() == std::io::ErrorKind::TimedOut => {
+                    if n > 200 {
+                        return n;
+                    }
+                }
+                Err(_) => return n,
+            }
+        }
+    });
+    let mut text = config_head(dir.path());
+    text += &format!(
+        "[[bus]]\nid = \"dial\"\nkind = \"line-gauge\"\ndevice = \"{}\"\nbaud = 9600\nrequest = \"?\\r\"\ntimeout_ms = 500\n",
+        pty.master_end.display()
+    );
+    text += "[[frame]]\nid = \"G1\"\nbus = \"dial\"\nring_diameter_mm = 50.0\npoll_ms = 20\nfast_poll_ms = 20\n[frame.displacement]\nrange = [0.0, 25.4]\n";
+    let daemon = Daemon::start(&write_config(dir.path(), &text), &[]).unwrap();
+    let frames = daemon.wait_frames(Duration::from_secs(20), |f| counter(&f[0], "readings") >= 20).unwrap();
+    let shown = frames[0]["displacement_mm"].as_f64().unwrap();
+    assert!((12.0..12.3).contains(&shown), "{shown}");
+    assert!(counter(&frames[0], "bad_frames") >= 2, "noise lines are counted: {}", frames[0]);
+    wait_stored(dir.path(), 20);
+    let db = open_db(dir.path());
+    let (count, min, max): (i64, f64, f64) = db
+        .query_row("SELECT count(*), min(value), max(value) FROM readings", [], |r| {
+            Ok((r.get(0)?, r.get(1)?, r.get(2)?))
+        })
+        .unwrap();
+    assert!(count >= 20 && min >= 12.0 && max < 12.3, "only the gauge's readings are stored: {count} {min} {max}");
+    drop(daemon);
+    drop(pty);
+    let answered = worker.join().unwrap();
+    assert!(answered >= 20);
+}
