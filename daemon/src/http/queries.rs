@@ -6,9 +6,8 @@ use serde::Serialize;
 
 use super::ApiError;
 use crate::analysis::{
-    CompressionInput, CompressionParams, CompressionPoint, CompressionReduction, Drainage, IncrementParams,
-    IncrementReduction, PhaseRelations, SpecimenMeasurements, cv::Method, phase_relations, reduce_compression,
-    reduce_increment,
+    CompressionInput, CompressionParams, CompressionPoint, CompressionReduction, IncrementParams, IncrementReduction,
+    PhaseRelations, SpecimenMeasurements, cv::Method, phase_relations, reduce_compression, reduce_increment,
 };
 use crate::clock::rfc3339;
 use crate::watch::WatchParams;
@@ -224,19 +223,11 @@ pub(crate) fn stored_curve(
 
 /// The reduction parameters the live watch uses (`watch::frame`), so a stored increment reduces the same.
 fn increment_params(test: &TestRow, inc: &IncrementRow, zero: Option<f64>, d_onset: Option<f64>) -> IncrementParams {
-    let watch = WatchParams::default();
     let height_mm = match (zero, d_onset) {
         (Some(z), Some(d)) => test.height_mm - (d - z),
         _ => test.height_mm,
     };
-    let mut params = IncrementParams::with_specimen(height_mm, d_onset.unwrap_or(0.0), Drainage::Double);
-    params.gauge_resolution_mm = watch.gauge_resolution_mm;
-    params.casagrande.secondary_min_decades = watch.min_secondary_decades;
-    params.casagrande.max_secondary_slope_ratio = watch.max_secondary_slope_ratio;
-    if let Some(from) = inc.from_kpa.filter(|f| *f > 0.0) {
-        params.load_increment_ratio = Some((inc.stress_kpa - from) / from);
-    }
-    params
+    WatchParams::default().increment_params(height_mm, d_onset, inc.from_kpa.unwrap_or(0.0), inc.stress_kpa)
 }
 
 /// Reduces one stored increment; `None` before its onset or without readings.

@@ -79,6 +79,28 @@ impl Default for WatchParams {
     }
 }
 
+impl WatchParams {
+    /// The reduction parameters of an increment as the watch reduces it: double drainage from the specimen
+    /// height at the onset (`height_mm`, when the gauge read `d_onset_mm`), the watch's gauge resolution and
+    /// secondary-line rules, and the load increment ratio. The API reduces stored increments with the same.
+    pub fn increment_params(
+        &self,
+        height_mm: f64,
+        d_onset_mm: Option<f64>,
+        from_kpa: f64,
+        stress_kpa: f64,
+    ) -> IncrementParams {
+        let mut params = IncrementParams::with_specimen(height_mm, d_onset_mm.unwrap_or(0.0), Drainage::Double);
+        params.gauge_resolution_mm = self.gauge_resolution_mm;
+        params.casagrande.secondary_min_decades = self.min_secondary_decades;
+        params.casagrande.max_secondary_slope_ratio = self.max_secondary_slope_ratio;
+        if from_kpa > 0.0 {
+            params.load_increment_ratio = Some((stress_kpa - from_kpa) / from_kpa);
+        }
+        params
+    }
+}
+
 /// The frame's phase of the lifecycle (DESIGN.md states; `offline` is decided from reading age elsewhere).
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "lowercase")]
@@ -524,14 +546,8 @@ impl FrameWatch {
             (Some(s), _, _) => s.height_mm,
             _ => 20.0,
         };
-        let mut params = IncrementParams::with_specimen(height_mm, d_onset.unwrap_or(0.0), Drainage::Double);
-        params.gauge_resolution_mm = self.params.gauge_resolution_mm;
-        params.casagrande.secondary_min_decades = self.params.min_secondary_decades;
-        params.casagrande.max_secondary_slope_ratio = self.params.max_secondary_slope_ratio;
         let from_kpa = self.stress_kpa;
-        if from_kpa > 0.0 {
-            params.load_increment_ratio = Some((stress_kpa - from_kpa) / from_kpa);
-        }
+        let params = self.params.increment_params(height_mm, d_onset, from_kpa, stress_kpa);
         let mut curve = TimeCurve::new(params.bins_per_decade).expect("default bins are valid");
         if let Some(d) = d_onset {
             let _ = curve.push(0.0, d);
