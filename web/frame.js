@@ -376,8 +376,8 @@
     return [el("h3", {}, "End of the test"), form];
   }
 
-  // The daemon has no "who am I": the first 403 tells the page this account only views, and the action
-  // forms are greyed out with the reason instead of inviting more refused clicks.
+  // /api/me says at load whether this account may act (a 403 later says the same); a viewer's action
+  // forms are greyed out with the reason instead of inviting refused clicks.
   function markReadOnly() {
     if (O.readOnly) return;
     O.readOnly = true;
@@ -447,9 +447,10 @@
     while (list.children.length > 40) list.lastChild.remove();
   }
   async function loadJournal() {
-    const r = await api("GET", "/api/events?after=0&limit=1000&frame=" + encodeURIComponent(frameId));
+    // The newest 60, newest first from the daemon; fed oldest first because each one goes on top.
+    const r = await api("GET", "/api/events?order=newest&limit=60&frame=" + encodeURIComponent(frameId));
     const rows = r.ok ? (Array.isArray(r.data) ? r.data : r.data.events || []) : [];
-    addJournal(rows.slice(-60));
+    addJournal(rows.slice().reverse());
   }
 
   // ---- wiring -----------------------------------------------------------------------------------------------
@@ -483,6 +484,7 @@
   window.addEventListener("resize", () => { clearTimeout(resizeTimer); resizeTimer = setTimeout(resizeCharts, 150); });
   O.on("frames", onFrames);
   O.on("journal", (j) => addJournal([j.entry]));
+  api("GET", "/api/me").then((r) => { if (r.ok && r.data && r.data.may_act === false) markReadOnly(); });
   if (!frameId) document.getElementById("frame-name").textContent = "No frame chosen — go back to all frames";
   O.start();
 })();

@@ -146,6 +146,7 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
         store_path: store_config.path.clone(),
         frames: Arc::new(config.frames.clone()),
         users: Arc::new(config.http.users.clone()),
+        caches: Default::default(),
     };
     let app = router(state);
     tasks.push(tokio::spawn(async move {

@@ -1,4 +1,5 @@
-//! The journal: `GET /api/events?after=ID&limit=N&frame=ID`, and the live stream `GET /api/stream`
+//! The journal: `GET /api/events?after=ID&before=ID&limit=N&frame=ID&order=oldest|newest` (ids strictly
+//! between `after` and `before`; oldest first unless `order=newest`), and the live stream `GET /api/stream`
 //! (Server-Sent Events).
 //!
 //! How the stream resumes without a gap: each client gets a task with its own read-only connection that
@@ -49,11 +50,20 @@ async fn list(
     State(state): State<AppState>,
     Query(query): Query<HashMap<String, String>>,
 ) -> Result<Json<Vec<EventView>>, ApiError> {
-    only_params(&query, &["after", "limit", "frame"])?;
+    only_params(&query, &["after", "before", "limit", "frame", "order"])?;
     let after = int_param(&query, "after", 0, 0, i64::MAX)?;
+    let before = int_param(&query, "before", i64::MAX, 1, i64::MAX)?;
     let limit = int_param(&query, "limit", 100, 1, 1000)?;
+    let newest_first = match query.get("order").map(String::as_str) {
+        None | Some("oldest") => false,
+        Some("newest") => true,
+        Some(other) => {
+            return Err(ApiError::bad_query("order", format!("`{other}` is not an order"), "oldest, newest"));
+        }
+    };
     let key = frame_key(&state, &query)?;
-    Ok(Json(state.read(move |conn| queries::events(conn, after, limit, key)).await?))
+    let window = queries::EventWindow { after, before, limit, frame_key: key, newest_first };
+    Ok(Json(state.read(move |conn| queries::events_in(conn, &window)).await?))
 }
 
 /// Where a stream starts: `Last-Event-ID`, else `?after=`, else the newest event (only new ones follow).

@@ -53,8 +53,7 @@ async fn readings(
 /// The increment table of a test.
 async fn increment_table(State(state): State<AppState>, Path(id): Path<String>) -> Result<Response, ApiError> {
     let id = test_id(&id)?;
-    let now = state.clock.now_us();
-    let reduced = state.read(move |conn| queries::reduce_test(conn, id, now)).await?;
+    let reduced = state.reduce_test(id).await?;
     let mut csv = Csv::default();
     csv.header(&[
         "seq",
@@ -73,6 +72,8 @@ async fn increment_table(State(state): State<AppState>, Path(id): Path<String>) 
         "cv_casagrande_mm2_per_min",
         "c_alpha_strain",
         "flags",
+        "settlement_measured_mm",
+        "apparatus_deflection_mm",
     ]);
     let text = |s: &Option<String>| s.clone().unwrap_or_default();
     for inc in &reduced.increments {
@@ -96,6 +97,8 @@ async fn increment_table(State(state): State<AppState>, Path(id): Path<String>) 
             Cell::Number(inc.cv_casagrande_mm2_per_min),
             Cell::Number(inc.c_alpha_strain),
             Cell::Text(&flags),
+            Cell::Number(inc.settlement_measured_mm),
+            Cell::Number(inc.apparatus_deflection_mm),
         ]);
     }
     Ok(csv_response(format!("test-{id}-increments.csv"), csv.finish()))
@@ -104,8 +107,7 @@ async fn increment_table(State(state): State<AppState>, Path(id): Path<String>) 
 /// The e–σ′ table of a test.
 async fn compression_table(State(state): State<AppState>, Path(id): Path<String>) -> Result<Response, ApiError> {
     let id = test_id(&id)?;
-    let now = state.clock.now_us();
-    let reduced = state.read(move |conn| queries::reduce_test(conn, id, now)).await?;
+    let reduced = state.reduce_test(id).await?;
     let mut csv = Csv::default();
     csv.header(&[
         "stress_kpa",

@@ -5,8 +5,10 @@
 use std::time::Duration;
 
 use axum::Router;
+use axum::body::Bytes;
 use axum::extract::{Path, State};
-use axum::response::Json;
+use axum::http::header;
+use axum::response::{IntoResponse, Json};
 use axum::routing::get;
 use serde::Serialize;
 
@@ -92,8 +94,18 @@ pub(crate) fn views(state: &AppState) -> Vec<FrameView> {
         .collect()
 }
 
-async fn list(State(state): State<AppState>) -> Json<Vec<FrameView>> {
-    Json(views(&state))
+/// `GET /api/frames`: built from memory at most every [`super::cache::FRAMES_TTL`] and shared by every
+/// dashboard meanwhile (an operator action drops it at once).
+async fn list(State(state): State<AppState>) -> Result<impl IntoResponse, ApiError> {
+    let body = state.caches.frames.get_or_build(|| {
+        serde_json::to_vec(&views(&state)).map(Bytes::from).map_err(|e| format!("frames overview: {e}"))
+    });
+    json_bytes(body.map_err(ApiError::Internal)?)
+}
+
+/// A response of already serialised JSON.
+pub(crate) fn json_bytes(body: Bytes) -> Result<axum::response::Response, ApiError> {
+    Ok(([(header::CONTENT_TYPE, "application/json")], body).into_response())
 }
 
 /// How a frame loads the specimen, from its configuration.

@@ -14,11 +14,14 @@ use std::collections::HashMap;
 
 use super::auth::{Caller, actor};
 use super::body::JsonBody;
+use super::cache::IncrementStamp;
+use super::frames::json_bytes;
 use super::queries::{self, IncrementRow, Poll, TestRow};
 use super::{ApiError, AppState};
 use crate::analysis::IncrementReduction;
 use crate::clock::rfc3339;
 use crate::config::Loading;
+use axum::body::Bytes;
 
 /// Standard gravity gn = 9.80665 m/s² (3rd CGPM, 1901), for hanger masses.
 pub const STANDARD_GRAVITY_M_PER_S2: f64 = 9.806_65;
@@ -344,30 +347,39 @@ async fn readings(
     State(state): State<AppState>,
     Path((id, seq)): Path<(String, String)>,
     Query(query): Query<HashMap<String, String>>,
-) -> Result<Json<Readings>, ApiError> {
+) -> Result<axum::response::Response, ApiError> {
     only_params(&query, &["max_points"])?;
     let max_points = int_param(&query, "max_points", 500, 2, 5000)? as usize;
     let index = state.frame_index(&id)?;
     let seq = seq_of(&seq)?;
     let key = state.lab.key(index);
     let now = state.clock.now_us();
-    let out = state
+    // Read before the database: a commit after this makes the answer built now stale, never wrong.
+    let commits = state.writer.commits();
+    let caches = state.caches.clone();
+    let body = state
         .read(move |conn| {
             let test = frame_test(conn, key, &id)?;
             let inc = queries::increment(conn, test.id, seq)?;
-            let polls = increment_polls(conn, &test, &inc, now)?;
-            Ok(Readings {
-                test_id: test.id,
-                seq,
-                stress_kpa: inc.stress_kpa,
-                onset_at: inc.onset_at.clone(),
-                reading_count: polls.len(),
-                max_points,
-                points: log_time_bins(&polls, max_points),
+            let stamp = IncrementStamp::of(&inc, commits);
+            caches.readings.get_or_build(&(test.id, seq, max_points), &stamp, |_| {
+                let polls = caches.increment_polls(conn, &test, &inc, &stamp, now)?;
+                let onset = inc.onset_us.unwrap_or(0);
+                let timed: Vec<TimedPoll> = polls.iter().map(|&(at, d, l)| ((at - onset) as f64 / 6e7, d, l)).collect();
+                let out = Readings {
+                    test_id: test.id,
+                    seq,
+                    stress_kpa: inc.stress_kpa,
+                    onset_at: inc.onset_at.clone(),
+                    reading_count: timed.len(),
+                    max_points,
+                    points: log_time_bins(&timed, max_points),
+                };
+                serde_json::to_vec(&out).map(Bytes::from).map_err(|e| ApiError::Internal(format!("readings: {e}")))
             })
         })
         .await?;
-    Ok(Json(out))
+    json_bytes(body)
 }
 
 /// A straight segment to draw, in the axes of its plot.
@@ -521,6 +533,8 @@ async fn analysis(
     let key = state.lab.key(index);
     let now = state.clock.now_us();
     let live = state.hub.reduction(index).filter(|(s, _)| *s == seq).map(|(_, r)| r);
+    let commits = state.writer.commits();
+    let caches = state.caches.clone();
     let out = state
         .read(move |conn| {
             let test = frame_test(conn, key, &id)?;
@@ -530,11 +544,10 @@ async fn analysis(
             let source = if live.is_some() { "live-watch" } else { "stored-readings" };
             let (reduction, unavailable) = match live {
                 Some(r) => (Some(r), None),
-                None => match queries::reduce_stored(conn, &test, &inc, now) {
-                    Ok(Some((_, r))) => (Some(r), None),
+                None => match queries::reduce_stored_cached(conn, &caches, &test, &inc, commits, now)?.as_ref() {
+                    Ok(Some((_, r))) => (Some(r.clone()), None),
                     Ok(None) => (None, Some("no readings after the onset yet".to_string())),
-                    Err(ApiError::Conflict(why)) => (None, Some(why)),
-                    Err(e) => return Err(e),
+                    Err(why) => (None, Some(why.clone())),
                 },
             };
             Ok(Analysis {

@@ -229,8 +229,7 @@ async fn compression(
     Path(id): Path<String>,
 ) -> Result<Json<queries::TestReduction>, ApiError> {
     let id = test_id(&id)?;
-    let now = state.clock.now_us();
-    Ok(Json(state.read(move |conn| queries::reduce_test(conn, id, now)).await?))
+    Ok(Json(state.reduce_test(id).await?))
 }
 
 pub(super) fn router() -> Router<AppState> {

@@ -7,6 +7,7 @@
 
 mod auth;
 mod body;
+mod cache;
 mod csv;
 mod error;
 mod events;
@@ -40,6 +41,7 @@ use crate::store::Writer;
 use crate::watch::Hub;
 
 pub use auth::{Caller, constant_time_eq};
+pub use cache::Caches;
 pub use error::ApiError;
 pub use frames::{FrameView, frame_state};
 pub use increments::{STANDARD_GRAVITY_M_PER_S2, hanger_stress_kpa};
@@ -67,6 +69,32 @@ pub struct AppState {
     pub frames: Arc<Vec<Frame>>,
     /// `[[http.user]]`; empty: no authentication (the listen address is then loopback only).
     pub users: Arc<Vec<User>>,
+    /// Answers kept while what they were built from is unchanged.
+    pub caches: Arc<Caches>,
+}
+
+thread_local! {
+    /// Each blocking-pool thread keeps its read-only connection (and its prepared statements) between
+    /// requests: opening one costs more than most of the queries it runs.
+    static READER: std::cell::RefCell<Option<(PathBuf, rusqlite::Connection)>> = const { std::cell::RefCell::new(None) };
+}
+
+/// Runs `job` on this thread's read-only connection to `path`, opening it first if needed; a connection
+/// whose job failed is closed rather than kept.
+fn with_reader<T>(
+    path: &std::path::Path,
+    job: impl FnOnce(&rusqlite::Connection) -> Result<T, ApiError>,
+) -> Result<T, ApiError> {
+    let held = READER.with(|cell| cell.borrow_mut().take()).filter(|(p, _)| p == path);
+    let conn = match held {
+        Some((_, conn)) => conn,
+        None => crate::store::reader(path)?,
+    };
+    let out = job(&conn);
+    if out.is_ok() {
+        READER.with(|cell| *cell.borrow_mut() = Some((path.to_path_buf(), conn)));
+    }
+    out
 }
 
 impl AppState {
@@ -81,12 +109,17 @@ impl AppState {
         job: impl FnOnce(&rusqlite::Connection) -> Result<T, ApiError> + Send + 'static,
     ) -> Result<T, ApiError> {
         let path = self.store_path.clone();
-        tokio::task::spawn_blocking(move || {
-            let conn = crate::store::reader(&path)?;
-            job(&conn)
-        })
-        .await
-        .map_err(|e| ApiError::Internal(format!("reader task: {e}")))?
+        tokio::task::spawn_blocking(move || with_reader(&path, job))
+            .await
+            .map_err(|e| ApiError::Internal(format!("reader task: {e}")))?
+    }
+
+    /// Test `id` reduced (increments through the caches, settlements corrected for apparatus deflection
+    /// where the frame is calibrated, then its e–log σ′ curve).
+    pub(crate) async fn reduce_test(&self, id: i64) -> Result<queries::TestReduction, ApiError> {
+        let (now, commits, caches) = (self.clock.now_us(), self.writer.commits(), self.caches.clone());
+        let frames = self.frames.clone();
+        self.read(move |conn| queries::reduce_test(conn, &caches, commits, id, now, &frames)).await
     }
 
     /// Runs a blocking action (the hub and the writer answer synchronously) off the async runtime, and
@@ -120,10 +153,41 @@ async fn healthz(State(state): State<AppState>) -> impl IntoResponse {
     }))
 }
 
+/// After any request that may have changed something (not GET or HEAD), the held frames overview goes,
+/// so whoever acted sees the effect on the next read.
+async fn drop_snapshots_after_actions(
+    State(state): State<AppState>,
+    request: axum::extract::Request,
+    next: axum::middleware::Next,
+) -> axum::response::Response {
+    let acts = !matches!(*request.method(), axum::http::Method::GET | axum::http::Method::HEAD);
+    let response = next.run(request).await;
+    if acts {
+        state.caches.frames.clear();
+    }
+    response
+}
+
+/// `GET /api/me`: who the request's credentials name and what they may do, so a page can offer only the
+/// actions its user may take. Without configured users everyone on loopback may act.
+async fn me(State(state): State<AppState>, caller: Option<axum::Extension<Caller>>) -> impl IntoResponse {
+    let (name, role) = match &caller {
+        Some(c) => (Some(c.name.clone()), c.role),
+        None => (None, crate::config::Role::Operator),
+    };
+    Json(serde_json::json!({
+        "name": name,
+        "role": role,
+        "may_act": role == crate::config::Role::Operator,
+        "authentication": !state.users.is_empty(),
+    }))
+}
+
 /// The whole HTTP surface: every resource's routes behind the access check.
 pub fn router(state: AppState) -> Router {
     Router::new()
         .route("/healthz", get(healthz))
+        .route("/api/me", get(me))
         .merge(frames::router())
         .merge(lab_tests::router())
         .merge(increments::router())
@@ -135,5 +199,6 @@ pub fn router(state: AppState) -> Router {
         .merge(web::router())
         .fallback(web::fallback)
         .layer(axum::middleware::from_fn_with_state(state.clone(), auth::require_user))
+        .layer(axum::middleware::from_fn_with_state(state.clone(), drop_snapshots_after_actions))
         .with_state(state)
 }

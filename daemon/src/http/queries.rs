@@ -5,12 +5,18 @@ use rusqlite::{Connection, OptionalExtension, params};
 use serde::Serialize;
 
 use super::ApiError;
+use crate::analysis::deflection::corrected_mm;
 use crate::analysis::{
     CompressionInput, CompressionParams, CompressionPoint, CompressionReduction, IncrementParams, IncrementReduction,
     PhaseRelations, SpecimenMeasurements, cv::Method, phase_relations, reduce_compression, reduce_increment,
 };
+use crate::analysis::{DeflectionCalibration, LoadBranch};
 use crate::clock::rfc3339;
+use crate::config::Frame;
 use crate::watch::WatchParams;
+use std::sync::Arc;
+
+use super::cache::{Caches, IncrementStamp, Reduced};
 
 /// A test as stored, with its specimen data.
 #[derive(Clone, Debug, Serialize)]
@@ -201,24 +207,17 @@ pub(crate) struct StoredCurve {
     pub d_end_mm: Option<f64>,
 }
 
-/// The increment's readings from its onset to its end (or `now_us` while it runs).
-pub(crate) fn stored_curve(
-    conn: &Connection,
-    test: &TestRow,
-    inc: &IncrementRow,
-    now_us: i64,
-) -> Result<Option<StoredCurve>, ApiError> {
-    let Some(onset) = inc.onset_us else { return Ok(None) };
-    let end = inc.ended_us.unwrap_or(now_us);
+/// The curve from t0 of polls stamped after `onset` (earlier ones are skipped).
+fn curve_of(conn: &Connection, test: &TestRow, onset: i64, polls: &[Poll]) -> Result<StoredCurve, ApiError> {
     let d_onset = displacement_at_or_before(conn, test.frame_key, onset)?;
     let mut readings: Vec<(f64, f64)> = d_onset.map(|d| (0.0, d)).into_iter().collect();
-    for (at, d, _) in polls(conn, test.frame_key, onset + 1, end)? {
+    for &(at, d, _) in polls.iter().filter(|p| p.0 > onset) {
         if let Some(d) = d {
             readings.push(((at - onset) as f64 / 6e7, d));
         }
     }
     let d_end = readings.last().map(|r| r.1);
-    Ok(Some(StoredCurve { readings, d_onset_mm: d_onset, d_end_mm: d_end }))
+    Ok(StoredCurve { readings, d_onset_mm: d_onset, d_end_mm: d_end })
 }
 
 /// The reduction parameters the live watch uses (`watch::frame`), so a stored increment reduces the same.
@@ -230,14 +229,13 @@ fn increment_params(test: &TestRow, inc: &IncrementRow, zero: Option<f64>, d_ons
     WatchParams::default().increment_params(height_mm, d_onset, inc.from_kpa.unwrap_or(0.0), inc.stress_kpa)
 }
 
-/// Reduces one stored increment; `None` before its onset or without readings.
-pub(crate) fn reduce_stored(
+/// Reduces one stored curve; `None` without two readings.
+fn reduce_curve(
     conn: &Connection,
     test: &TestRow,
     inc: &IncrementRow,
-    now_us: i64,
+    curve: StoredCurve,
 ) -> Result<Option<(StoredCurve, IncrementReduction)>, ApiError> {
-    let Some(curve) = stored_curve(conn, test, inc, now_us)? else { return Ok(None) };
     if curve.readings.len() < 2 {
         return Ok(None);
     }
@@ -245,6 +243,29 @@ pub(crate) fn reduce_stored(
     let params = increment_params(test, inc, zero, curve.d_onset_mm);
     let reduction = reduce_increment(&curve.readings, &params)?;
     Ok(Some((curve, reduction)))
+}
+
+/// [`reduce_stored`] through the caches: a finished increment is reduced once, a running one again only
+/// after new readings committed (`commits` read before the database, see `Writer::commits`).
+pub(crate) fn reduce_stored_cached(
+    conn: &Connection,
+    caches: &Caches,
+    test: &TestRow,
+    inc: &IncrementRow,
+    commits: u64,
+    now_us: i64,
+) -> Result<Reduced, ApiError> {
+    let stamp = IncrementStamp::of(inc, commits);
+    caches.reductions.get_or_build(&(test.id, inc.seq), &stamp, |_| {
+        let Some(onset) = inc.onset_us else { return Ok(Arc::new(Ok(None))) };
+        let polls = caches.increment_polls(conn, test, inc, &stamp, now_us)?;
+        let curve = curve_of(conn, test, onset, &polls)?;
+        match reduce_curve(conn, test, inc, curve) {
+            Ok(r) => Ok(Arc::new(Ok(r))),
+            Err(ApiError::Conflict(why)) => Ok(Arc::new(Err(why))),
+            Err(e) => Err(e),
+        }
+    })
 }
 
 /// One increment with what its time curve gave.
@@ -255,8 +276,13 @@ pub(crate) struct IncrementSummary {
     pub row: IncrementRow,
     /// Readings in the increment.
     pub reading_count: usize,
-    /// Cumulative compression since the test's zero at the end of the increment, mm.
+    /// Cumulative compression since the test's zero at the end of the increment, mm (corrected for
+    /// apparatus deflection when the frame has a calibration and the stress lies inside it).
     pub settlement_mm: Option<f64>,
+    /// The same as the gauge read it, before any correction, mm.
+    pub settlement_measured_mm: Option<f64>,
+    /// Apparatus deflection taken off, mm: y(σ′) on the increment's branch − y(seating stress).
+    pub apparatus_deflection_mm: Option<f64>,
     /// The same at the end of primary (d100), mm.
     pub settlement_eop_mm: Option<f64>,
     /// t50 (log-t construction), min.
@@ -288,43 +314,97 @@ pub(crate) struct TestReduction {
     pub compression: Option<CompressionReduction>,
     /// Why it could not, if so.
     pub compression_unavailable: Option<String>,
-    /// Whether settlements were corrected for apparatus deflection (not yet: see the frame's calibration).
+    /// Whether every settlement was corrected for apparatus deflection (the frame's `deflection` table
+    /// covers every stress of the test).
     pub apparatus_corrected: bool,
 }
 
-/// Reduces every increment of test `id` and then the test's e–log σ′ curve.
-pub(crate) fn reduce_test(conn: &Connection, id: i64, now_us: i64) -> Result<TestReduction, ApiError> {
+/// The apparatus deflection to take off a cumulative settlement at `stress_kpa`: y on the branch the
+/// stress is on, less y at the seating stress (the zero reading was taken with that already in it;
+/// REFERENCES §1.6). `None` (with the flags) when either lies outside the calibration.
+fn apparatus_deflection(
+    calibration: &DeflectionCalibration,
+    seating_kpa: f64,
+    stress_kpa: f64,
+    from_kpa: Option<f64>,
+) -> (Option<f64>, Vec<String>) {
+    let branch = if from_kpa.is_some_and(|f| stress_kpa < f) { LoadBranch::Unloading } else { LoadBranch::Loading };
+    let at = calibration.deflection_at(stress_kpa, branch);
+    let zero = calibration.deflection_at(seating_kpa, LoadBranch::Loading);
+    let mut flags: Vec<String> = at.flags.iter().map(|f| f.code().to_string()).collect();
+    flags.extend(zero.flags.iter().map(|f| format!("{} (seating stress)", f.code())));
+    (at.deflection_mm.zip(zero.deflection_mm).map(|(y, y0)| y - y0), flags)
+}
+
+/// Reduces every increment of test `id` (through the caches) and then the test's e–log σ′ curve, with
+/// settlements corrected for apparatus deflection when the test's frame in `frames` has a calibration.
+pub(crate) fn reduce_test(
+    conn: &Connection,
+    caches: &Caches,
+    commits: u64,
+    id: i64,
+    now_us: i64,
+    frames: &[Frame],
+) -> Result<TestReduction, ApiError> {
     let test = test(conn, id)?;
     let zero = zero_reading(conn, &test)?;
+    let calibration = match frames.iter().find(|f| f.id == test.frame).and_then(|f| f.deflection.as_ref()) {
+        // The config check already built it once; a failure here would be a bug, said once in the log.
+        Some(table) => match DeflectionCalibration::new(&table.loading, &table.unloading) {
+            Ok(c) => Some(c),
+            Err(error) => {
+                tracing::warn!("frame {}: deflection table unusable: {error}", test.frame);
+                None
+            }
+        },
+        None => None,
+    };
+    let mut all_corrected = calibration.is_some();
     let mut summaries = Vec::new();
     for row in increments(conn, id)? {
-        let reduced = match reduce_stored(conn, &test, &row, now_us) {
-            Ok(r) => r,
+        let reduced = reduce_stored_cached(conn, caches, &test, &row, commits, now_us)?;
+        let reduced = match reduced.as_ref() {
+            Ok(r) => r.as_ref(),
             // A curve the analysis refuses still gets its row, with the reason as a flag.
-            Err(ApiError::Conflict(why)) => {
+            Err(why) => {
                 tracing::debug!("increment {} of test {id}: {why}", row.seq);
                 None
             }
-            Err(e) => return Err(e),
         };
         let summary = match reduced {
             Some((curve, r)) => {
-                let cv = match r.end_of_primary.map(|e| e.method) {
+                let cv = match r.end_of_primary.as_ref().map(|e| e.method) {
                     Some(Method::Casagrande) => r.cv_casagrande.map(|c| c.cv_mm2_per_min),
                     Some(Method::Taylor) => r.cv_taylor.map(|c| c.cv_mm2_per_min),
                     None => None,
                 };
+                let measured = zero.zip(curve.d_end_mm).map(|(z, d)| d - z);
+                let measured_eop = zero.zip(r.end_of_primary.as_ref()).map(|(z, e)| e.d100_mm - z);
+                let mut flags: Vec<String> = r.flags.iter().map(|f| f.code().to_string()).collect();
+                let correction = match &calibration {
+                    Some(c) => {
+                        let (y, why) =
+                            apparatus_deflection(c, test.seating_kpa.unwrap_or(0.0), row.stress_kpa, row.from_kpa);
+                        flags.extend(why);
+                        all_corrected &= y.is_some() || measured.is_none();
+                        y
+                    }
+                    None => None,
+                };
+                let corrected = |m: Option<f64>| m.map(|m| correction.map_or(m, |y| corrected_mm(m, y)));
                 IncrementSummary {
                     reading_count: curve.readings.len(),
-                    settlement_mm: zero.zip(curve.d_end_mm).map(|(z, d)| d - z),
-                    settlement_eop_mm: zero.zip(r.end_of_primary).map(|(z, e)| e.d100_mm - z),
+                    settlement_mm: corrected(measured),
+                    settlement_measured_mm: measured,
+                    apparatus_deflection_mm: correction,
+                    settlement_eop_mm: corrected(measured_eop),
                     t50_min: r.casagrande.t50_min,
                     t90_min: r.taylor.t90_min,
                     cv_taylor_mm2_per_min: r.cv_taylor.map(|c| c.cv_mm2_per_min),
                     cv_casagrande_mm2_per_min: r.cv_casagrande.map(|c| c.cv_mm2_per_min),
                     cv_mm2_per_min: cv,
                     c_alpha_strain: r.secondary.map(|s| s.c_alpha_strain),
-                    flags: r.flags.iter().map(|f| f.code().to_string()).collect(),
+                    flags,
                     row,
                 }
             }
@@ -332,6 +412,8 @@ pub(crate) fn reduce_test(conn: &Connection, id: i64, now_us: i64) -> Result<Tes
                 row,
                 reading_count: 0,
                 settlement_mm: None,
+                settlement_measured_mm: None,
+                apparatus_deflection_mm: None,
                 settlement_eop_mm: None,
                 t50_min: None,
                 t90_min: None,
@@ -390,7 +472,7 @@ pub(crate) fn reduce_test(conn: &Connection, id: i64, now_us: i64) -> Result<Tes
         phase,
         compression,
         compression_unavailable,
-        apparatus_corrected: false,
+        apparatus_corrected: all_corrected,
     })
 }
 
@@ -424,19 +506,46 @@ pub(crate) fn events(
         "SELECT e.id, e.at_us, f.id, e.kind, e.message, e.actor, e.data FROM events e LEFT JOIN frames f ON f.key = e.frame_key
          WHERE e.id > ?1 AND (?2 IS NULL OR e.frame_key = ?2) ORDER BY e.id LIMIT ?3",
     )?;
-    let rows = statement.query_map(params![after, frame_key, limit], |r| {
-        let data: Option<String> = r.get(6)?;
-        Ok(EventView {
-            id: r.get(0)?,
-            at: rfc3339(r.get(1)?),
-            frame: r.get(2)?,
-            kind: r.get(3)?,
-            message: r.get(4)?,
-            actor: r.get(5)?,
-            data: data.and_then(|d| serde_json::from_str(&d).ok()),
-        })
-    })?;
+    let rows = statement.query_map(params![after, frame_key, limit], event_view)?;
     Ok(rows.collect::<Result<_, _>>()?)
+}
+
+/// Which journal entries `GET /api/events` asks for.
+pub(crate) struct EventWindow {
+    /// Ids above this.
+    pub after: i64,
+    /// Ids below this.
+    pub before: i64,
+    /// At most this many.
+    pub limit: i64,
+    /// Only this frame's.
+    pub frame_key: Option<i64>,
+    /// The newest first (and the newest `limit` of the window), else the oldest first.
+    pub newest_first: bool,
+}
+
+/// The journal entries of `window`.
+pub(crate) fn events_in(conn: &Connection, window: &EventWindow) -> Result<Vec<EventView>, ApiError> {
+    let order = if window.newest_first { "DESC" } else { "ASC" };
+    let mut statement = conn.prepare_cached(&format!(
+        "SELECT e.id, e.at_us, f.id, e.kind, e.message, e.actor, e.data FROM events e LEFT JOIN frames f ON f.key = e.frame_key
+         WHERE e.id > ?1 AND e.id < ?2 AND (?3 IS NULL OR e.frame_key = ?3) ORDER BY e.id {order} LIMIT ?4"
+    ))?;
+    let rows = statement.query_map(params![window.after, window.before, window.frame_key, window.limit], event_view)?;
+    Ok(rows.collect::<Result<_, _>>()?)
+}
+
+fn event_view(r: &rusqlite::Row<'_>) -> rusqlite::Result<EventView> {
+    let data: Option<String> = r.get(6)?;
+    Ok(EventView {
+        id: r.get(0)?,
+        at: rfc3339(r.get(1)?),
+        frame: r.get(2)?,
+        kind: r.get(3)?,
+        message: r.get(4)?,
+        actor: r.get(5)?,
+        data: data.and_then(|d| serde_json::from_str(&d).ok()),
+    })
 }
 
 /// The newest event id (0 for none).

@@ -12,7 +12,7 @@ use axum::routing::get;
 
 use super::lab_tests::test_id;
 use super::overview::escape;
-use super::queries::{self, TestReduction};
+use super::queries::TestReduction;
 use super::{ApiError, AppState};
 use crate::analysis::CompressionReduction;
 use crate::clock::rfc3339;
@@ -220,8 +220,10 @@ td.l,th.l{{text-align:left}}.plot{{max-width:640px;width:100%}}.caution{{border:
             }
         }
     }
-    if !r.apparatus_corrected {
-        html += "<p>Settlements are gauge readings from the test's zero, not corrected for apparatus deflection.</p>";
+    if r.apparatus_corrected {
+        html += "<p>Settlements are corrected for apparatus deflection with the frame's calibration (deflection at the stress less that at the seating stress).</p>";
+    } else {
+        html += "<p>Settlements are gauge readings from the test's zero, not (or not all) corrected for apparatus deflection: the frame has no calibration covering every stress.</p>";
     }
     let _ = write!(
         html,
@@ -237,7 +239,7 @@ Follow the governing standard and local codes. oedolog never changes a load on a
 async fn report(State(state): State<AppState>, Path(id): Path<String>) -> Result<impl IntoResponse, ApiError> {
     let id = test_id(&id)?;
     let now = state.clock.now_us();
-    let reduced = state.read(move |conn| queries::reduce_test(conn, id, now)).await?;
+    let reduced = state.reduce_test(id).await?;
     Ok(([(header::CACHE_CONTROL, "no-store")], Html(render(&reduced, now))))
 }
 

@@ -113,6 +113,7 @@ fn bench(users: bool) -> Bench {
         store_path: path,
         frames: Arc::new(config.frames.clone()),
         users: Arc::new(config.http.users.clone()),
+        caches: Default::default(),
     };
     Bench { state, clock, _writer_thread: writer_thread, dir }
 }
@@ -630,6 +631,7 @@ async fn every_route_by_every_kind_of_caller() {
         ("GET", "/", None, StatusCode::OK),
         ("GET", "/overview", None, StatusCode::OK),
         ("GET", "/healthz", None, StatusCode::OK),
+        ("GET", "/api/me", None, StatusCode::OK),
         ("GET", "/metrics", None, StatusCode::OK),
         ("GET", "/api/frames", None, StatusCode::OK),
         ("GET", "/api/frames/F1", None, StatusCode::OK),
@@ -688,4 +690,152 @@ async fn every_route_by_every_kind_of_caller() {
     let kinds: Vec<&str> = actors.iter().map(|(k, _)| k.as_str()).collect();
     assert_eq!(kinds, ["test-started", "armed", "load-reported", "note", "test-finished"]);
     assert!(actors.iter().all(|(_, a)| a.as_deref() == Some("olga")), "{actors:?}");
+}
+
+#[tokio::test]
+async fn me_says_who_the_credentials_name_and_whether_they_may_act() {
+    let b = bench(true);
+    for (who, name, role, may_act) in
+        [(Who::Viewer, "vera", "viewer", false), (Who::Operator, "olga", "operator", true)]
+    {
+        let (status, _, text) = send(&b.state, request("GET", "/api/me", None, who)).await;
+        assert_eq!(status, StatusCode::OK);
+        let me: Value = serde_json::from_str(&text).unwrap();
+        assert_eq!((me["name"].as_str(), me["role"].as_str()), (Some(name), Some(role)), "{me}");
+        assert_eq!(me["may_act"], may_act);
+        assert_eq!(me["authentication"], true);
+    }
+    // Without users (loopback only) everyone may act and nobody is named.
+    let open = bench(false);
+    let (_, me) = call(&open.state, "GET", "/api/me", None).await;
+    assert_eq!(
+        (me["name"].clone(), me["may_act"].clone(), me["authentication"].clone()),
+        (Value::Null, json!(true), json!(false))
+    );
+}
+
+#[tokio::test]
+async fn the_journal_pages_newest_first_between_ids() {
+    let b = bench(false);
+    for i in 0..5 {
+        let (status, _) =
+            call(&b.state, "POST", "/api/frames/F1/notes", Some(json!({"text": format!("note {i}")}))).await;
+        assert_eq!(status, StatusCode::CREATED);
+    }
+    let notes = |v: &Value| -> Vec<String> {
+        v.as_array()
+            .unwrap()
+            .iter()
+            .filter(|e| e["kind"] == "note")
+            .map(|e| e["message"].as_str().unwrap().to_string())
+            .collect()
+    };
+    let (_, newest) = call(&b.state, "GET", "/api/events?order=newest&limit=2&frame=F1", None).await;
+    assert_eq!(notes(&newest), ["note 4", "note 3"]);
+    let before = newest[1]["id"].as_i64().unwrap();
+    let (_, older) =
+        call(&b.state, "GET", &format!("/api/events?order=newest&limit=2&before={before}&frame=F1"), None).await;
+    assert_eq!(notes(&older), ["note 2", "note 1"]);
+    let (_, oldest) = call(&b.state, "GET", "/api/events?limit=1000&frame=F1", None).await;
+    assert_eq!(notes(&oldest), ["note 0", "note 1", "note 2", "note 3", "note 4"], "oldest first by default");
+    for bad in ["order=sideways", "before=0", "before=x"] {
+        let (status, body) = call(&b.state, "GET", &format!("/api/events?{bad}"), None).await;
+        assert_eq!(status, StatusCode::BAD_REQUEST, "{bad}: {body}");
+        assert!(body["field"].is_string() && body["allowed"].is_string(), "{body}");
+    }
+}
+
+/// The caches never serve what a commit has made stale: the running increment's thinned readings grow
+/// as readings commit, a finished increment's stay as they were, and the overview shows an action at once.
+#[tokio::test]
+async fn cached_answers_follow_every_commit_and_every_action() {
+    let b = bench(false);
+    let test_id = test_with_curve(&b).await;
+    let path = "/api/frames/F1/increments/1/readings?max_points=5000";
+    let (_, first) = call(&b.state, "GET", path, None).await;
+    assert_eq!(first["reading_count"], 401);
+    let (_, analysis) = call(&b.state, "GET", &format!("/api/tests/{test_id}/compression"), None).await;
+    let readings_before = analysis["increments"][0]["reading_count"].as_i64().unwrap();
+    // Ten more polls of the running increment, committed.
+    let key = b.state.lab.key(0);
+    let last_us = START_US + 600_000_000 + 3_000 * 60_000_000;
+    for i in 1..=10 {
+        let at_us = last_us + i * 60_000_000;
+        for channel in [ChannelKind::Displacement, ChannelKind::Load] {
+            b.state.writer.reading(Reading { frame_key: key, channel, at_us, raw: 3.5, value: 3.5 }).unwrap();
+        }
+    }
+    settle(&b);
+    b.clock.advance_us(20 * 60_000_000);
+    let (_, grown) = call(&b.state, "GET", path, None).await;
+    assert_eq!(grown["reading_count"], 411, "extended by what committed");
+    // The same answer as a cold cache gives (built again from the database).
+    b.state.caches.clear_for_tests();
+    let (_, cold) = call(&b.state, "GET", path, None).await;
+    assert_eq!(grown, cold);
+    let (_, analysis) = call(&b.state, "GET", &format!("/api/tests/{test_id}/compression"), None).await;
+    assert_eq!(analysis["increments"][0]["reading_count"].as_i64().unwrap(), readings_before + 10);
+
+    // The overview shows an action at once, although it is otherwise served for a quarter second.
+    let (_, frames) = call(&b.state, "GET", "/api/frames", None).await;
+    assert_eq!(frames[1]["test"], Value::Null);
+    let (status, _) = call(&b.state, "POST", "/api/frames/F2/tests", Some(specimen())).await;
+    assert_eq!(status, StatusCode::CREATED);
+    let (_, frames) = call(&b.state, "GET", "/api/frames", None).await;
+    assert_eq!(frames[1]["test"]["state"], "seating", "{}", frames[1]);
+
+    // Finished: finishing the test ends increment 1 (now); later readings are not in it.
+    let (status, body) = call(&b.state, "POST", "/api/frames/F1/tests/current/finish", None).await;
+    assert_eq!(status, StatusCode::OK, "{body}");
+    let onset2 = b.state.clock.now_us();
+    let (_, ended) = call(&b.state, "GET", path, None).await;
+    let ended_count = ended["reading_count"].as_i64().unwrap();
+    for channel in [ChannelKind::Displacement, ChannelKind::Load] {
+        b.state
+            .writer
+            .reading(Reading { frame_key: key, channel, at_us: onset2 + 60_000_000, raw: 3.6, value: 3.6 })
+            .unwrap();
+    }
+    settle(&b);
+    let (_, after) = call(&b.state, "GET", path, None).await;
+    assert_eq!(after["reading_count"].as_i64().unwrap(), ended_count, "a finished increment does not grow");
+}
+
+/// Settlements corrected for apparatus deflection with the frame's table: at stresses that are table
+/// points the interpolation returns the measured deflection itself, so the expected correction is
+/// y(50 kPa) − y(5 kPa seating) = 0.020 − 0.004 = 0.016 mm straight from the (invented, demo) table.
+#[tokio::test]
+async fn settlements_are_corrected_for_apparatus_deflection_with_the_frames_table() {
+    let b = bench(false);
+    let test_id = test_with_curve(&b).await;
+    let (_, plain) = call(&b.state, "GET", &format!("/api/tests/{test_id}/compression"), None).await;
+    assert_eq!(plain["apparatus_corrected"], false);
+    let measured = plain["increments"][0]["settlement_mm"].as_f64().unwrap();
+    assert_eq!(plain["increments"][0]["settlement_measured_mm"].as_f64(), Some(measured));
+
+    let mut frames = (*b.state.frames).clone();
+    frames[0].deflection = Some(crate::config::DeflectionTable {
+        loading: vec![(5.0, 0.004), (25.0, 0.012), (50.0, 0.020), (100.0, 0.031), (200.0, 0.045)],
+        unloading: Vec::new(),
+    });
+    let state = AppState { frames: Arc::new(frames), caches: Default::default(), ..b.state.clone() };
+    let (_, corrected) = call(&state, "GET", &format!("/api/tests/{test_id}/compression"), None).await;
+    assert_eq!(corrected["apparatus_corrected"], true, "{corrected}");
+    let inc = &corrected["increments"][0];
+    let y = inc["apparatus_deflection_mm"].as_f64().unwrap();
+    assert!((y - 0.016).abs() < 1e-12, "{y}");
+    assert!((inc["settlement_mm"].as_f64().unwrap() - (measured - 0.016)).abs() < 1e-12, "{inc}");
+    assert_eq!(inc["settlement_measured_mm"].as_f64(), Some(measured));
+    // The e–log σ′ curve is built from the corrected settlement: e = e0 − ΔH/Hs.
+    let (e0, e) = (
+        corrected["compression"]["e0"].as_f64().unwrap(),
+        corrected["compression"]["points"][0]["e"].as_f64().unwrap(),
+    );
+    let e_plain = plain["compression"]["points"][0]["e"].as_f64().unwrap();
+    assert!(e > e_plain && e < e0, "less compression after the correction: {e} vs {e_plain}");
+    let (_, _, csv) =
+        send(&state, request("GET", &format!("/api/tests/{test_id}/increments.csv"), None, Who::Nobody)).await;
+    assert!(csv.lines().next().unwrap().ends_with("settlement_measured_mm,apparatus_deflection_mm"), "{csv}");
+    let (_, _, report) = send(&state, request("GET", &format!("/tests/{test_id}/report"), None, Who::Nobody)).await;
+    assert!(report.contains("corrected for apparatus deflection with the frame"), "report says so");
 }

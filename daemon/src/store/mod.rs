@@ -279,6 +279,7 @@ impl Default for WriterPolicy {
 pub struct Writer {
     tx: Sender<Op>,
     queued: Arc<AtomicU64>,
+    commits: Arc<AtomicU64>,
 }
 
 /// The writer thread's handle: close it to commit the last batch and stop.
@@ -296,10 +297,11 @@ impl Writer {
     ) -> WriterThread {
         let (tx, rx) = channel();
         let queued = Arc::new(AtomicU64::new(0));
-        let writer = Writer { tx, queued: queued.clone() };
+        let commits = Arc::new(AtomicU64::new(0));
+        let writer = Writer { tx, queued: queued.clone(), commits: commits.clone() };
         let thread = std::thread::Builder::new()
             .name("oedolog-store".into())
-            .spawn(move || write_loop(conn, rx, policy, queued, on_commit))
+            .spawn(move || write_loop(conn, rx, policy, queued, commits, on_commit))
             .expect("spawn the store writer thread");
         WriterThread { writer, thread: Some(thread) }
     }
@@ -347,6 +349,13 @@ impl Writer {
     pub fn backlog(&self) -> u64 {
         self.queued.load(Ordering::Relaxed)
     }
+
+    /// Durable commits since the writer started. It moves on only after a commit is durable, so a
+    /// reader that reads it and then the database sees at least everything up to that commit: a cached
+    /// answer stamped with it is stale exactly when it has moved on.
+    pub fn commits(&self) -> u64 {
+        self.commits.load(Ordering::Acquire)
+    }
 }
 
 impl WriterThread {
@@ -384,6 +393,7 @@ fn write_loop(
     rx: Receiver<Op>,
     policy: WriterPolicy,
     queued: Arc<AtomicU64>,
+    commits: Arc<AtomicU64>,
     mut on_commit: impl FnMut(CommitReport),
 ) {
     let mut batch = Batch { readings: Vec::new(), events: Vec::new(), jobs: Vec::new() };
@@ -431,7 +441,7 @@ fn write_loop(
             }
         }
         let count = batch.readings.len() as u64;
-        match commit(&mut conn, &mut batch) {
+        match commit(&mut conn, &mut batch, &commits) {
             Ok((readings, events)) => {
                 batches += 1;
                 total += readings;
@@ -461,9 +471,13 @@ fn checkpoint(conn: &Connection, last: &mut Instant, every: Duration) {
     }
 }
 
-fn commit(conn: &mut Connection, batch: &mut Batch) -> Result<(u64, u64), rusqlite::Error> {
+fn commit(conn: &mut Connection, batch: &mut Batch, commits: &AtomicU64) -> Result<(u64, u64), rusqlite::Error> {
     let mut replies: Vec<Reply> = Vec::new();
     let outcome = commit_inner(conn, batch, &mut replies);
+    if outcome.is_ok() {
+        // Before the replies: whoever hears "done" and then reads the counter sees this commit counted.
+        commits.fetch_add(1, Ordering::AcqRel);
+    }
     let why = outcome.as_ref().err().map(|e| e.to_string());
     for reply in replies {
         reply(why.clone());
