@@ -222,12 +222,15 @@ impl IncrementStamp {
 /// (test id, increment number).
 type IncrementKey = (i64, i64);
 
+/// The onset the polls were read from, and the polls.
+type PollRun = (Option<i64>, Arc<Vec<Poll>>);
+
 /// The daemon's answer caches (one set per HTTP surface).
 pub struct Caches {
     /// The serialised `GET /api/frames` (or why it could not be).
     pub(crate) frames: Snapshot<Result<Bytes, String>>,
     /// An increment's polls from its onset, extended as new readings commit.
-    polls: Memo<IncrementKey, IncrementStamp, (Option<i64>, Arc<Vec<Poll>>)>,
+    polls: Memo<IncrementKey, IncrementStamp, PollRun>,
     /// Serialised thinned readings: (test, increment, max points).
     pub(crate) readings: Memo<(i64, i64, usize), IncrementStamp, Bytes>,
     /// Stored increments reduced: (readings in the curve, gauge at the end, the reduction).
