@@ -125,6 +125,10 @@ enum Start {
     Rejected,
     /// A frame might start here once more bytes arrive.
     Pending,
+    /// A frame of this many bytes very likely starts here (its header is self-consistent) and is still
+    /// incomplete: a CRC-valid run lying wholly inside it is part of its data, not a frame, until it has
+    /// arrived (or the idle gap ends it).
+    Expecting(usize),
     /// A frame of this many bytes starts here and its CRC checks.
     Frame(usize),
 }
@@ -175,8 +179,11 @@ impl Scanner {
         mut start_at: impl FnMut(&[u8], &mut u64) -> Start,
     ) -> Option<Vec<u8>> {
         let mut first_pending = None;
+        // The end of the first incomplete frame with a self-consistent header: nothing inside it is taken.
+        let mut hold_until = 0;
         for offset in 0..self.buf.len() {
             match start_at(&self.buf[offset..], &mut counters.crc_failures) {
+                Start::Frame(len) if offset + len <= hold_until => {}
                 Start::Frame(len) => {
                     counters.noise_bytes += offset as u64;
                     let frame = self.buf[offset..offset + len].to_vec();
@@ -185,6 +192,12 @@ impl Scanner {
                 }
                 Start::Pending => {
                     first_pending.get_or_insert(offset);
+                }
+                Start::Expecting(len) => {
+                    first_pending.get_or_insert(offset);
+                    if hold_until == 0 {
+                        hold_until = offset + len;
+                    }
                 }
                 Start::Rejected => {}
             }
@@ -332,7 +345,14 @@ impl RtuMaster {
                         _ => None,
                     };
                     let header_incomplete = quantity.is_some() && s.len() < 3;
-                    classify(s, &[Some(normal_len), counted], header_incomplete, crc_failures)
+                    // From the asked unit with the expected byte count: while incomplete, a CRC-valid run
+                    // inside it is its data (e.g. register values that happen to form a frame).
+                    let expected =
+                        s[0] == unit.0 && quantity.is_some_and(|q| s.get(2) == u8::try_from(2 * q).ok().as_ref());
+                    match classify(s, &[Some(normal_len), counted], header_incomplete, crc_failures) {
+                        Start::Pending if expected => Start::Expecting(normal_len),
+                        other => other,
+                    }
                 } else {
                     Start::Rejected
                 }
@@ -462,7 +482,19 @@ impl RtuSlave {
             let Some(&fc) = s.get(1) else { return Start::Pending };
             match FunctionCode::from_code(fc) {
                 Some(FunctionCode::WriteMultipleRegisters) => match s.get(6) {
-                    Some(&count) => classify(s, &[Some(9 + usize::from(count))], false, crc_failures),
+                    Some(&count) => {
+                        let len = 9 + usize::from(count);
+                        // Unit 0..=247, quantity 1..=123 and byte count = 2 × quantity: a header noise
+                        // rarely forms; while it is incomplete, runs inside it are its data.
+                        let quantity = u16::from_be_bytes([s[4], s[5]]);
+                        let consistent = s[0] <= 247
+                            && (1..=123).contains(&quantity)
+                            && usize::from(count) == 2 * usize::from(quantity);
+                        match classify(s, &[Some(len)], false, crc_failures) {
+                            Start::Pending if consistent => Start::Expecting(len),
+                            other => other,
+                        }
+                    }
                     None => Start::Pending,
                 },
                 Some(_) => classify(s, &[Some(8)], false, crc_failures),

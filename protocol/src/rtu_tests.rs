@@ -510,3 +510,37 @@ proptest::proptest! {
         proptest::prop_assert_eq!(outcomes, vec![Ok(Reply::Normal(Response::ReadHoldingRegisters(values)))]);
     }
 }
+
+/// Regression (found by proptest): the register values of a byte-by-byte reply held, at offset 7, a run
+/// from unit 82 whose CRC checks; the master took it as a foreign frame and lost the real reply. While a
+/// reply from the asked unit with the expected byte count is incomplete, runs inside it are its data.
+#[test]
+fn regression_a_crc_valid_run_inside_a_reply_s_registers_is_data_not_a_frame() {
+    let values = vec![13650, 1026, 41661, 33837, 0, 0, 0];
+    let request = Request::ReadInputRegisters { address: 0, quantity: 7 };
+    let bytes = encode_response(UnitId(1), &Response::ReadInputRegisters(values.clone()));
+    // The embedded run: 8 bytes starting inside the register data form a CRC-valid frame (computed here,
+    // independently of the scanner).
+    assert!((3..bytes.len() - 8).any(|o| check_crc(&bytes[o..o + 8])), "the case still holds a valid inner run");
+    let mut master = RtuMaster::new();
+    let chunks: Vec<&[u8]> = bytes.chunks(1).collect();
+    let outcomes = exchange(&mut master, UnitId(1), &request, &chunks);
+    assert_eq!(outcomes, [Ok(Reply::Normal(Response::ReadInputRegisters(values)))]);
+}
+
+/// Regression (found by proptest): the same on the device side, inside a write-multiple request.
+#[test]
+fn regression_a_crc_valid_run_inside_a_write_request_is_data_not_a_frame() {
+    let request = Request::WriteMultipleRegisters { address: 0, values: vec![39940, 54146, 50530, 42578, 0, 0, 0, 0] };
+    let mut pdu = Vec::new();
+    request.encode(&mut pdu);
+    let bytes = encode_adu(UnitId(1), &pdu);
+    assert!((2..bytes.len() - 8).any(|o| check_crc(&bytes[o..o + 8])), "the case still holds a valid inner run");
+    let mut slave = RtuSlave::new();
+    let mut frames = Vec::new();
+    for byte in &bytes {
+        slave.push(std::slice::from_ref(byte));
+        frames.extend(std::iter::from_fn(|| slave.decode()));
+    }
+    assert_eq!(frames, [RequestFrame { unit: UnitId(1), function: 0x10, request: Ok(request) }]);
+}
