@@ -87,13 +87,31 @@
   // is flagged stale on the page; the daemon's own offline limit is longer.
   O.STALE_AFTER_S = 120;
 
+  // Short words for the daemon's alarm codes (its message says the rest).
+  O.ALARM_WORDS = {
+    stale: "No fresh reading",
+    "gauge-travel": "Gauge near end of travel",
+    "out-of-range": "Values refused",
+    stuck: "Readings frozen",
+    "load-drift": "Load off target",
+    temperature: "Temperature out of band",
+    "bus-errors": "Bus errors",
+  };
+
+  // The frame's alarms: the daemon's own (raised, perhaps acknowledged, until their condition clears) and
+  // what the page can tell from the snapshot without a daemon alarm behind it yet.
   O.alarms = function (f) {
     const out = [];
     const w = f.watch || {};
+    const daemon = Array.isArray(f.alarms) ? f.alarms : [];
+    const has = (code) => daemon.some((a) => a.code === code);
+    for (const a of daemon) {
+      out.push({ code: a.code, id: a.id, text: (O.ALARM_WORDS[a.code] || a.code) + (a.acknowledged_by ? " · seen by " + a.acknowledged_by : ""), message: a.message, acknowledged: !!a.acknowledged_by });
+    }
     if (f.state === "offline") out.push({ code: "offline", text: f.bus_up ? "No fresh reading" : "Bus down" });
     if (w.pending_reseat) out.push({ code: "reseat", text: "Gauge re-seat to confirm" });
-    if (w.load_off) out.push({ code: "load-off", text: "Load off target" });
-    if (f.state !== "offline" && f.reading_age_s !== null && f.reading_age_s > O.STALE_AFTER_S) out.push({ code: "stale", text: "Reading " + O.fmt.span(f.reading_age_s) + " old" });
+    if (w.load_off && !has("load-drift")) out.push({ code: "load-off", text: "Load off target" });
+    if (!has("stale") && f.state !== "offline" && f.reading_age_s !== null && f.reading_age_s > O.STALE_AFTER_S) out.push({ code: "stale", text: "Reading " + O.fmt.span(f.reading_age_s) + " old" });
     return out;
   };
 
@@ -116,6 +134,7 @@
   O.urgency = function (f) {
     const w = f.watch || {};
     if (f.state === "ready") return 0;
+    if ((f.alarms || []).some((a) => !a.acknowledged_by)) return 1;
     if (w.pending_reseat) return 1;
     if (w.load_off) return 2;
     if (f.state === "offline") return 3;

@@ -406,6 +406,23 @@
     if (O.readOnly) { O.readOnly = false; markReadOnly(); }
   }
 
+  // A daemon alarm not yet acknowledged gets a button: an operator says someone is on it (the alarm stays
+  // until its condition is gone).
+  function alarmChip(a) {
+    const chip = el("span", { class: "alarm " + a.code + (a.acknowledged ? " acked" : ""), "data-alarm": a.code, title: a.message || a.text }, a.text);
+    if (a.id && !a.acknowledged && !O.readOnly) {
+      const b = el("button", { class: "btn quiet ack", type: "button", "data-ack": a.id }, "Seen — I'm on it");
+      b.addEventListener("click", async () => {
+        b.disabled = true;
+        const r = await api("POST", "/api/alarms/" + a.id + "/acknowledge", {});
+        if (!r.ok) { b.disabled = false; b.title = O.errorText(r); if (r.status === 403) markReadOnly(); }
+        else O.refresh && O.refresh();
+      });
+      chip.append(" ", b);
+    }
+    return chip;
+  }
+
   // ---- header and facts -----------------------------------------------------------------------------------
   function renderHead() {
     const info = O.stateInfo(frame.state);
@@ -418,7 +435,12 @@
     document.getElementById("state-hint").textContent = frame.state === "ready" ? "Ready for the next load" : frame.state === "primary" && eta !== null ? (eta > 0 ? "end of primary in ~" + fmt.span(eta) : "past the estimated end of primary — still settling") : info.hint;
     const alarms = O.alarms(frame);
     head.dataset.stale = alarms.some((a) => a.code === "stale") ? "true" : "false";
-    document.getElementById("frame-alarms").replaceChildren(...alarms.map((a) => el("span", { class: "alarm " + a.code, "data-alarm": a.code }, a.text)));
+    const alarmKey = JSON.stringify(alarms.map((a) => [a.code, a.id, a.acknowledged]));
+    const host = document.getElementById("frame-alarms");
+    if (host.dataset.key !== alarmKey) {
+      host.dataset.key = alarmKey;
+      host.replaceChildren(...alarms.map(alarmChip));
+    }
     const t = frame.test, w = frame.watch || {};
     const facts = [
       ["Specimen", t ? t.specimen : "—"], ["Load step", t ? t.increment + " · " + fmt.sig(t.stress_kpa, 4) + " kPa" : "—"],

@@ -33,6 +33,10 @@ pub struct DemoOptions {
     pub db: PathBuf,
     /// `[[http.user]]` of the `--config` file: who may read and act (none: loopback only).
     pub users: Vec<crate::config::User>,
+    /// `[[notify.webhook]]` of the `--config` file.
+    pub notify: crate::config::NotifyConfig,
+    /// `[alarms]` of the `--config` file (else the defaults).
+    pub alarms: crate::alarms::AlarmRules,
 }
 
 /// The default database of the demo: `$XDG_DATA_HOME/oedolog/demo.sqlite` (or `~/.local/share/…`), else
@@ -125,6 +129,8 @@ pub fn demo_config(
             }),
         }],
         frames,
+        notify: options.notify.clone(),
+        alarms: options.alarms.clone(),
     }
 }
 

@@ -3,6 +3,7 @@
 //! Data flows one way: `acquire` (bus tasks) → `store` (one writer) → `watch` → `analysis` → `http`.
 
 pub mod acquire;
+pub mod alarms;
 pub mod analysis;
 pub mod clock;
 pub mod config;
@@ -10,6 +11,7 @@ pub mod demo;
 pub mod http;
 pub mod lab;
 pub mod logging;
+pub mod notify;
 pub mod offline;
 pub mod service;
 pub mod store;

@@ -7,7 +7,7 @@ use std::sync::Arc;
 
 use anyhow::{Context, bail};
 use clap::{Parser, Subcommand};
-use oedolog::clock::{Clock, SystemClock};
+use oedolog::clock::{Clock, SteadyClock};
 use oedolog::config::{Config, Purpose};
 use oedolog::{demo, logging, service, store};
 
@@ -44,7 +44,7 @@ enum Command {
         /// The database file (default: a file under the user's data folder).
         #[arg(long, value_name = "PATH")]
         db: Option<PathBuf>,
-        /// A configuration file whose [http] section applies to the demo.
+        /// A configuration file whose [http], [log], [alarms] and [[notify.webhook]] tables apply to the demo.
         #[arg(long, value_name = "FILE")]
         config: Option<PathBuf>,
     },
@@ -125,7 +125,8 @@ async fn run(command: Command) -> anyhow::Result<()> {
         Command::Run { config, report_commits } => {
             let config = load(&config, Purpose::Run)?;
             let _guard = logging::init(&config.log).map_err(anyhow::Error::msg)?;
-            let clock: Arc<dyn Clock> = Arc::new(SystemClock);
+            // Stamps follow a steady clock: a stepped system clock is reported, never followed.
+            let clock: Arc<dyn Clock> = Arc::new(SteadyClock::system());
             let running = service::start(&config, clock, service::Options { report_commits }).await?;
             // One line on stdout once serving: scripts and tests wait for it.
             println!("listening on http://{}/", running.http_addr);
@@ -148,11 +149,13 @@ async fn run(command: Command) -> anyhow::Result<()> {
                 listen.or(file.as_ref().map(|c| c.http.listen)).unwrap_or(oedolog::config::DEFAULT_LISTEN.parse()?);
             let db = db.unwrap_or_else(demo::default_db);
             let users = file.as_ref().map(|c| c.http.users.clone()).unwrap_or_default();
+            let notify = file.as_ref().map(|c| c.notify.clone()).unwrap_or_default();
+            let alarms = file.as_ref().map(|c| c.alarms.clone()).unwrap_or_default();
             println!(
                 "demo: {frames} simulated frames, clock {speed}× real time (simulated), database {}",
                 db.display()
             );
-            let (running, _clock) = demo::start(demo::DemoOptions { frames, speed, listen, db, users })
+            let (running, _clock) = demo::start(demo::DemoOptions { frames, speed, listen, db, users, notify, alarms })
                 .await
                 .map_err(|e| anyhow::anyhow!("{e}"))
                 .context("starting the demo")?;

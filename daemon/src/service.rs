@@ -8,6 +8,8 @@ use std::time::Duration;
 use tokio::net::TcpListener;
 
 use crate::acquire::{Live, LiveFrame, Sinks, spawn_buses};
+use crate::alarms::task::{AlarmSources, AlarmTask, FrameFacts};
+use crate::alarms::{self, AlarmBoard};
 use crate::clock::Clock;
 use crate::config::Config;
 use crate::http::{AppState, router};
@@ -80,6 +82,8 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
         return Err(StartError::Exposed { addr: config.http.listen });
     }
     let conn = store::open(&store_config.path)?;
+    // A clock behind the store (stepped back, or an RTC that lost time) goes on from its newest instant.
+    let behind = crate::clock::resume_after_store(&conn, clock.as_ref())?;
     let now = clock.now_us();
     let keys =
         config.frames.iter().map(|f| store::frame_key(&conn, &f.id, &f.name, now)).collect::<Result<Vec<_>, _>>()?;
@@ -107,6 +111,9 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
         actor: None,
         data: None,
     })?;
+    if let Some(behind) = behind {
+        writer.event(behind.event())?;
+    }
     let lab = Lab::resume(&reader, keys.clone(), writer.clone(), now)?;
     let areas = config.frames.iter().map(|f| f.ring_area_mm2).collect();
     let hub = Hub::resume(&reader, lab.clone(), writer.clone(), clock.clone(), areas, WatchParams::default())?;
@@ -129,12 +136,45 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
     );
     let sinks = Sinks { writer: writer.clone(), live: live.clone(), clock: clock.clone(), tap: Some(tap) };
     let mut tasks = spawn_buses(config, &keys, &sinks);
+    if clock.wall_offset_s().is_some() {
+        let period = crate::clock::WALL_CHECK_PERIOD;
+        tasks.push(tokio::spawn(crate::clock::journal_wall_steps(clock.clone(), writer.clone(), period)));
+    }
+    // After the start entries are committed: a webhook seen for the first time starts after them.
+    let notify = crate::notify::start(
+        &config.notify.webhooks,
+        &store_config.path,
+        &writer,
+        clock.clone(),
+        crate::notify::NotifyPolicy::default(),
+    )?;
+    tasks.push(notify);
     let listener = TcpListener::bind(config.http.listen)
         .await
         .map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
     let http_addr = listener.local_addr().map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
     // Offline after ten steady periods without a valid reading, and never under 30 s of clock time.
-    let stale_after = config.frames.iter().map(|f| (f.poll.steady * 10).max(Duration::from_secs(30))).collect();
+    let stale_after: Vec<Duration> =
+        config.frames.iter().map(|f| (f.poll.steady * 10).max(Duration::from_secs(30))).collect();
+    // Alarms: what an earlier run left open goes on the board first, so it is neither lost nor raised twice.
+    let alarms = AlarmBoard::default();
+    let open = {
+        let reader = store::reader(&store_config.path)?;
+        alarms::task::load_open(&reader, &keys)?
+    };
+    alarms.update(|board, _| board.extend(open.iter().map(|(_, _, v)| v.clone())));
+    let sources = AlarmSources {
+        live: live.clone(),
+        lab: lab.clone(),
+        hub: hub.clone(),
+        clock: clock.clone(),
+        writer: writer.clone(),
+        stale_after: stale_after.clone(),
+        keys: keys.clone(),
+        facts: FrameFacts::of(config),
+    };
+    let open = open.into_iter().map(|(s, c, v)| (s, c, v.id)).collect();
+    tasks.push(tokio::spawn(AlarmTask::new(sources, config.alarms.clone(), alarms.clone(), open).run()));
     let state = AppState {
         live: live.clone(),
         lab: lab.clone(),
@@ -147,6 +187,7 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
         frames: Arc::new(config.frames.clone()),
         users: Arc::new(config.http.users.clone()),
         caches: Default::default(),
+        alarms,
     };
     let app = router(state);
     tasks.push(tokio::spawn(async move {

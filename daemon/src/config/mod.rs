@@ -78,6 +78,10 @@ pub struct Config {
     pub buses: Vec<Bus>,
     /// Frames, in file order.
     pub frames: Vec<Frame>,
+    /// Notifications.
+    pub notify: NotifyConfig,
+    /// Alarm thresholds (`[alarms]`).
+    pub alarms: crate::alarms::AlarmRules,
 }
 
 /// `[store]`
@@ -315,6 +319,235 @@ pub struct DeflectionTable {
     pub unloading: Vec<(f64, f64)>,
 }
 
+/// `[notify]`: receivers of journal events.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct NotifyConfig {
+    /// `[[notify.webhook]]`, in file order; their URLs are unique.
+    pub webhooks: Vec<Webhook>,
+}
+
+/// One `[[notify.webhook]]`: a URL that gets a JSON POST for each subscribed journal event.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Webhook {
+    /// Where to post.
+    pub url: WebhookUrl,
+    /// What to post, without repeats.
+    pub events: Vec<NotifyEvent>,
+    /// Deadline of one request (connect to response head).
+    pub timeout: Duration,
+}
+
+/// Default deadline of one webhook request, s.
+pub const WEBHOOK_TIMEOUT_S: u64 = 10;
+
+/// The names a webhook subscribes to. Each stands for one or more journal kinds; `notify-failed` is in
+/// none of them, so a failed notification never causes another.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum NotifyEvent {
+    /// End of primary found: the frame is ready for its next load.
+    Ready,
+    /// An alarm was raised, acknowledged or cleared.
+    Alarm,
+    /// The watch found the onset t0 of an increment.
+    Onset,
+    /// The next stress was entered.
+    Armed,
+    /// A test started, finished, or resumed after the daemon restarted.
+    Test,
+    /// A bus went down or came back.
+    Bus,
+    /// A gauge jump was proposed as a re-seat, or the proposal was answered.
+    Reseat,
+    /// The load cell left its expected force, came back, or changed with nothing armed.
+    Load,
+    /// Someone wrote a note.
+    Note,
+}
+
+impl NotifyEvent {
+    /// Every name, in the order the allowed values are listed.
+    pub const ALL: [NotifyEvent; 9] = [
+        NotifyEvent::Ready,
+        NotifyEvent::Alarm,
+        NotifyEvent::Onset,
+        NotifyEvent::Armed,
+        NotifyEvent::Test,
+        NotifyEvent::Bus,
+        NotifyEvent::Reseat,
+        NotifyEvent::Load,
+        NotifyEvent::Note,
+    ];
+
+    /// The name in the file and in the posted body's `event`.
+    pub fn name(self) -> &'static str {
+        match self {
+            NotifyEvent::Ready => "ready",
+            NotifyEvent::Alarm => "alarm",
+            NotifyEvent::Onset => "onset",
+            NotifyEvent::Armed => "armed",
+            NotifyEvent::Test => "test",
+            NotifyEvent::Bus => "bus",
+            NotifyEvent::Reseat => "reseat",
+            NotifyEvent::Load => "load",
+            NotifyEvent::Note => "note",
+        }
+    }
+
+    /// The journal kinds (`events.kind`) it stands for.
+    pub fn kinds(self) -> &'static [&'static str] {
+        match self {
+            NotifyEvent::Ready => &["ready"],
+            NotifyEvent::Alarm => &["alarm-raised", "alarm-acknowledged", "alarm-cleared"],
+            NotifyEvent::Onset => &["onset"],
+            NotifyEvent::Armed => &["armed"],
+            NotifyEvent::Test => &["test-started", "test-finished", "test-resumed"],
+            NotifyEvent::Bus => &["bus-down", "bus-up"],
+            NotifyEvent::Reseat => &["reseat-proposed", "reseat-resolved"],
+            NotifyEvent::Load => &["load-off", "load-back", "load-change-unarmed"],
+            NotifyEvent::Note => &["note"],
+        }
+    }
+
+    /// The event of a name in the file.
+    pub fn from_name(name: &str) -> Option<NotifyEvent> {
+        NotifyEvent::ALL.into_iter().find(|e| e.name() == name)
+    }
+
+    /// The event a journal kind belongs to, if any.
+    pub fn of_kind(kind: &str) -> Option<NotifyEvent> {
+        NotifyEvent::ALL.into_iter().find(|e| e.kinds().contains(&kind))
+    }
+
+    /// `ready, alarm, …` for messages.
+    pub fn allowed() -> String {
+        NotifyEvent::ALL.map(NotifyEvent::name).join(", ")
+    }
+}
+
+/// A checked `http://host[:port][/path][?query]` URL. `Debug` and [`WebhookUrl::redacted`] leave the query
+/// out: it may hold a receiver's secret.
+#[derive(Clone, PartialEq, Eq)]
+pub struct WebhookUrl {
+    text: String,
+    authority: String,
+    host: String,
+    port: u16,
+    path_and_query: String,
+}
+
+impl fmt::Debug for WebhookUrl {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "WebhookUrl({})", self.redacted())
+    }
+}
+
+impl WebhookUrl {
+    /// Checks a URL; the error says what is wrong and never repeats the URL (it may hold a secret).
+    pub fn parse(text: &str) -> Result<WebhookUrl, String> {
+        const ALLOWED: &str = "allowed: http://host:port/path, e.g. http://127.0.0.1:8400/oedolog";
+        let scheme_is = |scheme: &str| text.get(..scheme.len()).is_some_and(|s| s.eq_ignore_ascii_case(scheme));
+        if scheme_is("https://") {
+            return Err(format!(
+                "https is not supported (this version has no TLS): point the webhook at a relay on this machine \
+                 that forwards over TLS ({ALLOWED})"
+            ));
+        }
+        if !scheme_is("http://") {
+            return Err(format!("not an http:// URL ({ALLOWED})"));
+        }
+        if text.chars().any(|c| c.is_whitespace() || c.is_control()) {
+            return Err(format!("spaces and control characters are not allowed; percent-encode them ({ALLOWED})"));
+        }
+        let rest = &text["http://".len()..];
+        let (authority, path) = match rest.find(['/', '?', '#']) {
+            Some(i) => (&rest[..i], &rest[i..]),
+            None => (rest, ""),
+        };
+        if path.contains('#') {
+            return Err(format!("a fragment (`#…`) is never sent to the receiver; leave it out ({ALLOWED})"));
+        }
+        if authority.contains('@') {
+            return Err(format!(
+                "user information (`user@`) is not supported; put a token in the path or query ({ALLOWED})"
+            ));
+        }
+        let (host, port) = if let Some(inner) = authority.strip_prefix('[') {
+            // An IPv6 literal: `[::1]:8400`.
+            let (address, after) =
+                inner.split_once(']').ok_or_else(|| format!("unclosed `[` in the host ({ALLOWED})"))?;
+            if address.parse::<std::net::Ipv6Addr>().is_err() {
+                return Err(format!("`[{address}]` is not an IPv6 address ({ALLOWED})"));
+            }
+            let port = match after {
+                "" => None,
+                _ => Some(after.strip_prefix(':').ok_or_else(|| format!("junk after `]` in the host ({ALLOWED})"))?),
+            };
+            (address, port)
+        } else {
+            match authority.rsplit_once(':') {
+                Some((host, port)) => (host, Some(port)),
+                None => (authority, None),
+            }
+        };
+        let host_ok = authority.starts_with('[')
+            || (!host.is_empty() && host.chars().all(|c| c.is_ascii_alphanumeric() || c == '.' || c == '-'));
+        if !host_ok {
+            return Err(format!("missing or malformed host ({ALLOWED})"));
+        }
+        let port = match port {
+            None => 80,
+            Some(p) => p
+                .parse::<u16>()
+                .ok()
+                .filter(|&p| p > 0)
+                .ok_or_else(|| format!("the port is not a number from 1 to 65535 ({ALLOWED})"))?,
+        };
+        let path_and_query = match path {
+            "" => "/".to_string(),
+            p if p.starts_with('?') => format!("/{p}"),
+            p => p.to_string(),
+        };
+        Ok(WebhookUrl {
+            text: text.to_string(),
+            authority: authority.to_string(),
+            host: host.to_string(),
+            port,
+            path_and_query,
+        })
+    }
+
+    /// The URL as configured (with its query: do not log it).
+    pub fn as_str(&self) -> &str {
+        &self.text
+    }
+
+    /// The host to connect to (an IPv6 address without brackets).
+    pub fn host(&self) -> &str {
+        &self.host
+    }
+
+    /// The TCP port (80 when the URL names none).
+    pub fn port(&self) -> u16 {
+        self.port
+    }
+
+    /// `host:port` as written, for the `Host` header.
+    pub fn authority(&self) -> &str {
+        &self.authority
+    }
+
+    /// The request target: path and query.
+    pub fn path_and_query(&self) -> &str {
+        &self.path_and_query
+    }
+
+    /// `http://host:port/path` without the query, for logs and the journal.
+    pub fn redacted(&self) -> String {
+        let path = self.path_and_query.split('?').next().unwrap_or("/");
+        format!("http://{}{path}", self.authority)
+    }
+}
+
 /// What the file is for: `run` needs a store and frames; the demo takes only `[http]` and notifications.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum Purpose {
@@ -470,6 +703,10 @@ impl Config {
             };
             out += &format!("bus {}: {what}; frames: {}\n", bus.id, frames.join(", "));
         }
+        for hook in &self.notify.webhooks {
+            let events: Vec<&str> = hook.events.iter().map(|e| e.name()).collect();
+            out += &format!("webhook {}: {}\n", hook.url.redacted(), events.join(", "));
+        }
         out += &format!("{} frame(s), {} bus(es)", self.frames.len(), self.buses.len());
         out
     }
@@ -597,7 +834,122 @@ fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
             });
         }
     }
-    Config { store, http: HttpConfig { listen, users }, log, buses, frames }
+    let notify = check_notify(c, &raw.notify);
+    let alarms = check_alarms(c, &raw.alarms);
+    Config { store, http: HttpConfig { listen, users }, log, buses, frames, notify, alarms }
+}
+
+/// `[alarms]`: each threshold within a range that still makes sense; defaults for the rest.
+fn check_alarms(c: &mut Checker<'_>, raw: &raw::RawAlarms) -> crate::alarms::AlarmRules {
+    let mut rules = crate::alarms::AlarmRules::default();
+    if let Some(v) = &raw.stale_after_s {
+        rules.stale_after =
+            c.int::<u64>(v, "alarms.stale_after_s", 10..604_801, "allowed 10 to 604800 s").map(Duration::from_secs);
+    }
+    if let Some(v) = &raw.travel_margin {
+        let m = *v.get_ref();
+        if m.is_finite() && (0.0..0.5).contains(&m) {
+            rules.travel_margin = m;
+        } else {
+            c.at(
+                v.span(),
+                "alarms.travel_margin",
+                format!("{m} is not allowed (a share of the travel from 0 to below 0.5)"),
+            );
+        }
+    }
+    if let Some(v) = &raw.stuck_after_s
+        && let Some(s) = c.int::<u64>(v, "alarms.stuck_after_s", 60..604_801, "allowed 60 to 604800 s")
+    {
+        rules.stuck_after = Duration::from_secs(s);
+    }
+    if let Some(v) = &raw.temperature_band_c {
+        match v.get_ref().as_slice() {
+            [low, high] if low.is_finite() && high.is_finite() && low < high => rules.temperature_band_c = *low..*high,
+            _ => c.at(v.span(), "alarms.temperature_band_c", "allowed [low, high] in °C with low < high, both finite"),
+        }
+    }
+    if let Some(v) = &raw.bus_error_rate {
+        let r = *v.get_ref();
+        if r.is_finite() && r > 0.0 && r < 1.0 {
+            rules.bus_error_rate = r;
+        } else {
+            c.at(v.span(), "alarms.bus_error_rate", format!("{r} is not allowed (a share above 0 and below 1)"));
+        }
+    }
+    if let Some(v) = &raw.bus_window_s
+        && let Some(s) = c.int::<u64>(v, "alarms.bus_window_s", 10..86_401, "allowed 10 to 86400 s")
+    {
+        rules.bus_window = Duration::from_secs(s);
+    }
+    rules
+}
+
+/// `[[notify.webhook]]`: an http:// URL used once, a non-empty list of known events, a sane deadline.
+fn check_notify(c: &mut Checker<'_>, notify: &raw::RawNotify) -> NotifyConfig {
+    let mut webhooks = Vec::new();
+    let mut urls: HashMap<String, usize> = HashMap::new();
+    for (i, hook) in notify.webhooks.iter().enumerate() {
+        let field = |name: &str| format!("notify.webhook[{i}].{name}");
+        let before = c.problems.len();
+        let url = match &hook.get_ref().url {
+            None => {
+                c.at(hook.span(), field("url"), "missing `url` (allowed: http://host:port/path)");
+                None
+            }
+            Some(text) => match WebhookUrl::parse(text.get_ref()) {
+                Err(message) => {
+                    c.at(text.span(), field("url"), message);
+                    None
+                }
+                Ok(url) => {
+                    if let Some(first) = urls.insert(url.as_str().to_string(), i) {
+                        c.at(
+                            text.span(),
+                            field("url"),
+                            format!("the same url as notify.webhook[{first}] (allowed: each url once; list all its events there)"),
+                        );
+                    }
+                    Some(url)
+                }
+            },
+        };
+        let allowed = NotifyEvent::allowed();
+        let mut events = Vec::new();
+        match &hook.get_ref().events {
+            None => c.at(hook.span(), field("events"), format!("missing `events` (allowed: a list of {allowed})")),
+            Some(list) if list.get_ref().is_empty() => {
+                c.at(list.span(), field("events"), format!("the list is empty (allowed: one or more of {allowed})"))
+            }
+            Some(list) => {
+                for name in list.get_ref() {
+                    match NotifyEvent::from_name(name.get_ref()) {
+                        None => c.at(
+                            name.span(),
+                            field("events"),
+                            format!("`{}` is not an event (allowed: {allowed})", name.get_ref()),
+                        ),
+                        Some(event) if events.contains(&event) => {
+                            c.at(name.span(), field("events"), format!("`{}` is listed twice", name.get_ref()))
+                        }
+                        Some(event) => events.push(event),
+                    }
+                }
+            }
+        }
+        let timeout = match &hook.get_ref().timeout_s {
+            None => Duration::from_secs(WEBHOOK_TIMEOUT_S),
+            Some(v) => Duration::from_secs(
+                c.int::<u64>(v, &field("timeout_s"), 1..61, "allowed 1 to 60 s").unwrap_or(WEBHOOK_TIMEOUT_S),
+            ),
+        };
+        if c.problems.len() == before
+            && let Some(url) = url
+        {
+            webhooks.push(Webhook { url, events, timeout });
+        }
+    }
+    NotifyConfig { webhooks }
 }
 
 /// `[[http.user]]`: names unique, roles known, tokens long enough; and without users, loopback only.

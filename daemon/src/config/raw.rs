@@ -25,6 +25,12 @@ pub(crate) struct RawConfig {
     /// Loading frames.
     #[serde(default, rename = "frame")]
     pub frames: Vec<RawFrame>,
+    /// Notifications.
+    #[serde(default)]
+    pub notify: RawNotify,
+    /// Alarm thresholds.
+    #[serde(default)]
+    pub alarms: RawAlarms,
 }
 
 /// `[store]`
@@ -178,4 +184,43 @@ pub(crate) struct RawDeflection {
     pub loading: Spanned<Vec<Vec<f64>>>,
     /// The same while unloading (optional).
     pub unloading: Option<Spanned<Vec<Vec<f64>>>>,
+}
+
+/// `[notify]`: where journal events are posted.
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawNotify {
+    /// `[[notify.webhook]]` tables.
+    #[serde(default, rename = "webhook")]
+    pub webhooks: Vec<Spanned<RawWebhook>>,
+}
+
+/// `[[notify.webhook]]`: one receiver of JSON POSTs.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawWebhook {
+    /// `http://host:port/path` (no TLS in this version: point `https` receivers at a local relay).
+    pub url: Option<Spanned<String>>,
+    /// Which events are posted, e.g. `["ready", "alarm"]` (names: `config::NotifyEvent`).
+    pub events: Option<Spanned<Vec<Spanned<String>>>>,
+    /// Deadline of one request, s (1..=60; default 10).
+    pub timeout_s: Option<Spanned<i64>>,
+}
+
+/// `[alarms]`: thresholds of the alarm conditions (every key optional).
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawAlarms {
+    /// No valid reading this long on a running frame: stale, s (default: ten steady polls, ≥ 30 s).
+    pub stale_after_s: Option<Spanned<i64>>,
+    /// Margin at each end of the gauge's travel as a share of it (default 0.02).
+    pub travel_margin: Option<Spanned<f64>>,
+    /// Every channel unchanged this long: stuck, s (default 1800).
+    pub stuck_after_s: Option<Spanned<i64>>,
+    /// `[low, high]` °C (default [16, 24]).
+    pub temperature_band_c: Option<Spanned<Vec<f64>>>,
+    /// Share of failed requests on a bus that raises `bus-errors` (default 0.2).
+    pub bus_error_rate: Option<Spanned<f64>>,
+    /// The window of that share, s (default 300).
+    pub bus_window_s: Option<Spanned<i64>>,
 }

@@ -236,6 +236,87 @@ fn broken_files_each_get_a_message_naming_the_field_and_what_is_allowed() {
             "increase strictly",
             23,
         ),
+        (
+            "webhook without url",
+            |s| format!("{s}[[notify.webhook]]\nevents = [\"ready\"]\n"),
+            "notify.webhook[0].url",
+            "missing `url` (allowed: http://host:port/path)",
+            22,
+        ),
+        (
+            "webhook url not http",
+            |s| format!("{s}[[notify.webhook]]\nurl = \"ftp://relay/x\"\nevents = [\"ready\"]\n"),
+            "notify.webhook[0].url",
+            "not an http:// URL (allowed: http://host:port/path",
+            23,
+        ),
+        (
+            "webhook url https",
+            |s| format!("{s}[[notify.webhook]]\nurl = \"https://hooks.example.invalid/x\"\nevents = [\"ready\"]\n"),
+            "notify.webhook[0].url",
+            "point the webhook at a relay on this machine",
+            23,
+        ),
+        (
+            "webhook url without host",
+            |s| format!("{s}[[notify.webhook]]\nurl = \"http://:8400/x\"\nevents = [\"ready\"]\n"),
+            "notify.webhook[0].url",
+            "missing or malformed host",
+            23,
+        ),
+        (
+            "webhook port past 65535",
+            |s| format!("{s}[[notify.webhook]]\nurl = \"http://127.0.0.1:70000/x\"\nevents = [\"ready\"]\n"),
+            "notify.webhook[0].url",
+            "port is not a number from 1 to 65535",
+            23,
+        ),
+        (
+            "webhook events empty",
+            |s| format!("{s}[[notify.webhook]]\nurl = \"http://127.0.0.1:8400/x\"\nevents = []\n"),
+            "notify.webhook[0].events",
+            "the list is empty (allowed: one or more of ready, alarm, onset",
+            24,
+        ),
+        (
+            "webhook unknown event",
+            |s| format!("{s}[[notify.webhook]]\nurl = \"http://127.0.0.1:8400/x\"\nevents = [\"ready\", \"readyy\"]\n"),
+            "notify.webhook[0].events",
+            "`readyy` is not an event (allowed: ready, alarm, onset, armed, test, bus, reseat, load, note)",
+            24,
+        ),
+        (
+            "duplicate webhook url",
+            |s| {
+                let hook = "[[notify.webhook]]\nurl = \"http://127.0.0.1:8400/x\"\nevents = [\"ready\"]\n";
+                format!("{s}{hook}{hook}")
+            },
+            "notify.webhook[1].url",
+            "the same url as notify.webhook[0] (allowed: each url once",
+            26,
+        ),
+        (
+            "webhook unknown field",
+            |s| {
+                format!(
+                    "{s}[[notify.webhook]]\nurl = \"http://127.0.0.1:8400/x\"\nevents = [\"ready\"]\nsecret = \"x\"\n"
+                )
+            },
+            "notify.webhook.secret",
+            "unknown field `secret`",
+            25,
+        ),
+        (
+            "webhook timeout zero",
+            |s| {
+                format!(
+                    "{s}[[notify.webhook]]\nurl = \"http://127.0.0.1:8400/x\"\nevents = [\"ready\"]\ntimeout_s = 0\n"
+                )
+            },
+            "notify.webhook[0].timeout_s",
+            "allowed 1 to 60 s",
+            25,
+        ),
     ];
     assert!(cases.len() >= 15);
     let mut failures = Vec::new();
@@ -317,4 +398,62 @@ fn bad_http_users_and_an_open_address_without_users_are_refused_at_their_line() 
     }
     let loopback = format!("{head}listen = \"[::1]:8321\"\n");
     assert!(Config::parse(&loopback, Purpose::Run).is_ok(), "loopback needs no users");
+}
+
+#[test]
+fn notify_webhooks_are_read_with_their_events_and_defaults_in_run_and_demo_files() {
+    let hooks = "[[notify.webhook]]\nurl = \"http://127.0.0.1:8400/lab?token=s3cret\"\nevents = [\"ready\", \"alarm\"]\n\n\
+                 [[notify.webhook]]\nurl = \"http://[::1]:9000\"\nevents = [\"bus\"]\ntimeout_s = 3\n";
+    let config = Config::parse(&format!("{BASE}{hooks}"), Purpose::Run).unwrap_or_else(|e| panic!("{e}"));
+    let [first, second] = config.notify.webhooks.as_slice() else { panic!("{:?}", config.notify) };
+    assert_eq!(first.events, vec![NotifyEvent::Ready, NotifyEvent::Alarm]);
+    assert_eq!(first.timeout, Duration::from_secs(WEBHOOK_TIMEOUT_S));
+    assert_eq!(
+        (first.url.host(), first.url.port(), first.url.path_and_query()),
+        ("127.0.0.1", 8400, "/lab?token=s3cret")
+    );
+    assert_eq!(first.url.redacted(), "http://127.0.0.1:8400/lab");
+    assert!(!format!("{config:?}").contains("s3cret"), "Debug leaves the query out");
+    assert!(
+        !config.summary().contains("s3cret")
+            && config.summary().contains("webhook http://127.0.0.1:8400/lab: ready, alarm")
+    );
+    assert_eq!((second.url.host(), second.url.port(), second.url.path_and_query()), ("::1", 9000, "/"));
+    assert_eq!(second.url.authority(), "[::1]:9000");
+    assert_eq!(second.timeout, Duration::from_secs(3));
+    let demo = Config::parse(&format!("[http]\nlisten = \"127.0.0.1:0\"\n{hooks}"), Purpose::Demo).unwrap();
+    assert_eq!(demo.notify, config.notify, "the demo keeps the same webhooks");
+    assert!(Config::parse(BASE, Purpose::Run).unwrap().notify.webhooks.is_empty());
+}
+
+#[test]
+fn webhook_urls_default_to_port_80_and_path_slash_and_name_the_journal_kinds_of_each_event() {
+    let url = WebhookUrl::parse("HTTP://relay.lab.local?k=1").unwrap();
+    assert_eq!((url.host(), url.port(), url.path_and_query()), ("relay.lab.local", 80, "/?k=1"));
+    assert_eq!(url.redacted(), "http://relay.lab.local/");
+    for bad in ["http://relay/#frag", "http://user@relay/x", "http://re lay/x", "http://[::1/x", "http://a:b:c/x"] {
+        assert!(WebhookUrl::parse(bad).is_err(), "{bad} accepted");
+    }
+    // Each journal kind belongs to at most one name, so a body's `event` is unambiguous.
+    let mut kinds: Vec<&str> = NotifyEvent::ALL.iter().flat_map(|e| e.kinds().iter().copied()).collect();
+    let all = kinds.len();
+    kinds.sort_unstable();
+    kinds.dedup();
+    assert_eq!(kinds.len(), all);
+    assert_eq!(NotifyEvent::of_kind("alarm-cleared"), Some(NotifyEvent::Alarm));
+    assert!(NotifyEvent::ALL.iter().all(|e| NotifyEvent::from_name(e.name()) == Some(*e)));
+}
+
+#[test]
+fn the_sample_webhook_example_is_valid_once_uncommented() {
+    let start = SAMPLE.find("# [[notify.webhook]]").expect("the sample shows a webhook");
+    let mut text = SAMPLE[..start].to_string();
+    for line in SAMPLE[start..].lines() {
+        text += line.strip_prefix("# ").filter(|l| l.starts_with('[') || l.contains(" = ")).unwrap_or(line);
+        text += "\n";
+    }
+    let config = Config::parse(&text, Purpose::Run).unwrap_or_else(|e| panic!("{e}\n{text}"));
+    assert_eq!(config.notify.webhooks.len(), 1);
+    assert_eq!(config.notify.webhooks[0].events, vec![NotifyEvent::Ready, NotifyEvent::Alarm]);
+    assert!(Config::parse(SAMPLE, Purpose::Run).unwrap().notify.webhooks.is_empty(), "commented out in the sample");
 }

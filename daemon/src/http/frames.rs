@@ -49,6 +49,8 @@ pub struct FrameView {
     pub watch: Option<WatchStatus>,
     /// Device counters.
     pub counters: Counters,
+    /// Its open alarms (raised by the daemon; acknowledged ones included, marked so).
+    pub alarms: Vec<crate::alarms::AlarmView>,
 }
 
 /// The frame state: `offline` when no valid reading came within `stale_after` (or the bus is down), else
@@ -62,6 +64,7 @@ pub(crate) fn views(state: &AppState) -> Vec<FrameView> {
     let now = state.clock.now_us();
     let tests = state.lab.snapshot();
     let watches = state.hub.status();
+    let alarms = state.alarms.open();
     state
         .live
         .snapshot()
@@ -87,6 +90,7 @@ pub(crate) fn views(state: &AppState) -> Vec<FrameView> {
                 watch: test.as_ref().and(watches.get(i)).map(|(_, w)| w.clone()),
                 test,
                 counters: f.counters,
+                alarms: alarms.iter().filter(|a| a.frame.as_deref() == Some(f.id.as_str())).cloned().collect(),
                 id: f.id,
                 name: f.name,
             }

@@ -57,6 +57,28 @@ pub(crate) fn render(state: &AppState) -> String {
     let _ = writeln!(out, "# HELP oedolog_store_backlog_readings Readings queued for the store but not yet committed.");
     let _ = writeln!(out, "# TYPE oedolog_store_backlog_readings gauge");
     let _ = writeln!(out, "oedolog_store_backlog_readings {}", state.writer.backlog());
+    let open = state.alarms.open();
+    let counts = state.alarms.counts();
+    let _ = writeln!(out, "# HELP oedolog_alarms_open Open alarms by code and whether someone acknowledged them.");
+    let _ = writeln!(out, "# TYPE oedolog_alarms_open gauge");
+    for code in crate::alarms::Code::ALL {
+        for acknowledged in [false, true] {
+            let n =
+                open.iter().filter(|a| a.code == code.name() && a.acknowledged_by.is_some() == acknowledged).count();
+            let _ =
+                writeln!(out, "oedolog_alarms_open{{code=\"{}\",acknowledged=\"{acknowledged}\"}} {n}", code.name());
+        }
+    }
+    for (name, help, map) in [
+        ("oedolog_alarms_raised_total", "Alarms raised since the daemon started, by code.", &counts.raised),
+        ("oedolog_alarms_cleared_total", "Alarms cleared since the daemon started, by code.", &counts.cleared),
+    ] {
+        let _ = writeln!(out, "# HELP {name} {help}");
+        let _ = writeln!(out, "# TYPE {name} counter");
+        for code in crate::alarms::Code::ALL {
+            let _ = writeln!(out, "{name}{{code=\"{}\"}} {}", code.name(), map.get(code.name()).copied().unwrap_or(0));
+        }
+    }
     let _ = writeln!(out, "# HELP oedolog_uptime_seconds Clock seconds since the daemon started.");
     let _ = writeln!(out, "# TYPE oedolog_uptime_seconds gauge");
     let _ = writeln!(out, "oedolog_uptime_seconds {}", (state.clock.now_us() - state.started_us) as f64 / 1e6);

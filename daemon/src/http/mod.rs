@@ -5,6 +5,7 @@
 //! book, the watch hub and the store's writer, and read on short-lived read-only connections. Nothing
 //! here ever commands a load change: arming an increment records what the operator will put on.
 
+mod alarms;
 mod auth;
 mod body;
 mod cache;
@@ -71,6 +72,8 @@ pub struct AppState {
     pub users: Arc<Vec<User>>,
     /// Answers kept while what they were built from is unchanged.
     pub caches: Arc<Caches>,
+    /// The open alarms.
+    pub alarms: crate::alarms::AlarmBoard,
 }
 
 thread_local! {
@@ -189,6 +192,7 @@ pub fn router(state: AppState) -> Router {
         .route("/healthz", get(healthz))
         .route("/api/me", get(me))
         .merge(frames::router())
+        .merge(alarms::router())
         .merge(lab_tests::router())
         .merge(increments::router())
         .merge(events::router())

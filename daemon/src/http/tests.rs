@@ -114,6 +114,7 @@ fn bench(users: bool) -> Bench {
         frames: Arc::new(config.frames.clone()),
         users: Arc::new(config.http.users.clone()),
         caches: Default::default(),
+        alarms: Default::default(),
     };
     Bench { state, clock, _writer_thread: writer_thread, dir }
 }
@@ -649,6 +650,9 @@ async fn every_route_by_every_kind_of_caller() {
         ("GET", "/api/tests/1/compression.csv", None, StatusCode::OK),
         ("GET", "/tests/1/report", None, StatusCode::OK),
         ("GET", "/api/events", None, StatusCode::OK),
+        ("GET", "/api/alarms", None, StatusCode::OK),
+        ("GET", "/api/alarms?state=all", None, StatusCode::OK),
+        ("POST", "/api/alarms/1/acknowledge", None, StatusCode::NOT_FOUND),
         ("GET", "/api/stream", None, StatusCode::OK),
         ("POST", "/api/frames/F1/tests/current/finish", None, StatusCode::OK),
     ];
@@ -838,4 +842,93 @@ async fn settlements_are_corrected_for_apparatus_deflection_with_the_frames_tabl
     assert!(csv.lines().next().unwrap().ends_with("settlement_measured_mm,apparatus_deflection_mm"), "{csv}");
     let (_, _, report) = send(&state, request("GET", &format!("/tests/{test_id}/report"), None, Who::Nobody)).await;
     assert!(report.contains("corrected for apparatus deflection with the frame"), "report says so");
+}
+
+/// An alarm's whole life through the API: raised by the alarm task (a running frame without readings),
+/// seen in the overview and `/metrics`, acknowledged by a named operator (a viewer may not), cleared by
+/// the next reading, every step in the journal.
+#[tokio::test]
+async fn an_alarm_is_raised_acknowledged_by_name_and_cleared_with_every_step_journalled() {
+    use crate::alarms::task::{AlarmSources, AlarmTask, FrameFacts};
+    let b = bench(true);
+    let as_operator = |method: &str, path: &str, body: Option<Value>| request(method, path, body, Who::Operator);
+    let (status, _, _) = send(&b.state, as_operator("POST", "/api/frames/F1/tests", Some(specimen()))).await;
+    assert_eq!(status, StatusCode::CREATED);
+    let s = &b.state;
+    let sources = AlarmSources {
+        live: s.live.clone(),
+        lab: s.lab.clone(),
+        hub: s.hub.clone(),
+        clock: s.clock.clone(),
+        writer: s.writer.clone(),
+        stale_after: s.stale_after.clone(),
+        keys: vec![s.lab.key(0), s.lab.key(1)],
+        facts: FrameFacts {
+            travel_mm: s.frames.iter().map(|f| f.displacement.range.clone()).collect(),
+            has_temperature: vec![false, false],
+            bus_of: vec!["sim".into(), "sim".into()],
+            buses: vec!["sim".into()],
+        },
+    };
+    let mut task = AlarmTask::new(sources, Default::default(), s.alarms.clone(), Vec::new());
+    assert_eq!(task.tick().await, 0, "nothing wrong yet");
+    b.clock.advance_us(31_000_000);
+    assert_eq!(task.tick().await, 1, "F1 runs a test and has had no reading for 31 s (limit 30 s)");
+    assert_eq!(task.tick().await, 0, "raised once");
+
+    let get = |path: &str| request("GET", path, None, Who::Viewer);
+    let (_, _, text) = send(s, get("/api/alarms")).await;
+    let open: Value = serde_json::from_str(&text).unwrap();
+    assert_eq!(open.as_array().unwrap().len(), 1, "{open}");
+    assert_eq!((open[0]["code"].as_str(), open[0]["frame"].as_str()), (Some("stale"), Some("F1")));
+    let id = open[0]["id"].as_i64().unwrap();
+    let (_, _, text) = send(s, get("/api/frames")).await;
+    let frames: Value = serde_json::from_str(&text).unwrap();
+    assert_eq!(frames[0]["alarms"][0]["id"].as_i64(), Some(id));
+    assert_eq!(frames[1]["alarms"], json!([]), "F2 runs no test: not stale");
+    let (_, _, metrics) = send(s, get("/metrics")).await;
+    assert!(metrics.contains("oedolog_alarms_open{code=\"stale\",acknowledged=\"false\"} 1"), "{metrics}");
+    assert!(metrics.contains("oedolog_alarms_raised_total{code=\"stale\"} 1"));
+
+    let ack = format!("/api/alarms/{id}/acknowledge");
+    assert_eq!(send(s, request("POST", &ack, None, Who::Viewer)).await.0, StatusCode::FORBIDDEN);
+    let (status, _, text) = send(s, as_operator("POST", &ack, None)).await;
+    assert_eq!(status, StatusCode::OK, "{text}");
+    let acked: Value = serde_json::from_str(&text).unwrap();
+    assert_eq!(acked["acknowledged_by"], "olga");
+    let (status, _, text) = send(s, as_operator("POST", &ack, None)).await;
+    assert_eq!(status, StatusCode::CONFLICT, "{text}");
+    assert_eq!(send(s, as_operator("POST", "/api/alarms/999/acknowledge", None)).await.0, StatusCode::NOT_FOUND);
+    assert_eq!(send(s, as_operator("POST", "/api/alarms/x/acknowledge", None)).await.0, StatusCode::BAD_REQUEST);
+    let (_, _, metrics) = send(s, get("/metrics")).await;
+    assert!(metrics.contains("oedolog_alarms_open{code=\"stale\",acknowledged=\"true\"} 1"), "{metrics}");
+
+    // A reading comes: the condition is gone, the alarm clears by itself.
+    let now = b.clock.now_us();
+    s.live.update(0, |f| f.displacement = Some((now, 3.0)));
+    assert_eq!(task.tick().await, 1);
+    let (_, _, text) = send(s, get("/api/alarms")).await;
+    assert_eq!(serde_json::from_str::<Value>(&text).unwrap(), json!([]));
+    let (_, _, text) = send(s, get("/api/alarms?state=all")).await;
+    let all: Value = serde_json::from_str(&text).unwrap();
+    assert_eq!((all[0]["open"].clone(), all[0]["acknowledged_by"].clone()), (json!(false), json!("olga")), "{all}");
+    assert!(all[0]["cleared_at"].is_string());
+    assert_eq!(send(s, get("/api/alarms?state=shut")).await.0, StatusCode::BAD_REQUEST);
+    let conn = store::reader(&s.store_path).unwrap();
+    let steps: Vec<(String, Option<String>, String)> = conn
+        .prepare("SELECT kind, actor, data FROM events WHERE kind LIKE 'alarm-%' ORDER BY id")
+        .unwrap()
+        .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))
+        .unwrap()
+        .collect::<Result<_, _>>()
+        .unwrap();
+    let kinds: Vec<&str> = steps.iter().map(|(k, _, _)| k.as_str()).collect();
+    assert_eq!(kinds, ["alarm-raised", "alarm-acknowledged", "alarm-cleared"]);
+    assert_eq!(steps[1].1.as_deref(), Some("olga"));
+    for (_, _, data) in &steps {
+        let data: Value = serde_json::from_str(data).unwrap();
+        assert_eq!((data["alarm"].as_str(), data["alarm_id"].as_i64()), (Some("stale"), Some(id)), "{data}");
+    }
+    let (_, _, metrics) = send(s, get("/metrics")).await;
+    assert!(metrics.contains("oedolog_alarms_cleared_total{code=\"stale\"} 1"), "{metrics}");
 }

@@ -10,6 +10,8 @@ use super::StoreError;
 pub const MIGRATIONS: &[(&str, &str)] = &[
     ("0001_init.sql", include_str!("../../../migrations/0001_init.sql")),
     ("0002_watch.sql", include_str!("../../../migrations/0002_watch.sql")),
+    ("0003_notify.sql", include_str!("../../../migrations/0003_notify.sql")),
+    ("0004_alarms.sql", include_str!("../../../migrations/0004_alarms.sql")),
 ];
 
 /// The schema version this binary writes.

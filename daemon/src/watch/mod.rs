@@ -2,6 +2,8 @@
 //! [`frame`] is the pure state machine; [`hub`] feeds it from acquisition, persists what it decides and
 //! takes operator actions.
 
+#[cfg(test)]
+mod clock_tests;
 pub mod frame;
 pub mod hub;
 

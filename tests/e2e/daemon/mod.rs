@@ -1,8 +1,10 @@
 //! The daemon end to end: `oedolog run` against the simulator over Modbus TCP and RTU (pty pairs),
-//! faults, a vanishing serial device, power loss by `kill -9`, restart resume, `check-config`, `backup`.
+//! faults, a vanishing serial device, power loss by `kill -9`, restart resume, `check-config`, `backup`,
+//! webhook notifications from `demo --config`.
 
 mod acquire;
 mod cli;
+mod notify;
 mod power;
 
 use std::io::{Read, Write};
