@@ -440,6 +440,8 @@
     if (host.dataset.key !== alarmKey) {
       host.dataset.key = alarmKey;
       host.replaceChildren(...alarms.map(alarmChip));
+      // The daemon's own words for each of its alarms, readable without hovering (phones).
+      document.getElementById("alarm-notes").replaceChildren(...alarms.filter((a) => a.message).map((a) => el("li", { "data-alarm": a.code }, a.message)));
     }
     const t = frame.test, w = frame.watch || {};
     const facts = [

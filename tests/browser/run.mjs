@@ -21,6 +21,10 @@ token = "${VIEWER.password}"
 name = "${OPERATOR.username}"
 role = "operator"
 token = "${OPERATOR.password}"
+
+# A band the emulated frames (about 19.5 °C) are outside: every frame raises a temperature alarm.
+[alarms]
+temperature_band_c = [30.0, 40.0]
 `;
 
 const results = [];
@@ -234,7 +238,7 @@ try {
 }
 
 // ---- access: a viewer reads and cannot act -----------------------------------------------------------
-await step("a viewer cannot act; an operator can", async () => {
+await step("a viewer cannot act; an operator can, and acknowledges an alarm by name", async () => {
   let authDemo;
   try {
     authDemo = await startDemo({ binary, config: AUTH_CONFIG, label: "demo with users" });
@@ -267,6 +271,20 @@ await step("a viewer cannot act; an operator can", async () => {
     const note = await api(o, "POST", "/api/frames/F1/notes", { text: "an operator writes" });
     check(note.status === 201 || note.status === 200, "operator's note answered " + note.status);
     await v.screenshot({ path: path.join(shots, "viewer-refused.png"), fullPage: true });
+
+    // Alarms: the daemon's temperature alarm is on the page; the viewer gets no acknowledge button, the
+    // operator acknowledges it and the page then names who did.
+    const me = await api(v, "GET", "/api/me");
+    check(me.status === 200 && me.data.role === "viewer" && me.data.may_act === false, "viewer's /api/me: " + JSON.stringify(me.data));
+    await v.waitForSelector("#frame-alarms [data-alarm=temperature]", { timeout: 15000 });
+    check((await v.$$("#frame-alarms [data-ack]")).length === 0, "a viewer is offered an acknowledge button");
+    await o.waitForSelector("#frame-alarms [data-alarm=temperature] [data-ack]", { timeout: 15000 });
+    await o.click("#frame-alarms [data-alarm=temperature] [data-ack]");
+    await o.waitForFunction(() => /seen by/.test(document.querySelector("#frame-alarms [data-alarm=temperature]")?.textContent || ""), null, { timeout: 10000 });
+    const acked = await api(o, "GET", "/api/alarms");
+    const mine = (acked.data || []).find((a) => a.frame === "F1" && a.code === "temperature");
+    check(mine && mine.acknowledged_by === OPERATOR.username, "the alarm is not acknowledged by the operator: " + JSON.stringify(mine));
+    await o.screenshot({ path: path.join(shots, "alarm-acknowledged.png"), fullPage: false });
   } finally {
     await viewer.close();
     await operator.close();
