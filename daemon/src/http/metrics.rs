@@ -79,6 +79,14 @@ pub(crate) fn render(state: &AppState) -> String {
             let _ = writeln!(out, "{name}{{code=\"{}\"}} {}", code.name(), map.get(code.name()).copied().unwrap_or(0));
         }
     }
+    if let Some(offset) = state.clock.wall_offset_s() {
+        let _ = writeln!(
+            out,
+            "# HELP oedolog_clock_wall_offset_seconds System clock minus the steady clock the readings are stamped with (a step shows here and as a clock-step journal entry)."
+        );
+        let _ = writeln!(out, "# TYPE oedolog_clock_wall_offset_seconds gauge");
+        let _ = writeln!(out, "oedolog_clock_wall_offset_seconds {offset}");
+    }
     let _ = writeln!(out, "# HELP oedolog_uptime_seconds Clock seconds since the daemon started.");
     let _ = writeln!(out, "# TYPE oedolog_uptime_seconds gauge");
     let _ = writeln!(out, "oedolog_uptime_seconds {}", (state.clock.now_us() - state.started_us) as f64 / 1e6);

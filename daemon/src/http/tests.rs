@@ -549,6 +549,15 @@ async fn metrics_are_in_prometheus_text_format() {
     ] {
         assert!(text.lines().any(|l| l == line), "missing `{line}` in\n{text}");
     }
+    assert!(!text.contains("oedolog_clock_wall_offset_seconds"), "the manual clock follows no wall clock");
+    // Under the steady clock `run` uses, a 90 s step of the system clock shows as the offset.
+    let wall = Arc::new(ManualClock::new(START_US));
+    let monotonic = Arc::new(ManualClock::new(0));
+    let steady: Arc<dyn crate::clock::Clock> = Arc::new(crate::clock::SteadyClock::new(wall.clone(), monotonic));
+    wall.advance_us(90_000_000);
+    let state = AppState { clock: steady, ..b.state.clone() };
+    let (_, _, text) = send(&state, request("GET", "/metrics", None, Who::Nobody)).await;
+    assert!(text.lines().any(|l| l == "oedolog_clock_wall_offset_seconds 90"), "{text}");
 }
 
 #[tokio::test]
