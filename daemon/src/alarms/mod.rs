@@ -496,6 +496,30 @@ pub struct AlarmView {
     pub acknowledged_at: Option<String>,
 }
 
+impl AlarmView {
+    /// A just-raised alarm: nobody has acknowledged it yet.
+    pub fn raised(
+        id: i64,
+        code: Code,
+        frame: Option<String>,
+        bus: Option<String>,
+        message: String,
+        raised_us: i64,
+    ) -> Self {
+        AlarmView {
+            id,
+            code: code.name(),
+            frame,
+            bus,
+            message,
+            raised_us,
+            raised_at: crate::clock::rfc3339(raised_us),
+            acknowledged_by: None,
+            acknowledged_at: None,
+        }
+    }
+}
+
 /// Counters for `/metrics`.
 #[derive(Clone, Debug, Default, PartialEq, Serialize)]
 pub struct AlarmCounts {

@@ -145,15 +145,9 @@ pub fn load_open(conn: &Connection, keys: &[i64]) -> Result<Vec<(Subject, Code, 
             subject,
             code,
             AlarmView {
-                id,
-                code: code.name(),
-                frame,
-                bus,
-                message,
-                raised_us,
-                raised_at: rfc3339(raised_us),
                 acknowledged_by: ack_by,
                 acknowledged_at: ack_us.map(rfc3339),
+                ..AlarmView::raised(id, code, frame, bus, message, raised_us)
             },
         ));
     }
@@ -281,17 +275,7 @@ fn apply(
                     out.push(Applied::Raised(
                         subject,
                         code,
-                        AlarmView {
-                            id,
-                            code: code.name(),
-                            frame,
-                            bus,
-                            message,
-                            raised_us: now,
-                            raised_at: rfc3339(now),
-                            acknowledged_by: None,
-                            acknowledged_at: None,
-                        },
+                        AlarmView::raised(id, code, frame, bus, message, now),
                     ));
                 }
                 Transition::Clear { subject, code, message } => {
