@@ -3,7 +3,8 @@
 //! Stored instants are UTC µs. `run` stamps with a [`SteadyClock`]: UTC anchored once to the wall clock,
 //! then advanced by a monotonic source, so a stepped system clock (NTP, a person, an RTC wrong after a
 //! power cut) never sends stamps back or bends an increment's elapsed time; a step is only reported. A
-//! scaled clock for the demo (a multi-day test in minutes, shared with the in-process simulator); a
+//! scaled clock for the demo (a multi-day test in minutes, shared with the in-process simulator); an
+//! anchored scaled clock for `run --simulated-clock` (soak tests: fast, and continuous across restarts); a
 //! manual clock for tests. Scheduling waits use tokio's monotonic timer, divided by the clock's speed —
 //! never the wall clock. Nothing here reads local time: DST is a matter of display only.
 
@@ -127,6 +128,80 @@ impl Clock for ScaledClock {
 
     fn speed(&self) -> f64 {
         self.speed
+    }
+}
+
+/// `SPEED@ORIGIN_US` of `oedolog run --simulated-clock`: a clock running `speed` times faster than real time
+/// since the UTC instant `origin_us` (where it reads the wall time).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct SimulatedClockSpec {
+    /// Clock seconds per real second, 0 < speed ≤ [`MAX_SIMULATED_SPEED`].
+    pub speed: f64,
+    /// The anchor, µs since 1970-01-01 UTC.
+    pub origin_us: i64,
+}
+
+/// The fastest simulated clock `run` accepts (the demo's bound too).
+pub const MAX_SIMULATED_SPEED: f64 = 100_000.0;
+
+impl std::str::FromStr for SimulatedClockSpec {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        const ALLOWED: &str = "allowed SPEED@ORIGIN_US, e.g. 1500@1764626251000000: 0 < SPEED ≤ 100000 clock seconds per \
+                               real second, ORIGIN_US a UTC instant in whole µs since 1970";
+        let (speed, origin) = text.split_once('@').ok_or_else(|| format!("`{text}` has no `@` ({ALLOWED})"))?;
+        let speed = speed
+            .trim()
+            .parse::<f64>()
+            .ok()
+            .filter(|s| s.is_finite() && *s > 0.0 && *s <= MAX_SIMULATED_SPEED)
+            .ok_or_else(|| format!("speed `{speed}` is not allowed ({ALLOWED})"))?;
+        let origin_us =
+            origin.trim().parse::<i64>().map_err(|_| format!("origin `{origin}` is not whole µs ({ALLOWED})"))?;
+        Ok(SimulatedClockSpec { speed, origin_us })
+    }
+}
+
+/// A fast clock anchored to a fixed UTC instant rather than to its own start: it reads
+/// `origin + speed × (wall − origin)`, so every process given the same anchor reads the same time and a
+/// daemon restarted on it goes on where it stopped (soak tests, demos against an external simulator).
+/// It follows the wall clock scaled, so a stepped system clock bends it; it never reads earlier than it has.
+pub struct AnchoredScaledClock {
+    wall: Arc<dyn Clock>,
+    spec: SimulatedClockSpec,
+    /// The latest reading given out, µs: a wall clock that went back is held at it.
+    latest_us: AtomicI64,
+}
+
+impl AnchoredScaledClock {
+    /// A clock on `spec` over the wall clock `wall`.
+    pub fn new(spec: SimulatedClockSpec, wall: Arc<dyn Clock>) -> Self {
+        AnchoredScaledClock { wall, spec, latest_us: AtomicI64::new(i64::MIN) }
+    }
+
+    /// A clock on `spec` over the operating system's UTC clock (what `run --simulated-clock` stamps with).
+    pub fn system(spec: SimulatedClockSpec) -> Self {
+        AnchoredScaledClock::new(spec, Arc::new(SystemClock))
+    }
+}
+
+impl std::fmt::Debug for AnchoredScaledClock {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("AnchoredScaledClock").field("spec", &self.spec).field("now", &rfc3339(self.now_us())).finish()
+    }
+}
+
+impl Clock for AnchoredScaledClock {
+    fn now_us(&self) -> i64 {
+        let SimulatedClockSpec { speed, origin_us } = self.spec;
+        let scaled = (self.wall.now_us().saturating_sub(origin_us) as f64 * speed) as i64;
+        let now = origin_us.saturating_add(scaled);
+        now.max(self.latest_us.fetch_max(now, Ordering::SeqCst))
+    }
+
+    fn speed(&self) -> f64 {
+        self.spec.speed
     }
 }
 
@@ -390,6 +465,63 @@ mod tests {
         assert_eq!(clock.real_wait(Duration::from_secs(60), Duration::from_millis(20)), Duration::from_millis(100));
         assert_eq!(clock.real_wait(Duration::from_secs(1), Duration::from_millis(20)), Duration::from_millis(20));
         assert!(clock.now_us() >= 1_000_000);
+    }
+
+    #[test]
+    fn anchored_clocks_on_one_anchor_read_the_same_time_so_a_restart_goes_on_where_it_stopped() {
+        let wall = Arc::new(ManualClock::new(T0_US + 10_000_000));
+        let spec = SimulatedClockSpec { speed: 1500.0, origin_us: T0_US };
+        let first = AnchoredScaledClock::new(spec, wall.clone());
+        // 10 s of real time since the anchor is 15 000 s of clock time.
+        assert_eq!(first.now_us(), T0_US + 15_000_000_000);
+        wall.advance_us(2_000_000);
+        let before_restart = first.now_us();
+        // A second process (the daemon restarted) given the same anchor reads the same instant.
+        let restarted = AnchoredScaledClock::new(spec, wall.clone());
+        assert_eq!(restarted.now_us(), before_restart);
+        assert_eq!(restarted.now_us(), T0_US + 18_000_000_000);
+        wall.advance_us(1_000);
+        assert_eq!(restarted.now_us() - before_restart, 1_500_000, "1 ms of real time is 1.5 s of clock time");
+    }
+
+    #[test]
+    fn an_anchored_clock_is_simulated_scales_waits_and_never_goes_back() {
+        let wall = Arc::new(ManualClock::new(T0_US));
+        let clock =
+            AnchoredScaledClock::new(SimulatedClockSpec { speed: 600.0, origin_us: T0_US - 1_000_000 }, wall.clone());
+        assert!(clock.is_simulated());
+        assert_eq!(clock.speed(), 600.0);
+        assert_eq!(clock.real_wait(Duration::from_secs(60), Duration::from_millis(20)), Duration::from_millis(100));
+        assert_eq!(
+            (clock.wall_offset_s(), clock.check_wall(), clock.resume_after(T0_US + HOUR_US)),
+            (None, None, false)
+        );
+        let now = clock.now_us();
+        assert_eq!(now, T0_US - 1_000_000 + 600_000_000);
+        wall.advance_us(-HOUR_US);
+        assert_eq!(clock.now_us(), now, "a wall clock stepped back holds the reading");
+        wall.advance_us(HOUR_US + 10);
+        assert_eq!(clock.now_us(), now + 6_000);
+    }
+
+    #[test]
+    fn a_simulated_clock_spec_parses_speed_at_origin_and_refuses_anything_else_naming_the_part() {
+        let spec: SimulatedClockSpec = "1500@1764626251000000".parse().unwrap();
+        assert_eq!(spec, SimulatedClockSpec { speed: 1500.0, origin_us: 1_764_626_251_000_000 });
+        assert_eq!("2.5@-7".parse::<SimulatedClockSpec>().unwrap(), SimulatedClockSpec { speed: 2.5, origin_us: -7 });
+        for (text, names) in [
+            ("1500", "no `@`"),
+            ("0@1", "speed `0`"),
+            ("-3@1", "speed `-3`"),
+            ("inf@1", "speed `inf`"),
+            ("100001@1", "speed `100001`"),
+            ("fast@1", "speed `fast`"),
+            ("10@1.5", "origin `1.5`"),
+            ("10@", "origin ``"),
+        ] {
+            let error = text.parse::<SimulatedClockSpec>().unwrap_err();
+            assert!(error.contains(names) && error.contains("0 < SPEED ≤ 100000"), "{text}: {error}");
+        }
     }
 
     #[test]

@@ -7,7 +7,7 @@ use std::sync::Arc;
 
 use anyhow::{Context, bail};
 use clap::{Parser, Subcommand};
-use oedolog::clock::{Clock, SteadyClock};
+use oedolog::clock::{AnchoredScaledClock, Clock, SimulatedClockSpec, SteadyClock};
 use oedolog::config::{Config, Purpose};
 use oedolog::{demo, logging, service, store};
 
@@ -29,6 +29,10 @@ enum Command {
         /// Print `committed batch=… readings=… total=… last=…` on stdout after each durable commit.
         #[arg(long)]
         report_commits: bool,
+        /// For soak tests and demos: time runs SPEED× faster than real time since ORIGIN_US (UTC µs), so
+        /// restarts given the same anchor go on where they stopped. Stamps are then not the lab's time.
+        #[arg(long, value_name = "SPEED@ORIGIN_US")]
+        simulated_clock: Option<SimulatedClockSpec>,
     },
     /// Simulated frames, the daemon and the dashboard in one process, on a fast clock.
     Demo {
@@ -122,11 +126,21 @@ fn load(path: &std::path::Path, purpose: Purpose) -> anyhow::Result<Config> {
 
 async fn run(command: Command) -> anyhow::Result<()> {
     match command {
-        Command::Run { config, report_commits } => {
+        Command::Run { config, report_commits, simulated_clock } => {
             let config = load(&config, Purpose::Run)?;
             let _guard = logging::init(&config.log).map_err(anyhow::Error::msg)?;
-            // Stamps follow a steady clock: a stepped system clock is reported, never followed.
-            let clock: Arc<dyn Clock> = Arc::new(SteadyClock::system());
+            let clock: Arc<dyn Clock> = match simulated_clock {
+                Some(spec) => {
+                    tracing::warn!(
+                        "simulated clock: {}× real time since {}; stamps are not the lab's time",
+                        spec.speed,
+                        oedolog::clock::rfc3339(spec.origin_us)
+                    );
+                    Arc::new(AnchoredScaledClock::system(spec))
+                }
+                // Stamps follow a steady clock: a stepped system clock is reported, never followed.
+                None => Arc::new(SteadyClock::system()),
+            };
             let running = service::start(&config, clock, service::Options { report_commits }).await?;
             // One line on stdout once serving: scripts and tests wait for it.
             println!("listening on http://{}/", running.http_addr);

@@ -18,7 +18,7 @@ const OPERATOR: &str = "Bearer e2e-operator-token-0123";
 const VIEWER: &str = "Basic dmljOmUyZS12aWV3ZXItdG9rZW4tMDEyMzQ=";
 
 /// One HTTP/1.1 request with `Connection: close`: (status, head, body).
-fn http(
+pub(crate) fn http(
     addr: SocketAddr,
     method: &str,
     path: &str,

@@ -9,4 +9,5 @@ mod daemon;
 mod peers_mbpoll;
 mod peers_pymodbus;
 mod protocol_vs_pymodbus;
+mod soak;
 mod util_selftest;

@@ -399,7 +399,12 @@ impl Simulator {
     /// Starts `oedolog-sim` serving Modbus TCP on a port the OS picks (`--tcp 127.0.0.1:0`), plus
     /// `extra_args`, and waits for its `listening on tcp` line.
     pub fn start_tcp(extra_args: &[&str]) -> Result<Simulator> {
-        let mut command = Command::new(workspace_binary("oedolog-sim"));
+        Simulator::start_tcp_with(&workspace_binary("oedolog-sim"), extra_args)
+    }
+
+    /// [`Simulator::start_tcp`] with the `oedolog-sim` binary at `binary` (a release build, say).
+    pub fn start_tcp_with(binary: &Path, extra_args: &[&str]) -> Result<Simulator> {
+        let mut command = Command::new(binary);
         command.args(["--tcp", "127.0.0.1:0"]).args(extra_args);
         let (process, line) = ChildGuard::spawn_ready("oedolog-sim", command, "listening on tcp ")?;
         let address = line["listening on tcp ".len()..].trim();

@@ -385,17 +385,18 @@ impl FrameWatch {
         onset_us: Option<i64>,
         ready_us: Option<i64>,
         readings: &[(i64, Option<f64>, Option<f64>)],
-    ) {
+    ) -> Vec<Note> {
         self.specimen = Some(specimen);
         self.zero_mm = zero_mm;
         self.phase = Phase::Seating;
         self.seq = seq - 1;
         self.stress_kpa = from_kpa;
+        let mut notes = Vec::new();
         match (armed_us, onset_us) {
             (_, Some(onset)) => {
                 self.begin(seq, stress_kpa, onset, readings.iter().find(|r| r.0 <= onset).and_then(|r| r.1));
                 for &(at_us, d, l) in readings.iter().filter(|r| r.0 > onset) {
-                    let _ = self.sample(at_us, d, l);
+                    notes.extend(self.sample(at_us, d, l));
                 }
                 if let Some(at) = ready_us {
                     self.phase = Phase::Ready;
@@ -405,12 +406,24 @@ impl FrameWatch {
                 }
             }
             (Some(armed), None) => {
+                // The load may have gone on while the daemon was down, or just before it stopped: replay
+                // the readings since the look-back so the step is found as it would have been live.
                 self.phase = Phase::Armed;
                 self.armed = Some((stress_kpa, armed));
-                self.seq = seq - 1;
+                for &(at_us, d, l) in readings {
+                    notes.extend(self.sample(at_us, d, l));
+                }
             }
             (None, None) => {}
         }
+        // Only what a replay can find that the store does not know yet: the onset, and end of primary.
+        // Everything else it met was journalled the first time.
+        notes.retain(|n| match n {
+            Note::Onset { .. } => true,
+            Note::Ready { .. } => ready_us.is_none(),
+            _ => false,
+        });
+        notes
     }
 
     /// The operator enters the next stress. Allowed under seating, in primary (cutting an increment short)
@@ -503,9 +516,19 @@ impl FrameWatch {
         let since = (armed_us - self.params.onset_lookback_us).max(self.last_onset_us.saturating_add(60_000_000));
         let has_load = self.history.iter().rev().take(8).any(|s| s.load_kn.is_some());
         let (onset_us, source) = if has_load {
-            let change = *self.changes.iter().find(|c| c.before_us >= since)?;
             let level = self.level_kn?;
             let expected = self.expected_kn(stress_kpa).unwrap_or(level);
+            // The step moves the load towards the expected force by a good part of the way (weights may
+            // go on in stages): a small change in another direction or size (the tail of the previous
+            // load's ramp caught mid-way by a poll gap, found on the soak) is not it. Without such a
+            // change (a cell whose zero is far off), the first change is taken, as before.
+            let before = self.expected_kn(self.stress_kpa).unwrap_or(level);
+            let toward = |c: &&LevelChange| {
+                let (step, moved) = (expected - before, c.to_kn - c.from_kn);
+                moved * step > 0.0 && moved.abs() >= 0.1 * step.abs()
+            };
+            let mut candidates = self.changes.iter().filter(|c| c.before_us >= since);
+            let change = *candidates.clone().find(toward).or_else(|| candidates.next())?;
             // Weights may go on in stages: wait until the load stands near the expected force.
             let step = (expected - change.from_kn).abs().max(0.003);
             if (level - expected).abs() > 0.3 * step {
@@ -655,15 +678,19 @@ impl FrameWatch {
         let result = reduce_curve(&live.curve, &live.params).ok()?;
         let small = result.flags.iter().any(|f| matches!(f, Flag::SmallPrimary { .. }));
         let levelled = live.swelling || small;
-        let ok = if levelled {
-            // Rebound, or a primary too small for the constructions: ready once the last 0.3 log cycle of
-            // time moved the gauge by under 10 % of its movement since the first reading after t0, and at
-            // least 10 min have passed [our rule; on the ideal curve it holds from about 1.4·t100, C].
+        // The last 0.3 log cycle of time moved the gauge by under 10 % of its movement since the first
+        // reading after t0, and at least 10 min have passed [our rule; on the ideal curve it holds from
+        // about 1.4·t100, C].
+        let settled = {
             let nodes = live.curve.nodes();
             let total = nodes.first().map_or(0.0, |n| (d - n.d_mm).abs());
             let earlier = t_min / 10f64.powf(0.3);
             let then = nodes.iter().rev().find(|n| n.t_min <= earlier).map(|n| n.d_mm);
             t_min > 10.0 && total > 0.0 && then.is_some_and(|v| (d - v).abs() < 0.1 * total)
+        };
+        let ok = if levelled {
+            // Rebound, or a primary too small for the constructions: ready once movement has levelled off.
+            settled
         } else {
             let c = &result.casagrande;
             // The secondary line must lie after the end of primary by Taylor's estimate (1.30·t90), so a
@@ -680,7 +707,14 @@ impl FrameWatch {
             // ideal curve, REFERENCES §1.4 [C]) with a 5 % margin for the construction's bias and noise.
             let past_taylor = result.taylor.d100_mm.is_some_and(|d100| d >= d100)
                 && result.taylor.t90_min.is_some_and(|t90| t_min >= 1.05 * T100_OVER_T90 * t90);
-            secondary && past_casagrande && past_taylor
+            // A √t straight part fitted on too few early readings (sparse polls, a gap after the load
+            // step) can put t90 far too early, and with it both checks above: then movement must also
+            // have levelled off (found on the soak, where ready came at 0.44–0.9·t100 without this).
+            let taylor_weak = result
+                .flags
+                .iter()
+                .any(|f| matches!(f, Flag::FitWindowTooShort { construction: "√t straight part", .. }));
+            secondary && past_casagrande && past_taylor && (!taylor_weak || settled)
         };
         live.result = Some(result);
         if !ok && at_us - live.onset_us >= params.fallback_hold_s as i64 * 1_000_000 {

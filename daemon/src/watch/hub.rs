@@ -56,6 +56,7 @@ impl Hub {
         params: WatchParams,
     ) -> Result<Hub, StoreError> {
         let mut watches = Vec::new();
+        let mut replayed = Vec::new();
         for (i, test) in lab.snapshot().into_iter().enumerate() {
             let mut watch = FrameWatch::new(params.clone());
             if let Some(t) = test {
@@ -67,16 +68,21 @@ impl Hub {
                         |r| r.get::<_, f64>(0),
                     )
                     .ok();
-                let since = t.onset_us.map_or(clock.now_us(), |onset| onset - 120_000_000);
-                let readings = if t.onset_us.is_some() {
-                    crate::store::polls(conn, lab.key(i), since, i64::MAX)?
-                } else {
-                    Vec::new()
+                // From just before t0; for an increment still armed, from the onset look-back before
+                // it was armed (its load may have gone on meanwhile, perhaps while the daemon was down).
+                let since = match (t.onset_us, t.armed_us) {
+                    (Some(onset), _) => Some(onset - 120_000_000),
+                    (None, Some(armed)) => Some(armed - params.onset_lookback_us - 600_000_000),
+                    (None, None) => None,
+                };
+                let readings = match since {
+                    Some(since) => crate::store::polls(conn, lab.key(i), since, i64::MAX)?,
+                    None => Vec::new(),
                 };
                 if t.increment == 0 {
                     watch.start_test(specimen, t.seating_kpa);
                 } else {
-                    watch.resume(
+                    let notes = watch.resume(
                         specimen,
                         zero,
                         t.increment,
@@ -87,17 +93,24 @@ impl Hub {
                         t.ready_us,
                         &readings,
                     );
+                    replayed.push((i, notes));
                 }
             }
             watches.push(watch);
         }
-        Ok(Hub {
+        let hub = Hub {
             state: Arc::new(Mutex::new(State { watches, pending: HashMap::new() })),
             lab,
             writer,
             clock,
             areas_mm2: Arc::new(areas_mm2),
-        })
+        };
+        // What the replay found that the store did not know (an onset or end of primary reached in the
+        // readings committed just before a stop) is recorded now, as it would have been live.
+        for (i, notes) in replayed {
+            hub.act(i, notes);
+        }
+        Ok(hub)
     }
 
     fn lock(&self) -> std::sync::MutexGuard<'_, State> {

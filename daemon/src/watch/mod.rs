@@ -6,6 +6,8 @@
 mod clock_tests;
 pub mod frame;
 pub mod hub;
+#[cfg(test)]
+mod hub_tests;
 
 pub use frame::{
     EopRule, FrameWatch, Note, OnsetSource, Phase, Reseat, Specimen, WatchError, WatchParams, WatchStatus,

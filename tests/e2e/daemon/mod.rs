@@ -5,7 +5,7 @@
 mod acquire;
 mod cli;
 mod notify;
-mod power;
+pub(crate) mod power;
 
 use std::io::{Read, Write};
 use std::net::{SocketAddr, TcpStream};
@@ -14,7 +14,7 @@ use std::process::Command;
 use std::time::{Duration, Instant};
 
 use anyhow::{Context, Result, bail};
-use oedolog_tests::{ChildGuard, workspace_binary};
+use oedolog_tests::{ChildGuard, READY_TIMEOUT, Stream, workspace_binary};
 
 /// A frame block in the simulator's register map (README): displacement i32 0.1 µm at input 0, load i32
 /// 0.1 N at input 2, temperature i16 0.01 °C at input 4.
@@ -67,9 +67,16 @@ pub(crate) struct Daemon {
 impl Daemon {
     /// Starts `oedolog run --config FILE` (plus `extra`) and waits for its `listening on http://` line.
     pub(crate) fn start(config: &Path, extra: &[&str]) -> Result<Daemon> {
-        let mut command = Command::new(workspace_binary("oedolog"));
+        Daemon::start_with(&workspace_binary("oedolog"), config, extra, READY_TIMEOUT)
+    }
+
+    /// [`Daemon::start`] with the `oedolog` binary at `binary`, waiting up to `ready_timeout` for the line.
+    pub(crate) fn start_with(binary: &Path, config: &Path, extra: &[&str], ready_timeout: Duration) -> Result<Daemon> {
+        let mut command = Command::new(binary);
         command.arg("run").arg("--config").arg(config).args(extra);
-        let (process, line) = ChildGuard::spawn_ready("oedolog", command, "listening on http://")?;
+        let mut process = ChildGuard::spawn("oedolog", command)?;
+        let line =
+            process.wait_for_line(Stream::Stdout, ready_timeout, |line| line.starts_with("listening on http://"))?;
         let addr = line.trim_start_matches("listening on http://").trim_end_matches('/');
         Ok(Daemon { process, http: addr.parse().with_context(|| format!("readiness line {line:?}"))? })
     }

@@ -14,12 +14,16 @@ use rusqlite::params;
 
 use super::*;
 
-struct Commit {
-    readings: i64,
-    last: Option<(i64, i64, i64)>,
+/// One `committed …` line of `oedolog run --report-commits`.
+pub(crate) struct Commit {
+    /// Readings the commit inserted.
+    pub(crate) readings: i64,
+    /// Its last reading: (frame key, channel, at_us).
+    pub(crate) last: Option<(i64, i64, i64)>,
 }
 
-fn parse_commit(line: &str) -> Option<Commit> {
+/// Parses a `committed batch=B readings=N total=T last=FRAME:CHANNEL:AT_US` line (`None` for any other).
+pub(crate) fn parse_commit(line: &str) -> Option<Commit> {
     let mut readings = None;
     let mut last = None;
     for word in line.strip_prefix("committed ")?.split_whitespace() {
