@@ -384,6 +384,7 @@
     document.body.dataset.readonly = "true";
     const host = document.getElementById("actions");
     host.querySelectorAll("input, button, textarea").forEach((e) => (e.disabled = true));
+    document.querySelectorAll("#frame-alarms [data-ack]").forEach((b) => b.remove());
     if (!host.querySelector("[data-role=readonly]")) host.prepend(el("p", { class: "form-msg bad", "data-role": "readonly" }, "This account may view only: actions are for an operator."));
   }
 
@@ -410,7 +411,8 @@
   // until its condition is gone).
   function alarmChip(a) {
     const chip = el("span", { class: "alarm " + a.code + (a.acknowledged ? " acked" : ""), "data-alarm": a.code, title: a.message || a.text }, a.text);
-    if (a.id && !a.acknowledged && !O.readOnly) {
+    // Only once /api/me has said this account may act: a viewer never sees the button, not even briefly.
+    if (a.id && !a.acknowledged && O.mayAct === true && !O.readOnly) {
       const b = el("button", { class: "btn quiet ack", type: "button", "data-ack": a.id }, "Seen — I'm on it");
       b.addEventListener("click", async () => {
         b.disabled = true;
@@ -508,7 +510,13 @@
   window.addEventListener("resize", () => { clearTimeout(resizeTimer); resizeTimer = setTimeout(resizeCharts, 150); });
   O.on("frames", onFrames);
   O.on("journal", (j) => addJournal([j.entry]));
-  api("GET", "/api/me").then((r) => { if (r.ok && r.data && r.data.may_act === false) markReadOnly(); });
+  api("GET", "/api/me").then((r) => {
+    O.mayAct = !!(r.ok && r.data && r.data.may_act === true);
+    if (r.ok && r.data && r.data.may_act === false) markReadOnly();
+    // Draw the alarm chips again now that it is known whether they get an acknowledge button.
+    document.getElementById("frame-alarms").dataset.key = "";
+    if (frame) renderHead();
+  });
   if (!frameId) document.getElementById("frame-name").textContent = "No frame chosen — go back to all frames";
   O.start();
 })();
