@@ -443,9 +443,12 @@ impl RtuSlave {
         self.frames.pop_front()
     }
 
-    /// The transport saw t3.5 of silence. A buffered run with a good CRC and an unimplemented function
-    /// code is delivered as a frame (so the device can answer exception 01); anything else is flushed.
+    /// The transport saw t3.5 of silence. The silence ends every frame: a header still waiting for its
+    /// bytes was noise, so a frame held back inside it is delivered now. A buffered run with a good CRC
+    /// and an unimplemented function code is delivered as a frame (so the device can answer exception
+    /// 01); anything else is flushed.
     pub fn idle_gap(&mut self) {
+        self.scan_at(true);
         let buf = &self.scanner.buf;
         if buf.len() >= MIN_ADU_LEN && check_crc(buf) && FunctionCode::from_code(buf[1]).is_none() {
             let frame = RequestFrame {
@@ -478,6 +481,11 @@ impl RtuSlave {
     }
 
     fn scan(&mut self) {
+        self.scan_at(false);
+    }
+
+    /// Scans the buffer; `at_gap`: the line has gone silent, so an incomplete frame holds nothing back.
+    fn scan_at(&mut self, at_gap: bool) {
         let start_at = |s: &[u8], crc_failures: &mut u64| {
             let Some(&fc) = s.get(1) else { return Start::Pending };
             match FunctionCode::from_code(fc) {
@@ -491,6 +499,7 @@ impl RtuSlave {
                             && (1..=123).contains(&quantity)
                             && usize::from(count) == 2 * usize::from(quantity);
                         match classify(s, &[Some(len)], false, crc_failures) {
+                            Start::Pending if at_gap => Start::Rejected,
                             Start::Pending if consistent => Start::Expecting(len),
                             other => other,
                         }

@@ -485,6 +485,10 @@ proptest::proptest! {
                 frames.push(f);
             }
         }
+        // The line falls silent after the request, as it does on a real bus: that ends a noise header
+        // which was still waiting for its bytes and would otherwise hold the request back.
+        slave.idle_gap();
+        frames.extend(std::iter::from_fn(|| slave.decode()));
         let wanted = RequestFrame { unit: UnitId(unit), function: request.function().code(), request: Ok(request.clone()) };
         // As for the master: only a CRC-valid run inside the noise may come first (oracle: any offset
         // before the frame whose request-shaped length checks).
@@ -543,4 +547,22 @@ fn regression_a_crc_valid_run_inside_a_write_request_is_data_not_a_frame() {
         frames.extend(std::iter::from_fn(|| slave.decode()));
     }
     assert_eq!(frames, [RequestFrame { unit: UnitId(1), function: 0x10, request: Ok(request) }]);
+}
+
+/// Regression (found by proptest): noise `00 10 00 00 00` before a request forms, with the request's first
+/// bytes, a self-consistent write-multiple header (quantity 3, byte count 6) that holds the request back as
+/// its data; the silence after the request ends that header and the request is delivered.
+#[test]
+fn regression_a_noise_header_holding_a_request_back_is_ended_by_the_idle_gap() {
+    let request = Request::WriteSingleRegister { address: 0, value: 0 };
+    let mut pdu = Vec::new();
+    request.encode(&mut pdu);
+    let bytes = [vec![0x00, 0x10, 0x00, 0x00, 0x00], encode_adu(UnitId(3), &pdu)].concat();
+    let mut slave = RtuSlave::new();
+    for byte in &bytes {
+        slave.push(std::slice::from_ref(byte));
+    }
+    assert_eq!(slave.decode(), None, "held while the noise header may still be a frame");
+    slave.idle_gap();
+    assert_eq!(slave.decode(), Some(RequestFrame { unit: UnitId(3), function: 0x06, request: Ok(request) }));
 }
