@@ -492,7 +492,15 @@
     const has = t ? "true" : "false";
     if (document.body.dataset.hasTest !== has) { document.body.dataset.hasTest = has; requestAnimationFrame(resizeCharts); }
     const key = [t && t.test_id, t && t.increment].join("/");
-    if (key !== lastKey) { lastKey = key; selectedSeq = null; seqPicker(); if (t) { loadStep(t.increment); loadCompression(); } else { timeCharts({ t: [], d: [] }, null); compression = null; summaries = []; compressionChart(); renderTable(); } }
+    if (key !== lastKey) {
+      // A new test resets the view; a new step of the same test keeps an earlier step someone chose to
+      // look at (the picker gains the new step; the page does not jump away from what is being read).
+      const sameTest = t && lastKey.split("/")[0] === String(t.test_id);
+      lastKey = key;
+      if (!sameTest) selectedSeq = null;
+      seqPicker();
+      if (t) { if (selectedSeq === null) loadStep(t.increment); loadCompression(); } else { timeCharts({ t: [], d: [] }, null); compression = null; summaries = []; compressionChart(); renderTable(); }
+    }
     else if (t && selectedSeq === null && Date.now() - lastCurveAt > 5000 && (f.state === "primary" || f.state === "ready" || f.state === "seating")) { lastCurveAt = Date.now(); loadStep(t.increment); }
     if (t && Date.now() - lastCompAt > 20000) { lastCompAt = Date.now(); loadCompression(); }
     if (first) loadJournal();
