@@ -126,7 +126,9 @@ try {
     await page.goto(demo.base + "/frame.html?id=" + id);
     await page.waitForFunction(() => {
       const c = window.oedolog.charts;
-      return c.logt && c.sqrt && c.compression && c.logt.data[0].length > 5 && c.sqrt.data[0].length > 5 && c.compression.data[0].length >= 2;
+      // Readings, not x positions: a step that has just begun may hold a construction point without one.
+      const readings = (u) => u.data[1].filter((v) => v != null).length;
+      return c.logt && c.sqrt && c.compression && readings(c.logt) > 5 && readings(c.sqrt) > 5 && c.compression.data[0].length >= 2;
     }, null, { timeout: 30000 });
     const info = await page.evaluate(() => ({
       logt: window.oedolog.charts.logt.data[1].filter((v) => v != null).length,
