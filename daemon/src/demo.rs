@@ -36,7 +36,7 @@ pub struct DemoOptions {
     /// `[[notify.webhook]]` of the `--config` file.
     pub notify: crate::config::NotifyConfig,
     /// `[alarms]` of the `--config` file (else the defaults).
-    pub alarms: crate::alarms::AlarmRules,
+    pub alarms: oedolog_core::alarms::AlarmRules,
 }
 
 /// The default database of the demo: `$XDG_DATA_HOME/oedolog/demo.sqlite` (or `~/.local/share/…`), else

@@ -4,7 +4,6 @@
 
 pub mod acquire;
 pub mod alarms;
-pub mod analysis;
 pub mod clock;
 pub mod config;
 pub mod demo;
@@ -12,7 +11,6 @@ pub mod http;
 pub mod lab;
 pub mod logging;
 pub mod notify;
-pub mod offline;
 pub mod service;
 pub mod store;
 pub mod watch;

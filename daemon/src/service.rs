@@ -9,7 +9,7 @@ use tokio::net::TcpListener;
 
 use crate::acquire::{Live, LiveFrame, Sinks, spawn_buses};
 use crate::alarms::task::{AlarmSources, AlarmTask, FrameFacts};
-use crate::alarms::{self, AlarmBoard};
+use crate::alarms::AlarmBoard;
 use crate::clock::Clock;
 use crate::config::Config;
 use crate::http::{AppState, router};
@@ -160,7 +160,7 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
     let alarms = AlarmBoard::default();
     let open = {
         let reader = store::reader(&store_config.path)?;
-        alarms::task::load_open(&reader, &keys)?
+        crate::alarms::task::load_open(&reader, &keys)?
     };
     alarms.update(|board, _| board.extend(open.iter().map(|(_, _, v)| v.clone())));
     let sources = AlarmSources {

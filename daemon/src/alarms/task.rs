@@ -8,7 +8,8 @@ use std::time::Duration;
 
 use rusqlite::{Connection, OptionalExtension, params};
 
-use super::{AlarmBoard, AlarmEngine, AlarmRules, AlarmView, BusInput, Code, FrameInput, Subject, Transition};
+use super::{AlarmBoard, AlarmView};
+use oedolog_core::alarms::{AlarmEngine, AlarmRules, BusInput, Code, FrameInput, Subject, Transition};
 use crate::acquire::Live;
 use crate::clock::{Clock, rfc3339};
 use crate::config::Config;

@@ -81,7 +81,7 @@ pub struct Config {
     /// Notifications.
     pub notify: NotifyConfig,
     /// Alarm thresholds (`[alarms]`).
-    pub alarms: crate::alarms::AlarmRules,
+    pub alarms: oedolog_core::alarms::AlarmRules,
 }
 
 /// `[store]`
@@ -840,8 +840,8 @@ fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
 }
 
 /// `[alarms]`: each threshold within a range that still makes sense; defaults for the rest.
-fn check_alarms(c: &mut Checker<'_>, raw: &raw::RawAlarms) -> crate::alarms::AlarmRules {
-    let mut rules = crate::alarms::AlarmRules::default();
+fn check_alarms(c: &mut Checker<'_>, raw: &raw::RawAlarms) -> oedolog_core::alarms::AlarmRules {
+    let mut rules = oedolog_core::alarms::AlarmRules::default();
     if let Some(v) = &raw.stale_after_s {
         rules.stale_after =
             c.int::<u64>(v, "alarms.stale_after_s", 10..604_801, "allowed 10 to 604800 s").map(Duration::from_secs);

@@ -19,7 +19,7 @@ use axum::body::Bytes;
 
 use super::ApiError;
 use super::queries::{self, IncrementRow, Poll, StoredCurve, TestRow};
-use crate::analysis::IncrementReduction;
+use oedolog_core::analysis::IncrementReduction;
 
 /// What a lookup found.
 pub(crate) enum Found<V> {

@@ -6,7 +6,7 @@ use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::Serialize;
 
-use crate::analysis::AnalysisError;
+use oedolog_core::analysis::AnalysisError;
 use crate::store::StoreError;
 use crate::watch::{HubError, WatchError};
 

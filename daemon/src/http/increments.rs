@@ -18,7 +18,7 @@ use super::cache::IncrementStamp;
 use super::frames::json_bytes;
 use super::queries::{self, IncrementRow, Poll, TestRow};
 use super::{ApiError, AppState};
-use crate::analysis::IncrementReduction;
+use oedolog_core::analysis::IncrementReduction;
 use crate::clock::rfc3339;
 use crate::config::Loading;
 use axum::body::Bytes;

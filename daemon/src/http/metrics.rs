@@ -61,7 +61,7 @@ pub(crate) fn render(state: &AppState) -> String {
     let counts = state.alarms.counts();
     let _ = writeln!(out, "# HELP oedolog_alarms_open Open alarms by code and whether someone acknowledged them.");
     let _ = writeln!(out, "# TYPE oedolog_alarms_open gauge");
-    for code in crate::alarms::Code::ALL {
+    for code in oedolog_core::alarms::Code::ALL {
         for acknowledged in [false, true] {
             let n =
                 open.iter().filter(|a| a.code == code.name() && a.acknowledged_by.is_some() == acknowledged).count();
@@ -75,7 +75,7 @@ pub(crate) fn render(state: &AppState) -> String {
     ] {
         let _ = writeln!(out, "# HELP {name} {help}");
         let _ = writeln!(out, "# TYPE {name} counter");
-        for code in crate::alarms::Code::ALL {
+        for code in oedolog_core::alarms::Code::ALL {
             let _ = writeln!(out, "{name}{{code=\"{}\"}} {}", code.name(), map.get(code.name()).copied().unwrap_or(0));
         }
     }

@@ -5,12 +5,12 @@ use rusqlite::{Connection, OptionalExtension, params};
 use serde::Serialize;
 
 use super::ApiError;
-use crate::analysis::deflection::corrected_mm;
-use crate::analysis::{
+use oedolog_core::analysis::deflection::corrected_mm;
+use oedolog_core::analysis::{
     CompressionInput, CompressionParams, CompressionPoint, CompressionReduction, IncrementParams, IncrementReduction,
     PhaseRelations, SpecimenMeasurements, cv::Method, phase_relations, reduce_compression, reduce_increment,
 };
-use crate::analysis::{DeflectionCalibration, LoadBranch};
+use oedolog_core::analysis::{DeflectionCalibration, LoadBranch};
 use crate::clock::rfc3339;
 use crate::config::Frame;
 use crate::watch::WatchParams;

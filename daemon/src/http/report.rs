@@ -14,7 +14,7 @@ use super::lab_tests::test_id;
 use super::overview::escape;
 use super::queries::TestReduction;
 use super::{ApiError, AppState};
-use crate::analysis::CompressionReduction;
+use oedolog_core::analysis::CompressionReduction;
 use crate::clock::rfc3339;
 
 fn num(x: Option<f64>, digits: usize) -> String {

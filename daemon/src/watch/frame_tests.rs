@@ -4,7 +4,7 @@
 
 use oedolog_sim::device::SimFrame;
 
-use super::*;
+use oedolog_core::watch::*;
 
 /// Steady poll period of the simulated logging, s; fast period and window after a load change.
 const STEADY_S: f64 = 30.0;
@@ -237,15 +237,6 @@ fn operator_actions_outside_their_states_are_refused() {
     watch.arm(12.5, 0).unwrap();
     assert!(matches!(watch.arm(25.0, 0), Err(WatchError::State("armed", _))));
     assert!(watch.resolve_reseat(true).is_err());
-}
-
-#[test]
-fn a_clock_stepped_back_never_reorders_the_curve() {
-    let mut watch = FrameWatch::new(WatchParams::default());
-    watch.sample(10_000_000, Some(1.0), Some(0.02));
-    let notes = watch.sample(5_000_000, Some(9.0), Some(9.0));
-    assert!(notes.is_empty());
-    assert_eq!(watch.history.len(), 1, "the earlier-stamped reading is not taken");
 }
 
 /// The median ready time a 0.15-cycle window should beat: 2.5·t100 (measured 2.26; the 0.3-cycle default

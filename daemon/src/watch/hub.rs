@@ -9,7 +9,7 @@ use std::time::Duration;
 
 use rusqlite::{Connection, params};
 
-use super::frame::{FrameWatch, Note, OnsetSource, Phase, Specimen, WatchError, WatchParams, WatchStatus};
+use oedolog_core::watch::{FrameWatch, Note, OnsetSource, Phase, Specimen, WatchError, WatchParams, WatchStatus};
 use crate::clock::Clock;
 use crate::lab::{self, Lab};
 use crate::store::{ChannelKind, Event, Reading, StoreError, Writer};
@@ -268,7 +268,7 @@ impl Hub {
 
     /// The watch's latest reduction of frame `index`'s running increment: (its number, the reduction).
     /// It includes confirmed re-seat stitching, which a reduction of the stored readings would not.
-    pub fn reduction(&self, index: usize) -> Option<(i64, crate::analysis::IncrementReduction)> {
+    pub fn reduction(&self, index: usize) -> Option<(i64, oedolog_core::analysis::IncrementReduction)> {
         let state = self.lock();
         let watch = state.watches.get(index)?;
         Some((watch.status().seq?, watch.reduction()?.clone()))

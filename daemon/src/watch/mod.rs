@@ -4,12 +4,13 @@
 
 #[cfg(test)]
 mod clock_tests;
-pub mod frame;
+#[cfg(test)]
+mod frame_tests;
 pub mod hub;
 #[cfg(test)]
 mod hub_tests;
 
-pub use frame::{
+pub use oedolog_core::watch::{
     EopRule, FrameWatch, Note, OnsetSource, Phase, Reseat, Specimen, WatchError, WatchParams, WatchStatus,
 };
 pub use hub::{Hub, HubError};

@@ -821,5 +821,15 @@ impl FrameWatch {
 }
 
 #[cfg(test)]
-#[path = "frame_tests.rs"]
-mod tests;
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_clock_stepped_back_never_reorders_the_curve() {
+        let mut watch = FrameWatch::new(WatchParams::default());
+        watch.sample(10_000_000, Some(1.0), Some(0.02));
+        let notes = watch.sample(5_000_000, Some(9.0), Some(9.0));
+        assert!(notes.is_empty());
+        assert_eq!(watch.history.len(), 1, "the earlier-stamped reading is not taken");
+    }
+}
