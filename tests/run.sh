@@ -7,7 +7,7 @@ set -euo pipefail
 repo_root="$(cd "$(dirname "${BASH_SOURCE[0]}")/.." && pwd)"
 cd "$repo_root"
 
-# Pinned peer versions: pymodbus's API churns between minors (shared/ECOSYSTEM.md §7).
+# Pinned peer versions: pymodbus's API churns between minor releases.
 readonly PYMODBUS_VERSION="3.16.1"
 readonly PYSERIAL_VERSION="3.5"
 readonly VENV_DIR="$repo_root/target/peers-venv"
@@ -93,7 +93,7 @@ install_python_peers() {
 }
 
 # ---- browser suite ----------------------------------------------------------
-# Debian's chromium driven by playwright-core (pinned in tests/browser/package.json), shared/ECOSYSTEM.md §7.
+# Debian's chromium driven by playwright-core (pinned in tests/browser/package.json).
 readonly CHROMIUM_BIN="${OEDOLOG_CHROMIUM:-/usr/bin/chromium}"
 readonly BROWSER_DIR="$repo_root/tests/browser"
 

@@ -4,6 +4,7 @@
 
 pub mod acquire;
 pub mod alarms;
+pub mod analyze;
 pub mod clock;
 pub mod config;
 pub mod demo;

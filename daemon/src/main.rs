@@ -205,11 +205,11 @@ async fn run(command: Command) -> anyhow::Result<()> {
         Command::Analyze { what } => {
             let text = match what {
                 AnalyzeCommand::Increment { file, drainage_path_mm, json } => {
-                    let report = oedolog_core::offline::analyze_increment(&file, drainage_path_mm)?;
+                    let report = oedolog::analyze::increment(&file, drainage_path_mm)?;
                     if json { report.to_json() } else { report.to_table() }
                 }
                 AnalyzeCommand::Test { file, json } => {
-                    let report = oedolog_core::offline::analyze_test(&file)?;
+                    let report = oedolog::analyze::test(&file)?;
                     if json { report.to_json() } else { report.to_table() }
                 }
             };

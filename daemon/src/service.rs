@@ -8,8 +8,8 @@ use std::time::Duration;
 use tokio::net::TcpListener;
 
 use crate::acquire::{Live, LiveFrame, Sinks, spawn_buses};
-use crate::alarms::task::{AlarmSources, AlarmTask, FrameFacts};
 use crate::alarms::AlarmBoard;
+use crate::alarms::task::{AlarmSources, AlarmTask, FrameFacts};
 use crate::clock::Clock;
 use crate::config::Config;
 use crate::http::{AppState, router};

@@ -51,7 +51,7 @@ mod tests {
     }
 
     /// Modbus over Serial Line V1.02 §2.5.1.2: the CRC of `01 03 00 00 00 02` is sent as `C4 0B`
-    /// (also printed by the `crc` crate's CRC_16_MODBUS, ECOSYSTEM.md §1).
+    /// (the `crc` crate's CRC_16_MODBUS, a reference library, gives the same).
     #[test]
     fn read_request_crc_goes_low_byte_first() {
         let mut frame = vec![0x01, 0x03, 0x00, 0x00, 0x00, 0x02];

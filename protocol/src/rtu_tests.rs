@@ -1,5 +1,6 @@
 //! RTU framing tests: byte-commented vectors driven whole, byte by byte, back to back and corrupted;
-//! a named regression for each failure common stacks show (ECOSYSTEM.md §1); properties.
+//! a named regression for each failure seen when common stacks were tried against a scripted device;
+//! properties.
 //!
 //! CRC bytes of every vector were computed independently (a bitwise CRC-16/MODBUS in Python, the
 //! algorithm of Modbus over Serial Line V1.02 Appendix B) and checked against the `crc` crate.
@@ -222,7 +223,7 @@ fn corrupted_replies_never_decode_to_a_wrong_value() {
 
 #[test]
 fn regression_noise_prefix_01_03_ff_does_not_stall_the_reply() {
-    // Length-only framing reads FF as a byte count and waits for 255 data bytes (ECOSYSTEM.md §1).
+    // Length-only framing reads FF as a byte count and waits for 255 data bytes (as some common stacks do).
     let mut master = RtuMaster::new();
     let request = Request::ReadHoldingRegisters { address: 0, quantity: 2 };
     let outcomes = exchange(&mut master, UnitId(1), &request, &[&[0x01, 0x03, 0xFF], RSP_FC03_U1]);
@@ -441,7 +442,7 @@ fn earlier_valid_run(bytes: &[u8], limit: usize, function: u8, quantity: Option<
 }
 
 proptest::proptest! {
-    // 20 000 cases: the default 256 misses the stalls that length-only framing has (ECOSYSTEM.md §8).
+    // 20 000 cases: the default 256 misses the stalls that length-only framing has (DEVELOPERS.md, Testing).
     #![proptest_config(proptest::prelude::ProptestConfig::with_cases(20_000))]
 
     /// A valid reply behind random bytes is recovered — unless the noise itself (with the reply's first

@@ -8,30 +8,30 @@ use std::f64::consts::{LN_10, PI};
 use serde::{Deserialize, Serialize};
 
 /// Below this time factor the series is replaced by its short-time form 2·√(Tv/π), which is exact to
-/// machine precision there (REFERENCES.md §2 [C]).
+/// machine precision there (daemon/core/REFERENCES.md [ref: terzaghi-series, computed]).
 const TV_SHORT_TIME: f64 = 1e-4;
 
-/// Hard cap on series terms; 43 terms already give 1e-12 at Tv = 0.001 (REFERENCES.md §2 [C]).
+/// Hard cap on series terms; 43 terms already give 1e-12 at Tv = 0.001 [ref: terzaghi-series, computed].
 const MAX_SERIES_TERMS: usize = 100_000;
 
 /// Time factor at which U = 50 % on the exact Terzaghi curve (computed by bisection of [`terzaghi_u`];
-/// REFERENCES.md §2 table gives 0.19673 [C], printed 0.197).
+/// [ref: terzaghi-time-factors] gives 0.19673 computed, 0.197 printed).
 pub const TV50: f64 = 0.196_730_739_5;
 
-/// Time factor at which U = 90 % on the exact Terzaghi curve (computed; REFERENCES.md §2 gives 0.84809 [C],
-/// printed 0.848).
+/// Time factor at which U = 90 % on the exact Terzaghi curve (computed; [ref: terzaghi-time-factors] gives
+/// 0.84809 computed, 0.848 printed).
 pub const TV90: f64 = 0.848_085_408;
 
 /// Time factor this model calls the end of primary consolidation (t100): where the tangent at the inflection
 /// of the ideal U–log Tv curve meets U = 100 %, i.e. where a Casagrande construction on an ideal curve puts
-/// d100 (REFERENCES.md §1.4 and §4: T ≈ 1.10 [C]; recomputed to more digits by a test below).
+/// d100 (T ≈ 1.10 [ref: t100-t90-ratio, computed]; recomputed to more digits by a test below).
 pub const TV100: f64 = 1.101_345_734;
 
 /// Lowest void ratio the compression law may reach; a stress that would go below it is refused rather than
 /// producing a specimen of negative height.
 pub const MIN_VOID_RATIO: f64 = 0.05;
 
-/// Density of water, g/mm³, for the dry mass of the solids (Hs = Ms/(Gs·ρw·A), REFERENCES.md §5.1).
+/// Density of water, g/mm³, for the dry mass of the solids (Hs = Ms/(Gs·ρw·A) [ref: height-of-solids]).
 const WATER_DENSITY_G_PER_MM3: f64 = 1.0e-3;
 
 /// Errors from building a specimen or driving the frame model with bad input.
@@ -80,7 +80,7 @@ pub enum ModelError {
 }
 
 /// Average degree of consolidation U(Tv) for uniform initial excess pore pressure (Terzaghi), from the exact
-/// series U = 1 − Σ_{m≥0} 2/M²·exp(−M²·Tv), M = π(2m+1)/2 (REFERENCES.md §2), summed until the terms fall
+/// series U = 1 − Σ_{m≥0} 2/M²·exp(−M²·Tv), M = π(2m+1)/2 [ref: terzaghi-series], summed until the terms fall
 /// below 1e-17; 2·√(Tv/π) for Tv < 1e-4. Returns 0 for Tv ≤ 0 or NaN.
 pub fn terzaghi_u(tv: f64) -> f64 {
     if tv.is_nan() || tv <= 0.0 {
@@ -102,7 +102,7 @@ pub fn terzaghi_u(tv: f64) -> f64 {
 }
 
 /// Inverse of [`terzaghi_u`]: the time factor at which the average degree of consolidation is `u`, by
-/// bisection in log Tv (REFERENCES.md §2 "invert U→T by bisection"). `None` unless 0 < u < 1.
+/// bisection in log Tv [ref: terzaghi-series]. `None` unless 0 < u < 1.
 pub fn terzaghi_tv(u: f64) -> Option<f64> {
     if u.is_nan() || u <= 0.0 || u >= 1.0 {
         return None;
@@ -128,7 +128,7 @@ pub fn terzaghi_tv(u: f64) -> Option<f64> {
 pub struct Soil {
     /// Short name of the soil, e.g. "soft estuarine clay".
     pub name: String,
-    /// Compression index Cc: −Δe per log10 cycle of σ′ on the virgin branch (REFERENCES.md §5.3).
+    /// Compression index Cc: −Δe per log10 cycle of σ′ on the virgin branch [ref: compression-index].
     pub cc: f64,
     /// Recompression/swelling index Cr: −Δe per log10 cycle below the maximum past stress and on unloading.
     pub cr: f64,
@@ -144,11 +144,11 @@ pub struct Soil {
     /// permeability falls faster than compressibility in many soft clays, so cv tends to drop with stress.
     pub cv_stress_exponent: f64,
     /// Factor (≥ 1) on cv for increments that stay on the Cr branch (recompression, unloading): mv is small
-    /// there, so cv = k/(mv·γw) is larger (REFERENCES.md §5.3 relation k = cv·mv·γw).
+    /// there, so cv = k/(mv·γw) is larger (k = cv·mv·γw [ref: permeability]).
     pub cv_recompression_factor: f64,
     /// Secondary compression index on strain basis, Δε per log10 cycle of time after end of primary, on the
-    /// virgin branch (REFERENCES.md §4). On the Cr branch the model uses c_alpha·Cr/Cc (Cα/Cc constant,
-    /// Mesri & Castro 1987, REFERENCES.md §4 S24); after unloading it uses none.
+    /// virgin branch [ref: secondary-compression]. On the Cr branch the model uses c_alpha·Cr/Cc (Cα/Cc
+    /// constant, Mesri & Castro 1987 [ref: secondary-ranges]); after unloading it uses none.
     pub c_alpha: f64,
     /// Fraction of each increment's end-of-primary settlement that occurs as the load goes on (immediate
     /// compression: bedding of stones and papers, small undrained strain); the rest is primary.
@@ -219,7 +219,7 @@ pub struct Specimen {
     pub description: String,
     /// Soil properties.
     pub soil: Soil,
-    /// Height at the gauge zero (under seating), mm; H0 in REFERENCES.md §5.1.
+    /// Height at the gauge zero (under seating), mm; H0 of [ref: height-of-solids].
     pub height_mm: f64,
     /// Ring inside diameter, mm.
     pub diameter_mm: f64,
@@ -231,12 +231,12 @@ impl Specimen {
         PI * self.diameter_mm * self.diameter_mm / 4.0
     }
 
-    /// Height of solids Hs = H0/(1 + e0), mm (REFERENCES.md §5.1).
+    /// Height of solids Hs = H0/(1 + e0), mm [ref: height-of-solids].
     pub fn height_of_solids_mm(&self) -> f64 {
         self.height_mm / (1.0 + self.soil.e0)
     }
 
-    /// Dry mass of solids Ms = Hs·Gs·ρw·A, g (REFERENCES.md §5.1), for the daemon's phase relations.
+    /// Dry mass of solids Ms = Hs·Gs·ρw·A, g [ref: height-of-solids], for the daemon's phase relations.
     pub fn dry_mass_g(&self) -> f64 {
         self.height_of_solids_mm() * self.soil.gs * WATER_DENSITY_G_PER_MM3 * self.area_mm2()
     }
@@ -257,8 +257,8 @@ impl Specimen {
 }
 
 /// Elastic deflection of the frame, cell, stones and papers, seen by the gauge but not by the specimen:
-/// y(σ′) = mm_per_log_cycle·log10(1 + σ′/reference_kpa), reversible (REFERENCES.md §1.6: treated as
-/// immediate, subtracted by the daemon from a calibration table). The log form is a demo choice.
+/// y(σ′) = mm_per_log_cycle·log10(1 + σ′/reference_kpa), reversible (treated as immediate, subtracted by the
+/// daemon from a calibration table [ref: apparatus-deflection]). The log form is a demo choice.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct ApparatusDeflection {
     /// Deflection per log10 cycle of (1 + σ′/reference_kpa), mm.
@@ -379,7 +379,7 @@ impl IncrementTruth {
             None => elapsed_s,
         };
         let secondary_mm = if secondary_elapsed_s > self.t100_s {
-            // Strain-basis Cα on the post-EOP straight line, zero at t100 (REFERENCES.md §4, S9 Eq 7.34).
+            // Strain-basis Cα on the post-EOP straight line, zero at t100 [ref: secondary-compression].
             self.c_alpha * self.secondary_height_mm * (secondary_elapsed_s / self.t100_s).log10()
         } else {
             0.0
@@ -527,7 +527,7 @@ impl FrameModel {
         let height_at_onset_mm = self.height_mm(at_s);
         let displacement_at_onset_mm = self.displacement_mm(at_s);
         let hs_mm = self.specimen.height_of_solids_mm();
-        // ΔH = Δe·Hs (REFERENCES.md §5.2), split into immediate and primary.
+        // ΔH = Δe·Hs [ref: void-ratio-step], split into immediate and primary.
         let eop_settlement_mm = void_ratio_change * hs_mm;
         let immediate_mm = soil.immediate_fraction * eop_settlement_mm;
         let primary_mm = eop_settlement_mm - immediate_mm;
@@ -540,7 +540,7 @@ impl FrameModel {
         };
         let cv_mm2_per_min = soil.cv_at_mm2_per_min(stress_kpa, virgin);
         // Double drainage, Hdr = half the height at the onset: fixed for the increment so the time law is the
-        // exact series (REFERENCES.md §2 allows height at the start, at 50 % or the mean).
+        // exact series (the daemon may take the height at 50 % or the mean instead [ref: drainage-path]).
         let drainage_path_mm = height_at_onset_mm / 2.0;
         let time_scale_s = drainage_path_mm * drainage_path_mm / (cv_mm2_per_min / 60.0);
         let t100_s = TV100 * time_scale_s;
@@ -614,7 +614,7 @@ impl FrameModel {
         self.specimen.height_mm - self.specimen_settlement_mm(at_s)
     }
 
-    /// Void ratio at `at_s`, e = (H − Hs)/Hs (REFERENCES.md §5.1).
+    /// Void ratio at `at_s`, e = (H − Hs)/Hs [ref: height-of-solids].
     pub fn void_ratio(&self, at_s: f64) -> f64 {
         self.height_mm(at_s) / self.specimen.height_of_solids_mm() - 1.0
     }
@@ -685,7 +685,7 @@ fn check_stress(stress_kpa: f64) -> Result<(), ModelError> {
 }
 
 /// Δe (positive in compression) from `from_kpa` to `to_kpa` on the e–log σ′ law: Cr up to the maximum past
-/// stress, Cc beyond it, swelling with Cr on unloading (REFERENCES.md §5.3).
+/// stress, Cc beyond it, swelling with Cr on unloading [ref: compression-index].
 fn law_void_ratio_change(soil: &Soil, from_kpa: f64, to_kpa: f64, max_past_kpa: f64) -> f64 {
     if to_kpa <= from_kpa {
         return -soil.cr * (from_kpa / to_kpa).log10();
@@ -768,7 +768,7 @@ mod tests {
         inc.tv_at(0.5 * (lo + hi))
     }
 
-    // Taylor (1948) as printed in textbook tables; REFERENCES.md §2 (S28, S10). Exact values [computed].
+    // Taylor (1948) as printed in textbook tables [ref: terzaghi-time-factors, from memory]; exact values computed.
     #[test]
     fn t50_and_t90_match_published_and_exact_values() {
         let t50 = terzaghi_tv(0.5).unwrap();
@@ -781,7 +781,7 @@ mod tests {
         assert!((t90 - TV90).abs() < 1e-8);
     }
 
-    // REFERENCES.md §2 check table: exact T [computed] and printed T (Taylor 1948 via textbook tables).
+    // Check table [ref: terzaghi-time-factors]: exact T computed, printed T (Taylor 1948 via textbook tables).
     #[test]
     fn time_factors_match_the_check_table() {
         let table: [(f64, f64, Option<f64>); 11] = [
@@ -807,7 +807,7 @@ mod tests {
         }
     }
 
-    // Forward check values, REFERENCES.md §2 [computed].
+    // Forward check values [ref: terzaghi-series, computed].
     #[test]
     fn degree_of_consolidation_matches_forward_check_values() {
         let table = [
@@ -826,10 +826,10 @@ mod tests {
         }
     }
 
-    // Initial slope U → (2/√π)·√T, exact to machine precision for T ≲ 0.02 (REFERENCES.md §2 [computed]).
+    // Initial slope U → (2/√π)·√T, exact to machine precision for T ≲ 0.02 [ref: terzaghi-series, computed].
     #[test]
     fn early_curve_follows_the_initial_slope() {
-        // 2/√π = 1.12838 (REFERENCES.md §2).
+        // 2/√π = 1.12838 [ref: terzaghi-series].
         let k = std::f64::consts::FRAC_2_SQRT_PI;
         for tv in [1e-8, 1e-6, 5e-5, 1e-4, 2e-4, 1e-3, 5e-3, 0.01, 0.02] {
             let u = terzaghi_u(tv);
@@ -857,7 +857,7 @@ mod tests {
     }
 
     // Inflection of U–log T at T = 0.404, U = 0.701, slope 0.687 per cycle; its tangent meets U = 1 at
-    // T = 1.10 (REFERENCES.md §4 [computed]). Recomputed here by finite differences of terzaghi_u.
+    // T = 1.10 [ref: casagrande-log-time, computed]. Recomputed here by finite differences of terzaghi_u.
     #[test]
     fn end_of_primary_time_factor_is_where_the_inflection_tangent_meets_full_consolidation() {
         let slope_fd = |tv: f64| {
@@ -886,12 +886,12 @@ mod tests {
         let tv100 = tv_i * 10f64.powf((1.0 - u_i) / slope);
         assert!((tv100 - 1.10).abs() < 0.005, "T100 = {tv100}");
         assert!((tv100 - TV100).abs() < 1e-5, "T100 = {tv100}");
-        // t100 ≈ 1.30·t90 (REFERENCES.md §1.4 [computed]).
+        // t100 ≈ 1.30·t90 [ref: t100-t90-ratio, computed].
         assert!((TV100 / TV90 - 1.30).abs() < 0.005);
     }
 
     // Primary of a simulated increment reaches 50 % at 0.197·Hdr²/cv and 90 % at 0.848·Hdr²/cv (Taylor 1948
-    // as printed in textbook tables; REFERENCES.md §2), on a first and on a later increment.
+    // as printed in textbook tables [ref: terzaghi-time-factors]), on a first and on a later increment.
     #[test]
     fn simulated_primary_reaches_published_t50_and_t90() {
         let mut model = FrameModel::with_options(test_specimen(test_soil()), 6.25, 0.0, bare_options()).unwrap();
@@ -916,7 +916,7 @@ mod tests {
         assert!(second.drainage_path_mm < first.drainage_path_mm);
     }
 
-    // e–log σ′ law by hand: e = e0 − ΔH/Hs with Hs = H0/(1 + e0) (REFERENCES.md §5.1–5.3); Cr below the
+    // e–log σ′ law by hand: e = e0 − ΔH/Hs with Hs = H0/(1 + e0) [ref: void-ratio-step]; Cr below the
     // maximum past stress and on unloading/reloading, Cc on the virgin branch.
     #[test]
     fn void_ratios_follow_cr_then_cc_and_swell_with_cr() {
@@ -1018,7 +1018,7 @@ mod tests {
         assert!(model.displacement_mm(last.onset_s + 30.0 * last.t100_s) < last.displacement_at_onset_mm);
     }
 
-    // Strain-basis Cα = Δε/Δlog10 t after end of primary (REFERENCES.md §4, S9 Eq 7.34).
+    // Strain-basis Cα = Δε/Δlog10 t after end of primary [ref: secondary-compression].
     #[test]
     fn secondary_compression_gives_c_alpha_per_log_cycle_after_eop() {
         let mut model = FrameModel::with_options(test_specimen(test_soil()), 6.25, 0.0, bare_options()).unwrap();
@@ -1115,7 +1115,7 @@ mod tests {
         assert!((at_640 - 2.0 * 8f64.powf(-0.3)).abs() < 1e-12);
     }
 
-    // Hs = Ms/(Gs·ρw·A) (REFERENCES.md §5.1), so Ms = Hs·Gs·ρw·A.
+    // Hs = Ms/(Gs·ρw·A) [ref: height-of-solids], so Ms = Hs·Gs·ρw·A.
     #[test]
     fn dry_mass_inverts_the_height_of_solids_relation() {
         let specimen = test_specimen(test_soil());

@@ -8,13 +8,13 @@ use crate::physics::{FrameModel, IncrementTruth, ModelError, Soil, Specimen};
 /// The invented site every demo specimen comes from.
 pub const SITE_NAME: &str = "Tarnwick Reach relief road, ground investigation GI-417 (fictitious)";
 
-/// Seating stress, kPa: half the first increment, so the first step is a doubling too (REFERENCES.md §1.2
-/// gives ≈5 kPa seating [M] and ≈12 kPa first load [R S2]).
+/// Seating stress, kPa: half the first increment, so the first step is a doubling too (≈ 5 kPa seating, from
+/// memory, and ≈ 12 kPa first load: daemon/core/REFERENCES.md [ref: load-sequence]).
 pub const SEATING_KPA: f64 = 6.25;
 
-/// Default stress sequence, kPa: doubling (LIR = 1, REFERENCES.md §1.2 [R S2 4.1]) to 800, an unload–reload
-/// loop of two quartering decrements (LIR = −0.75, REFERENCES.md §1.2 [R S8]) and two reloads past σ′p of
-/// every catalogue soil (REFERENCES.md §1.2 [R S2 step 4]), then on to 1600.
+/// Default stress sequence, kPa: doubling (LIR = 1) to 800, an unload–reload loop of two quartering
+/// decrements (LIR = −0.75) and two reloads past σ′p of every catalogue soil, then on to 1600
+/// [ref: load-sequence].
 pub const DEFAULT_STEPS_KPA: [f64; 12] =
     [12.5, 25.0, 50.0, 100.0, 200.0, 400.0, 800.0, 200.0, 50.0, 200.0, 800.0, 1600.0];
 
@@ -61,8 +61,8 @@ pub enum ScheduleError {
 }
 
 /// The invented specimens of [`SITE_NAME`]. Cc, Cr, σ′p, e0, Gs and cv are plausible for the soil types
-/// (from memory); Cα sits in the ranges of REFERENCES.md §4 (S9 Table 7.1) with Cα·(1+e0)/Cc ≈ 0.035–0.055
-/// (Cα/Cc roughly constant, Mesri & Castro 1987, REFERENCES.md §4 S24).
+/// (from memory); Cα sits in the ranges of Venkatramaiah Table 7.1 with Cα·(1+e0)/Cc ≈ 0.035–0.055 (Cα/Cc
+/// roughly constant, Mesri & Castro 1987) [ref: secondary-ranges].
 pub fn catalogue() -> Vec<Specimen> {
     vec![
         specimen(
@@ -174,7 +174,7 @@ pub fn demo_frame(index: usize, at_s: f64) -> Result<(FrameModel, AutoSchedule),
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct HoldRule {
     /// Log10 cycles of time to wait past the truth's t100 (hold = t100·10^cycles). 0.5 leaves room for a
-    /// detector that wants a straight secondary branch over ≥ 0.3 cycle (REFERENCES.md §1.4 [CP/C]).
+    /// detector that wants a straight secondary branch over ≥ 0.3 cycle [ref: eop-detection, common practice].
     pub secondary_log_cycles: f64,
     /// Shortest hold of any increment, s.
     pub min_hold_s: f64,
@@ -319,7 +319,7 @@ mod tests {
         actions
     }
 
-    // LIR = Δσ/σ0 = 1, i.e. doubling (REFERENCES.md §1.2, R S2 step 4.1; S8 Eq 3-4).
+    // LIR = Δσ/σ0 = 1, i.e. doubling [ref: load-sequence], [ref: load-increment-ratio].
     #[test]
     fn default_schedule_doubles_from_the_seating_load() {
         let steps = AutoSchedule::new(0.0).steps_kpa().to_vec();
@@ -336,7 +336,7 @@ mod tests {
         assert_eq!(*steps.last().unwrap(), 1600.0);
     }
 
-    // Unload–reload after σ′p, unloading over at least two decrements (REFERENCES.md §1.2, R S2 step 4).
+    // Unload–reload after σ′p, unloading over at least two decrements [ref: load-sequence].
     #[test]
     fn default_schedule_has_an_unload_reload_loop_past_every_sigma_p() {
         let steps = DEFAULT_STEPS_KPA;
@@ -352,7 +352,7 @@ mod tests {
         for sp in catalogue().iter().map(|s| s.soil.sigma_p_kpa) {
             assert!(peak > sp, "unload from {peak} kPa is not past σ′p = {sp} kPa");
         }
-        // Quartering decrements, LIR = −0.75 (REFERENCES.md §1.2, R S8).
+        // Quartering decrements, LIR = −0.75 [ref: load-sequence].
         for w in steps[first_drop..=trough].windows(2) {
             assert!(((w[1] - w[0]) / w[0] + 0.75).abs() < 1e-12);
         }
@@ -440,14 +440,14 @@ mod tests {
         for s in catalogue() {
             let soil = &s.soil;
             s.validate().unwrap();
-            // Heights and diameters asked for the demo; D/H ≥ 2.5 and D ≥ 50 mm (REFERENCES.md §1.5, R S3 §7.1).
+            // Heights and diameters asked for the demo; D/H ≥ 2.5 and D ≥ 50 mm [ref: specimen-dimensions].
             assert!((19.0..=25.0).contains(&s.height_mm), "{}", s.id);
             assert!((50.0..=76.0).contains(&s.diameter_mm), "{}", s.id);
             assert!(s.diameter_mm / s.height_mm >= 2.5, "{}", s.id);
             // Cr/Cc between 1/20 and 1/4 (common practice).
             let ratio = soil.cr / soil.cc;
             assert!((0.05..=0.25).contains(&ratio), "{}: Cr/Cc {ratio}", s.id);
-            // Cα on the virgin branch within NC clay range 0.005–0.030 (REFERENCES.md §4, S9 Table 7.1), and
+            // Cα on the virgin branch within NC clay range 0.005–0.030 [ref: secondary-ranges], and
             // the recompression value cr/cc·Cα no higher than the OC range top 0.0015 for the stiff clay.
             assert!((0.005..=0.030).contains(&soil.c_alpha), "{}", s.id);
             let c_alpha_e_over_cc = soil.c_alpha * (1.0 + soil.e0) / soil.cc;
@@ -466,7 +466,7 @@ mod tests {
         }
         let stiff = catalogue().into_iter().find(|s| s.soil.sigma_p_kpa > 400.0).unwrap();
         let c_alpha_oc = stiff.soil.c_alpha * stiff.soil.cr / stiff.soil.cc;
-        // OC clays 0.0005–0.0015 (REFERENCES.md §4, S9 Table 7.1).
+        // OC clays 0.0005–0.0015 [ref: secondary-ranges].
         assert!((0.0005..=0.0015).contains(&c_alpha_oc), "{c_alpha_oc}");
     }
 

@@ -368,7 +368,7 @@ pub struct TemperatureSensor {
 
 impl Default for TemperatureSensor {
     /// 20 °C ± 0.6 °C, warmest at 15:00, 0.02 °C noise, read to 0.01 °C: a controlled laboratory well inside
-    /// the ±4 °C band of REFERENCES.md §1.7 (invented demo values).
+    /// the ±4 °C band of daemon/core/REFERENCES.md [ref: temperature-band] (invented demo values).
     fn default() -> Self {
         Self {
             mean_c: 20.0,

@@ -1,5 +1,5 @@
 // Starts `oedolog demo` on port 0 and waits for its `dashboard at http://ADDR/` line (no fixed port,
-// no sleep-to-start); a browser with the flags shared/ECOSYSTEM.md §7 found to work on Debian's chromium.
+// no sleep-to-start); a browser with flags known to work on Debian's chromium (CHROMIUM_ARGS below).
 import { spawn } from "node:child_process";
 import fs from "node:fs";
 import os from "node:os";

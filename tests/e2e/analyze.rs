@@ -3,7 +3,8 @@
 //! example, and broken files that must give exit status 1 and name their line and column or field.
 //!
 //! The series below is written here, independently of the daemon's `analysis::terzaghi`, so the two check
-//! each other. Values are computed checks [C] unless a source is named.
+//! each other. Values are computed checks unless a source is named; `[ref: …]` anchors are sections of
+//! daemon/core/REFERENCES.md.
 
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
@@ -13,7 +14,8 @@ use oedolog_tests::{run_to_end, temp_dir, workspace_binary};
 use serde_json::Value;
 
 /// Average degree of consolidation U(T) = 1 − Σ_{m≥0} (2/M²)·exp(−M²T), M = (π/2)(2m + 1)
-/// (REFERENCES §2). For T < 0.02 the short-time form 2√(T/π), exact there to machine precision (§2 [C]).
+/// [ref: terzaghi-series]. For T < 0.02 the short-time form 2√(T/π), exact there to machine precision
+/// (computed).
 fn degree_of_consolidation(time_factor: f64) -> f64 {
     if time_factor <= 0.0 {
         return 0.0;
@@ -33,9 +35,9 @@ fn degree_of_consolidation(time_factor: f64) -> f64 {
     1.0 - sum
 }
 
-/// One increment's forward model (REFERENCES §6a): a 19 mm specimen drained top and bottom (Hdr 9.5 mm),
+/// One increment's forward model [ref: synthetic-checks]: a 19 mm specimen drained top and bottom (Hdr 9.5 mm),
 /// 0.03 mm immediate compression, 1.2 mm of primary and 0.04 mm per log cycle of secondary compression
-/// from T = 1.10 (where the ideal inflection tangent meets U = 1, REFERENCES §4 [C]).
+/// from T = 1.10 (where the ideal inflection tangent meets U = 1 [ref: t100-t90-ratio, computed]).
 #[derive(Clone, Copy)]
 struct Curve {
     cv_mm2_per_min: f64,
@@ -81,7 +83,7 @@ impl Curve {
     }
 }
 
-/// Hand schedule, min, with the zero reading (REFERENCES §1.3) [CP].
+/// Hand schedule, min, with the zero reading [ref: reading-schedule, common practice].
 const HAND_SCHEDULE_MIN: [f64; 14] =
     [0.0, 0.25, 0.5, 1.0, 2.0, 4.0, 8.0, 15.0, 30.0, 60.0, 120.0, 240.0, 480.0, 1440.0];
 
@@ -128,7 +130,8 @@ fn number(v: &Value, key: &str) -> f64 {
 
 #[test]
 fn own_terzaghi_series_matches_the_published_check_values() {
-    // REFERENCES §2 forward check values [C], and the printed T50 = 0.197, T90 = 0.848 [R S28].
+    // Forward check values [ref: terzaghi-series, computed], and the printed T50 = 0.197, T90 = 0.848
+    // [ref: terzaghi-time-factors].
     for (t, u) in [
         (0.05, 0.25231),
         (0.1, 0.35682),
@@ -148,13 +151,14 @@ fn own_terzaghi_series_matches_the_published_check_values() {
 fn increment_cv_from_terzaghi_curves_on_dense_and_hand_schedules() {
     // Tolerances and why (measured errors go to stderr; see the closing report):
     // - √t cv, dense: +0.5 … +2.0 %. The published 1.15 factor meets the ideal curve at U = 89.7 %, biasing
-    //   cv by +1.5 % (REFERENCES §3 [C]).
-    // - log-t cv, dense: within ±1 % (REFERENCES §4: PCHIP in log t, −0.9 % on t50 in a trial [C]).
+    //   cv by +1.5 % [ref: taylor-root-time, computed].
+    // - log-t cv, dense: within ±1 % (PCHIP in log t, −0.9 % on t50 in a trial [ref: curve-interpolation,
+    //   computed]).
     // - Hand schedule: √t −2 … +6.5 % (t90 falls between readings an octave apart; PCHIP −2.5 % on t90 in
-    //   REFERENCES §3's trial, plus the +1.5 % bias); log t within ±3.5 %.
+    //   a trial [ref: curve-interpolation, computed], plus the +1.5 % bias); log t within ±3.5 %.
     // - d0 within 3 gauge quanta; d100 within 1.5 % (dense) / 3 % (hand) of the primary compression.
     // - Cα(ε) within 10 % of slope/(2·Hdr): the late line still holds a little primary (it is steeper).
-    // Gauge quantum 0.002 mm (BS 1377-5 gauge readable to 0.002 mm [R S6]).
+    // Gauge quantum 0.002 mm (BS 1377-5 gauge readable to 0.002 mm [ref: gauge-resolution]).
     let dir = temp_dir();
     let dense = dense_schedule();
     for cv in [1.0, 1.5, 3.0] {
@@ -222,7 +226,8 @@ fn slow_increment_on_the_hand_schedule_reports_null_with_a_flag_and_a_table() {
 }
 
 /// `[specimen]` of a 75 mm ring, 19 mm high, 110 g dry, Gs 2.68. By hand: A = π·75²/4 = 4417.865 mm²,
-/// Hs = Ms/(Gs·ρw·A) = 110/(2.68 × 0.001 × 4417.865) = 9.29064 mm [R S28], e0 = (19 − Hs)/Hs = 1.04507.
+/// Hs = Ms/(Gs·ρw·A) = 110/(2.68 × 0.001 × 4417.865) = 9.29064 mm, e0 = (19 − Hs)/Hs = 1.04507
+/// [ref: height-of-solids].
 const SPECIMEN_75: &str =
     "[specimen]\ndiameter_mm = 75.0\nheight_mm = 19.0\ndry_mass_g = 110.0\nspecific_gravity = 2.68\n";
 
@@ -240,11 +245,11 @@ fn increment_toml(stress_kpa: f64, settlement_mm: f64, readings: Option<&str>) -
 
 #[test]
 fn test_file_on_a_bilinear_law_recovers_cc_cr_and_sigma_p() {
-    // A bilinear e–log σ′ law [C]: Cr = 0.03 from the 5 kPa seating stress up to σ′p = 160 kPa, Cc = 0.30
+    // A bilinear e–log σ′ law (computed): Cr = 0.03 from the 5 kPa seating stress up to σ′p = 160 kPa, Cc = 0.30
     // beyond, unloading with Cr. Settlements by hand from e = e0 − ΔH/Hs, i.e. ΔH = (e0 − e)·Hs. With the
     // break at an applied stress, Casagrande's maximum curvature sits on it and the bisector meets the
     // virgin line there; with stresses doubling from the seating stress, W–σ′ is exactly two lines meeting
-    // at σ′p too. So Cc, Cr and both σ′p come back to rounding; OCR = 160/80 = 2 [R S23].
+    // at σ′p too. So Cc, Cr and both σ′p come back to rounding; OCR = 160/80 = 2 [ref: ocr].
     let hs = solids_height_75_mm();
     let e0 = (19.0 - hs) / hs;
     assert!((hs - 9.29064).abs() < 1e-5 && (e0 - 1.04507).abs() < 1e-5);
@@ -294,8 +299,8 @@ fn test_file_on_a_bilinear_law_recovers_cc_cr_and_sigma_p() {
 
 #[test]
 fn venkatramaiah_example_7_1_as_a_two_increment_file() {
-    // Venkatramaiah Ex 7.1 [R S9]: σ′ 50 → 100 kN/m², e 0.70 → 0.65 ⇒ mv = 5.88e-4 m²/kN, Cc = 0.166
-    // (0.1661 [C]). Specimen by hand: D 50 mm, H0 20 mm, Ms 60 g, Gs 2.65 → A = 1963.495 mm²,
+    // Venkatramaiah Ex 7.1 [ref: av-mv]: σ′ 50 → 100 kN/m², e 0.70 → 0.65 ⇒ mv = 5.88e-4 m²/kN, Cc = 0.166
+    // (0.1661, computed). Specimen by hand: D 50 mm, H0 20 mm, Ms 60 g, Gs 2.65 → A = 1963.495 mm²,
     // Hs = 60/(2.65 × 0.001 × 1963.495) = 11.53123 mm, e0 = 0.73442; settlements (e0 − e)·Hs = 0.39692 mm
     // (e = 0.70) and 0.97348 mm (e = 0.65).
     let hs = 60.0 / (2.65 * 0.001 * std::f64::consts::PI * 50.0 * 50.0 / 4.0);

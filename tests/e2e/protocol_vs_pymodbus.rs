@@ -253,7 +253,7 @@ fn tcp_master_reads_and_writes_a_pymodbus_tcp_server() -> Result<()> {
 }
 
 fn open_pty_master(path: &Path) -> Result<Box<dyn serialport::SerialPort>> {
-    // No parity: the pymodbus end cannot open a pty with even parity (shared/ECOSYSTEM.md addendum).
+    // No parity: the pymodbus end cannot open a pty with even parity (DEVELOPERS.md, Testing).
     serialport::new(path.to_string_lossy(), 19_200)
         .parity(serialport::Parity::None)
         .timeout(POLL_READ)

@@ -2,9 +2,10 @@
 //! speed, so a 30-minute run is weeks of clock time — with over 5 % of requests faulted and the daemon killed
 //! with SIGKILL every few seconds and restarted on the same database. The harness is the technician: it
 //! starts a test on every frame, then arms and puts on the next load of a ladder whenever a frame is ready.
-//! At the end it checks the promises of DESIGN.md (Failure behaviour) and writes a JSON report: readings
-//! acknowledged vs stored, the file's integrity, memory and CPU over time, alarms raised and cleared, and
-//! each `ready` against the simulator's truth (t100).
+//! At the end it checks the daemon's failure promises (no acknowledged reading lost, the file never corrupt,
+//! every frame still logging after the restarts) and writes a JSON report: readings acknowledged vs stored, the file's
+//! integrity, memory and CPU over time, alarms raised and cleared, and each `ready` against the simulator's
+//! truth (t100).
 //!
 //! The default run holds a ~25 s smoke; `tests/soak.sh` drives the same code for 30 minutes with release
 //! binaries through the `OEDOLOG_SOAK_*` variables ([`Settings`]). It never sleeps to synchronise: every

@@ -80,7 +80,7 @@ def main() -> int:
     endpoint.add_argument("--tcp", help="HOST:PORT of the simulator")
     endpoint.add_argument("--rtu", help="serial device path (a pty from socat in tests)")
     parser.add_argument("--baud", type=int, default=19200)
-    # pyserial cannot open a pty with even parity (shared/ECOSYSTEM.md addendum), so tests use N.
+    # pyserial cannot open a pty with even parity (DEVELOPERS.md, Testing), so tests use N.
     parser.add_argument("--parity", choices=["N", "E", "O"], default="N")
     parser.add_argument(
         "--plan",

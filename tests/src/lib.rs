@@ -25,7 +25,7 @@ pub const READY_TIMEOUT: Duration = Duration::from_secs(20);
 /// How long a one-shot peer (a client script, mbpoll) gets to run to its end.
 pub const RUN_TIMEOUT: Duration = Duration::from_secs(30);
 
-/// The pinned pymodbus version the peer suites are written against (shared/ECOSYSTEM.md §7).
+/// The pinned pymodbus version the peer suites are written against (its API changes between minor releases).
 pub const PYMODBUS_VERSION: &str = "3.16.1";
 
 /// A fresh temp folder for one test, removed when dropped.
@@ -413,7 +413,7 @@ impl Simulator {
     }
 
     /// Starts `oedolog-sim` serving Modbus RTU on `path` with no parity (a pty cannot take even parity
-    /// from pyserial, shared/ECOSYSTEM.md addendum), plus `extra_args`, and waits for `listening on rtu`.
+    /// from pyserial; DEVELOPERS.md, Testing), plus `extra_args`, and waits for `listening on rtu`.
     pub fn start_rtu(path: &Path, extra_args: &[&str]) -> Result<Simulator> {
         let mut command = Command::new(workspace_binary("oedolog-sim"));
         command.arg("--rtu").arg(path).args(["--parity", "none"]).args(extra_args);

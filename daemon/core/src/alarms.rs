@@ -17,7 +17,6 @@
 //!
 //! Each condition has a hysteresis so a value hovering at a limit does not raise and clear every poll.
 
-
 use std::collections::{BTreeMap, VecDeque};
 use std::ops::Range;
 

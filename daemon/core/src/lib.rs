@@ -5,11 +5,12 @@
 //!
 //! Pure: no async runtime, no database, no HTTP, no serial port, no clock reads. Times come in with the
 //! samples; files are read by the caller. Methods, formulas and check values cite `REFERENCES.md` beside
-//! this crate by anchor (`[ref: anchor]`). Results are proposals for a qualified engineer to review.
+//! this crate by anchor (`[ref: <anchor>]`). Results are proposals for a qualified engineer to review.
 
 #![deny(missing_docs)]
 
 pub mod alarms;
 pub mod analysis;
+pub mod diagnostics;
 pub mod offline;
 pub mod watch;

@@ -2,7 +2,7 @@
 //! `oedolog analyze increment`) or a whole test (TOML, `oedolog analyze test`), reduced by `analysis` and
 //! given back as one JSON object or an aligned table. It must not do any construction itself (that is
 //! `analysis`), touch the store or a frame, or panic on a bad file: every problem names its file and its
-//! line and column or field. Results are proposals for a qualified engineer to review (REFERENCES §7).
+//! line and column or field. Results are proposals for a qualified engineer to review [ref: review-and-safety].
 
 use std::fmt::Write as _;
 use std::ops::Range;
@@ -14,12 +14,12 @@ use toml::Spanned;
 use crate::analysis::compression::{Branch, CurveBasis, StatePoint};
 use crate::analysis::curve::{MAX_DISPLACEMENT_MM, MAX_TIME_MIN};
 use crate::analysis::cv::Method;
-use crate::analysis::phase::final_water_check;
 use crate::analysis::secondary::secondary_compression;
 use crate::analysis::{
-    AnalysisError, CompressionInput, CompressionParams, CompressionPoint, Drainage, Flag, IncrementParams,
-    IncrementReduction, SpecimenMeasurements, phase_relations, reduce_compression, reduce_increment,
+    AnalysisError, CurveUnavailable, Flag, IncrementParams, IncrementReduction, ReductionRules, SpecimenMeasurements,
+    StepInput, StepReduction, TestInput, TestSpecimen, phase_relations, reduce_increment, reduce_test,
 };
+use crate::diagnostics::{at_prefix, field_at, line_column};
 
 /// The one header a time-curve CSV may have: minutes since the load went on, compression positive in mm.
 pub const CSV_HEADER: &str = "time_min,displacement_mm";
@@ -116,10 +116,6 @@ fn at_line(line: Option<usize>) -> String {
     line.map(|l| format!("line {l}: ")).unwrap_or_default()
 }
 
-fn at_line_column(at: Option<(usize, usize)>) -> String {
-    at.map(|(l, c)| format!("line {l}, column {c}: ")).unwrap_or_default()
-}
-
 /// Why a file could not be reduced. `Display` starts with the file, then the line and column or field.
 #[derive(Debug, thiserror::Error)]
 pub enum OfflineError {
@@ -140,7 +136,7 @@ pub enum OfflineError {
         error: CsvError,
     },
     /// A test file that is not the TOML the command reads (syntax, unknown or missing field, wrong type).
-    #[error("{}: {}{field}: {message}", .path.display(), at_line_column(*.at))]
+    #[error("{}: {}{field}: {message}", .path.display(), at_prefix(*.at))]
     Toml {
         /// The file.
         path: PathBuf,
@@ -152,7 +148,7 @@ pub enum OfflineError {
         message: String,
     },
     /// A test-file value outside what the reduction allows.
-    #[error("{}: {}{field}: {message}", .path.display(), at_line_column(*.at))]
+    #[error("{}: {}{field}: {message}", .path.display(), at_prefix(*.at))]
     Field {
         /// The file.
         path: PathBuf,
@@ -164,7 +160,7 @@ pub enum OfflineError {
         message: String,
     },
     /// An increment's time curve (`readings = "…"`) could not be used.
-    #[error("{}: {}{field}: {problem}", .path.display(), at_line_column(*.at))]
+    #[error("{}: {}{field}: {problem}", .path.display(), at_prefix(*.at))]
     Readings {
         /// The test file.
         path: PathBuf,
@@ -254,13 +250,17 @@ fn number(text: &str, column: &'static str, limit: f64) -> Result<f64, CsvProble
     Ok(value)
 }
 
-fn read_text(path: &Path) -> Result<String, OfflineError> {
-    std::fs::read_to_string(path).map_err(|error| OfflineError::Read { path: path.to_path_buf(), error })
+/// How the caller reads a file named in a command or a test file (the core does no I/O of its own; the
+/// daemon passes `std::fs::read_to_string`).
+pub type ReadFile<'a> = &'a mut dyn FnMut(&Path) -> std::io::Result<String>;
+
+fn read_text(path: &Path, read: ReadFile<'_>) -> Result<String, OfflineError> {
+    read(path).map_err(|error| OfflineError::Read { path: path.to_path_buf(), error })
 }
 
-/// Reads and parses a time-curve CSV file.
-pub fn read_readings(path: &Path) -> Result<Vec<(f64, f64)>, OfflineError> {
-    parse_readings(&read_text(path)?).map_err(|error| OfflineError::Csv { path: path.to_path_buf(), error })
+/// Reads (with `read`) and parses a time-curve CSV file.
+pub fn read_readings(path: &Path, read: ReadFile<'_>) -> Result<Vec<(f64, f64)>, OfflineError> {
+    parse_readings(&read_text(path, read)?).map_err(|error| OfflineError::Csv { path: path.to_path_buf(), error })
 }
 
 // ---------------------------------------------------------------------------------------------------------
@@ -301,13 +301,13 @@ pub struct TaylorSummary {
     pub t50_min: Option<f64>,
     /// Where the construction line meets the curve, min.
     pub t90_min: Option<f64>,
-    /// cv = 0.848·Hdr²/t90, mm²/min [R S28].
+    /// cv = 0.848·Hdr²/t90, mm²/min [ref: cv-formula].
     pub cv_mm2_per_min: Option<f64>,
     /// The same in m²/yr.
     pub cv_m2_per_year: Option<f64>,
     /// Time window of the straight early part, min.
     pub fit_window_min: Option<[f64; 2]>,
-    /// Abscissa ratio of the construction line (1.15 [R S11, S12]).
+    /// Abscissa ratio of the construction line (1.15) [ref: taylor-root-time].
     pub factor: f64,
 }
 
@@ -324,7 +324,7 @@ pub struct CasagrandeSummary {
     pub t50_min: Option<f64>,
     /// Time at d100, min.
     pub t100_min: Option<f64>,
-    /// cv = 0.197·Hdr²/t50, mm²/min [R S28].
+    /// cv = 0.197·Hdr²/t50, mm²/min [ref: cv-formula].
     pub cv_mm2_per_min: Option<f64>,
     /// The same in m²/yr.
     pub cv_m2_per_year: Option<f64>,
@@ -531,12 +531,17 @@ impl IncrementReport {
 }
 
 /// `oedolog analyze increment FILE.csv --drainage-path-mm H`: reduces one time curve with the drainage
-/// path given. Cα is strain over 2·H (double drainage, the usual oedometer set-up [CP]).
-pub fn analyze_increment(path: &Path, drainage_path_mm: f64) -> Result<IncrementReport, OfflineError> {
+/// path given. Cα is strain over 2·H (double drainage, the usual oedometer set-up)
+/// [ref: drainage-path, common practice].
+pub fn analyze_increment(
+    path: &Path,
+    drainage_path_mm: f64,
+    read: ReadFile<'_>,
+) -> Result<IncrementReport, OfflineError> {
     if !(drainage_path_mm.is_finite() && drainage_path_mm > 0.0 && drainage_path_mm <= MAX_DRAINAGE_PATH_MM) {
         return Err(OfflineError::DrainagePath { value: drainage_path_mm });
     }
-    let readings = read_readings(path)?;
+    let readings = read_readings(path, read)?;
     let analysis = |error| OfflineError::Analysis { path: path.to_path_buf(), error };
     let params = IncrementParams::with_drainage_path_mm(drainage_path_mm);
     let mut reduction = reduce_increment(&readings, &params).map_err(analysis)?;
@@ -606,7 +611,7 @@ pub struct IncrementRow {
     pub stress_kpa: f64,
     /// e on the curve's basis: end of primary where a time curve gives it, else end of increment.
     pub e: f64,
-    /// mv = av/(1 + e before), 1/kPa = m²/kN [R S9 Ex 7.1].
+    /// mv = av/(1 + e before), 1/kPa = m²/kN [ref: av-mv].
     pub mv_per_kpa: Option<f64>,
     /// cv by √t, mm²/min (time curve only).
     pub cv_taylor_mm2_per_min: Option<f64>,
@@ -653,7 +658,7 @@ pub struct IncrementRow {
 /// `analyze test`: the e–log σ′ reduction of a whole test. The first keys are the command's contract.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct TestReport {
-    /// Height of solids Hs = Ms/(Gs·ρw·A), mm [R S28].
+    /// Height of solids Hs = Ms/(Gs·ρw·A), mm [ref: height-of-solids].
     pub hs_mm: f64,
     /// e0 = (H0 − Hs)/Hs.
     pub e0: f64,
@@ -665,7 +670,7 @@ pub struct TestReport {
     pub cr: Option<f64>,
     /// σ′p by Casagrande's construction, kPa.
     pub sigma_p_kpa: Option<f64>,
-    /// σ′p by the strain-energy (work) method, kPa [R S19].
+    /// σ′p by the strain-energy (work) method, kPa [ref: preconsolidation-work].
     pub sigma_p_work_kpa: Option<f64>,
     /// Test-level remarks (each increment's are in its own `flags`).
     pub flags: Vec<String>,
@@ -703,58 +708,6 @@ pub struct TestReport {
     pub file: String,
 }
 
-fn line_column(source: &str, offset: usize) -> (usize, usize) {
-    let before = &source[..floor_char_boundary(source, offset)];
-    let line = before.matches('\n').count() + 1;
-    let column = before.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
-    (line, column)
-}
-
-fn floor_char_boundary(source: &str, offset: usize) -> usize {
-    let mut i = offset.min(source.len());
-    while !source.is_char_boundary(i) {
-        i -= 1;
-    }
-    i
-}
-
-/// The dotted field at a byte offset: the table header above it (`[[increment]]` numbered from 0) and the
-/// key on its line.
-fn field_at(source: &str, offset: usize) -> String {
-    let offset = floor_char_boundary(source, offset);
-    let line_start = source[..offset].rfind('\n').map_or(0, |i| i + 1);
-    let line_end = source[offset..].find('\n').map_or(source.len(), |i| offset + i);
-    let mut table = String::new();
-    let mut increments = 0usize;
-    // Headers up to and including the offset's own line.
-    for line in source[..line_end].lines() {
-        let t = line.trim();
-        if t.starts_with("[[") {
-            let name = t.trim_start_matches('[').split(']').next().unwrap_or("").trim();
-            if name == "increment" {
-                table = format!("increment[{increments}]");
-                increments += 1;
-            } else {
-                table = name.to_string();
-            }
-        } else if t.starts_with('[') {
-            table = t.trim_start_matches('[').split(']').next().unwrap_or("").trim().to_string();
-        }
-    }
-    let line = source[line_start..line_end].trim();
-    let key = if line.starts_with('[') || !line.contains('=') {
-        ""
-    } else {
-        line.split('=').next().unwrap_or("").trim().trim_matches('"')
-    };
-    match (table.is_empty(), key.is_empty()) {
-        (true, true) => "file".into(),
-        (true, false) => key.to_string(),
-        (false, true) => table,
-        (false, false) => format!("{table}.{key}"),
-    }
-}
-
 struct Checker<'a> {
     source: &'a str,
     path: &'a Path,
@@ -763,6 +716,16 @@ struct Checker<'a> {
 impl Checker<'_> {
     fn at(&self, span: Range<usize>) -> Option<(usize, usize)> {
         Some(line_column(self.source, span.start))
+    }
+
+    /// A problem with increment `i`'s time curve, placed at its `readings` value.
+    fn readings(&self, i: usize, readings: &Spanned<String>, problem: OfflineError) -> OfflineError {
+        OfflineError::Readings {
+            path: self.path.to_path_buf(),
+            at: self.at(readings.span()),
+            field: format!("increment[{i}].readings"),
+            problem: Box::new(problem),
+        }
     }
 
     fn field(&self, span: Option<Range<usize>>, field: impl Into<String>, message: impl Into<String>) -> OfflineError {
@@ -792,14 +755,15 @@ impl Checker<'_> {
     }
 }
 
-/// `oedolog analyze test FILE.toml`: reads the test file and each increment's time curve and reduces the test.
-pub fn analyze_test(path: &Path) -> Result<TestReport, OfflineError> {
-    let source = read_text(path)?;
-    analyze_test_source(&source, path)
+/// `oedolog analyze test FILE.toml`: reads (with `read`) the test file and each increment's time curve and
+/// reduces the test with the core's one reduction of a test ([`reduce_test`]).
+pub fn analyze_test(path: &Path, read: ReadFile<'_>) -> Result<TestReport, OfflineError> {
+    let source = read_text(path, &mut *read)?;
+    analyze_test_source(&source, path, read)
 }
 
 /// As [`analyze_test`], with the file's text already read; `readings` paths are relative to `path`'s folder.
-pub fn analyze_test_source(source: &str, path: &Path) -> Result<TestReport, OfflineError> {
+pub fn analyze_test_source(source: &str, path: &Path, read: ReadFile<'_>) -> Result<TestReport, OfflineError> {
     let file: TestFile = toml::from_str(source).map_err(|error| OfflineError::Toml {
         path: path.to_path_buf(),
         at: error.span().map(|s| line_column(source, s.start)),
@@ -858,9 +822,9 @@ pub fn analyze_test_source(source: &str, path: &Path) -> Result<TestReport, Offl
     let max_settlement = h0 - hs;
     let settlement_allowed =
         format!("−H0 = {} mm up to below H0 − Hs = {} mm (e stays above 0)", fmt_g(-h0), fmt_g(max_settlement));
-    let mut points = Vec::with_capacity(file.increments.len());
-    let mut curves: Vec<Option<IncrementReduction>> = Vec::with_capacity(file.increments.len());
-    let mut previous_stress = seating_stress_kpa;
+    // Each increment's checked stress and settlement, and its time curve read and parsed.
+    let mut curves: Vec<Option<Vec<(f64, f64)>>> = Vec::with_capacity(file.increments.len());
+    let mut values = Vec::with_capacity(file.increments.len());
     for (i, inc) in file.increments.iter().enumerate() {
         let stress = check.range(
             &inc.stress_kpa,
@@ -877,78 +841,86 @@ pub fn analyze_test_source(source: &str, path: &Path) -> Result<TestReport, Offl
                 format!("{settlement} is not allowed (allowed {settlement_allowed})"),
             ));
         }
-        let mut point = CompressionPoint {
-            stress_kpa: stress,
-            settlement_mm: settlement,
-            settlement_eop_mm: None,
-            cv_mm2_per_min: None,
-        };
-        let mut curve = None;
-        if let Some(readings) = &inc.readings {
-            let field = format!("increment[{i}].readings");
-            let at = check.at(readings.span());
-            let wrap = |problem: OfflineError| OfflineError::Readings {
-                path: path.to_path_buf(),
-                at,
-                field: field.clone(),
-                problem: Box::new(problem),
-            };
-            if readings.get_ref().trim().is_empty() {
-                return Err(check.field(
-                    Some(readings.span()),
-                    field,
-                    "empty path (give the CSV file, relative to this file)",
-                ));
+        values.push((stress, settlement));
+        curves.push(match &inc.readings {
+            None => None,
+            Some(readings) => {
+                if readings.get_ref().trim().is_empty() {
+                    return Err(check.field(
+                        Some(readings.span()),
+                        format!("increment[{i}].readings"),
+                        "empty path (give the CSV file, relative to this file)",
+                    ));
+                }
+                let csv_path = base.join(readings.get_ref());
+                Some(read_readings(&csv_path, &mut *read).map_err(|problem| check.readings(i, readings, problem))?)
             }
-            let csv_path = base.join(readings.get_ref());
-            let data = read_readings(&csv_path).map_err(wrap)?;
-            let (_, last_mm) = data[data.len() - 1];
-            // Tie the gauge to the specimen: at the last reading (the end of the increment) the height is
-            // H0 − settlement. Drainage is double, Hdr = half the height at each method's d50 (D2435) [M/CP].
-            let mut params = IncrementParams::with_specimen(h0 - settlement, last_mm, Drainage::Double);
-            params.solids_height_mm = Some(hs);
-            params.load_increment_ratio = (previous_stress > 0.0).then(|| (stress - previous_stress) / previous_stress);
-            let reduction = reduce_increment(&data, &params)
-                .map_err(|error| wrap(OfflineError::Analysis { path: csv_path.clone(), error }))?;
-            point.settlement_eop_mm = reduction.end_of_primary.map(|e| settlement - (last_mm - e.d100_mm));
-            // k uses the log-t cv where found, else the √t cv.
-            point.cv_mm2_per_min = reduction.cv_casagrande.or(reduction.cv_taylor).map(|e| e.cv_mm2_per_min);
-            if let Some(eop) = point.settlement_eop_mm
-                && !(eop >= -h0 && eop < max_settlement)
-            {
-                return Err(wrap(OfflineError::Field {
-                    path: csv_path,
-                    at: None,
-                    field: "end of primary".into(),
-                    message: format!("settlement at d100 {eop} mm is outside {settlement_allowed}"),
-                }));
-            }
-            curve = Some(reduction);
-        }
-        points.push(point);
-        curves.push(curve);
-        previous_stress = stress;
+        });
     }
+    // The file gives settlements already corrected for apparatus deflection: no table here.
+    let steps: Vec<StepInput<'_>> = values
+        .iter()
+        .zip(&curves)
+        .map(|(&(stress_kpa, settlement_mm), curve)| StepInput {
+            stress_kpa,
+            settlement_mm: Some(settlement_mm),
+            readings: curve.as_deref(),
+        })
+        .collect();
+    let specimen = TestSpecimen {
+        diameter_mm: measurements.diameter_mm,
+        height_mm: h0,
+        dry_mass_g: Some(measurements.dry_mass_g),
+        specific_gravity: Some(measurements.specific_gravity),
+        initial_water_content: measurements.initial_water_content,
+        final_water_content,
+        seating_stress_kpa,
+        sigma_v0_kpa,
+    };
+    let rules = ReductionRules::default();
+    let reduced = reduce_test(&TestInput { specimen, steps: &steps, deflection: None, rules: &rules });
 
-    let any_curve = curves.iter().any(Option::is_some);
-    let basis = if any_curve { CurveBasis::EndOfPrimary } else { CurveBasis::EndOfIncrement };
-    let params = CompressionParams { basis, sigma_v0_kpa, ..CompressionParams::default() };
-    let input = CompressionInput { initial_height_mm: h0, solids_height_mm: hs, seating_stress_kpa, points: &points };
-    let reduced = reduce_compression(&input, &params)
-        .map_err(|error| OfflineError::Analysis { path: path.to_path_buf(), error })?;
+    for (i, (step, inc)) in reduced.steps.iter().zip(&file.increments).enumerate() {
+        let Some(readings) = &inc.readings else { continue };
+        let csv_path = base.join(readings.get_ref());
+        if let Some(error) = &step.curve_refused {
+            let problem = OfflineError::Analysis { path: csv_path, error: error.clone() };
+            return Err(check.readings(i, readings, problem));
+        }
+        if let Some(eop) = step.settlement_eop_mm
+            && !(eop >= -h0 && eop < max_settlement)
+        {
+            let problem = OfflineError::Field {
+                path: csv_path,
+                at: None,
+                field: "end of primary".into(),
+                message: format!("settlement at d100 {eop} mm is outside {settlement_allowed}"),
+            };
+            return Err(check.readings(i, readings, problem));
+        }
+    }
+    let compression = match &reduced.compression {
+        Ok(c) => c,
+        Err(CurveUnavailable::Refused(error) | CurveUnavailable::Specimen(error)) => {
+            return Err(OfflineError::Analysis { path: path.to_path_buf(), error: error.clone() });
+        }
+        Err(other) => {
+            return Err(check.field(None, "increment", other.to_string()));
+        }
+    };
 
     let mut remarks: Vec<Remark> = phase.flags.iter().map(Remark::from).collect();
     let mut e0_from_final_water = None;
-    if let Some(wf) = final_water_content {
-        let final_height_mm = h0 - points[points.len() - 1].settlement_mm;
-        let fw = final_water_check(&phase, final_height_mm, wf).map_err(|error| {
+    if let Some(fw) = &reduced.final_water {
+        let fw = fw.as_ref().map_err(|error| {
             let span = s.final_water_content.as_ref().map(|w| w.span());
             check.field(span, "specimen.final_water_content", error.to_string())
         })?;
         e0_from_final_water = Some(fw.e0_from_final_water);
         remarks.extend(fw.flags.iter().map(Remark::from));
     }
-    remarks.extend(reduced.flags.iter().map(Remark::from));
+    remarks.extend(compression.flags.iter().map(Remark::from));
+    let any_curve = reduced.basis == CurveBasis::EndOfPrimary;
     if !any_curve {
         remarks.push(Remark {
             code: "end_of_increment_curve",
@@ -957,33 +929,33 @@ pub fn analyze_test_source(source: &str, path: &Path) -> Result<TestReport, Offl
         });
     }
 
-    let increments = reduced
+    // Every increment of the file has a settlement, so each is a point of the curve, in order.
+    let increments = compression
         .points
         .iter()
-        .zip(&points)
-        .zip(&curves)
+        .zip(&reduced.steps)
         .zip(&file.increments)
-        .map(|(((state, point), curve), entry)| increment_row(state, point, curve.as_ref(), entry))
+        .map(|((state, step), entry)| increment_row(state, step, entry))
         .collect();
-    let stresses = |indices: &[usize]| indices.iter().map(|&i| reduced.points[i].stress_kpa).collect::<Vec<f64>>();
-    let casagrande = reduced.sigma_p_casagrande.as_ref();
+    let stresses = |indices: &[usize]| indices.iter().map(|&i| compression.points[i].stress_kpa).collect::<Vec<f64>>();
+    let casagrande = compression.sigma_p_casagrande.as_ref();
     let (flags, flag_codes) = split_remarks(&remarks);
     Ok(TestReport {
         hs_mm: hs,
-        e0: reduced.e0,
+        e0: compression.e0,
         increments,
-        cc: reduced.cc.as_ref().map(|l| l.index),
-        cr: reduced.cr.as_ref().map(|l| l.index),
+        cc: compression.cc.as_ref().map(|l| l.index),
+        cr: compression.cr.as_ref().map(|l| l.index),
         sigma_p_kpa: casagrande.map(|c| c.sigma_p_kpa),
-        sigma_p_work_kpa: reduced.sigma_p_work.as_ref().map(|w| w.sigma_p_kpa),
+        sigma_p_work_kpa: compression.sigma_p_work.as_ref().map(|w| w.sigma_p_kpa),
         flags,
         flag_codes,
         curve_basis: if any_curve { "end_of_primary" } else { "end_of_increment" },
-        cc_stresses_kpa: reduced.cc.as_ref().map(|l| stresses(&l.points)).unwrap_or_default(),
-        cr_stresses_kpa: reduced.cr.as_ref().map(|l| stresses(&l.points)).unwrap_or_default(),
-        compression_ratio: reduced.compression_ratio,
-        ocr: reduced.ocr_casagrande,
-        ocr_work: reduced.ocr_work,
+        cc_stresses_kpa: compression.cc.as_ref().map(|l| stresses(&l.points)).unwrap_or_default(),
+        cr_stresses_kpa: compression.cr.as_ref().map(|l| stresses(&l.points)).unwrap_or_default(),
+        compression_ratio: compression.compression_ratio,
+        ocr: compression.ocr_casagrande,
+        ocr_work: compression.ocr_work,
         max_curvature_stress_kpa: casagrande.map(|c| c.max_curvature_stress_kpa),
         e_per_log_cycle: casagrande.map(|c| c.e_per_log_cycle),
         area_mm2: phase.area_mm2,
@@ -996,12 +968,8 @@ pub fn analyze_test_source(source: &str, path: &Path) -> Result<TestReport, Offl
     })
 }
 
-fn increment_row(
-    state: &StatePoint,
-    point: &CompressionPoint,
-    curve: Option<&IncrementReduction>,
-    entry: &IncrementEntry,
-) -> IncrementRow {
+fn increment_row(state: &StatePoint, step: &StepReduction, entry: &IncrementEntry) -> IncrementRow {
+    let curve = step.curve.as_ref();
     let mut remarks: Vec<Remark> = state.flags.iter().map(Remark::from).collect();
     if let Some(c) = curve {
         for remark in c.flags.iter().map(Remark::from) {
@@ -1022,8 +990,8 @@ fn increment_row(
             Branch::Unloading => "unloading",
             Branch::Reloading => "reloading",
         },
-        settlement_mm: point.settlement_mm,
-        settlement_eop_mm: point.settlement_eop_mm,
+        settlement_mm: step.settlement_mm.unwrap_or(0.0),
+        settlement_eop_mm: step.settlement_eop_mm,
         eop_from: curve.and_then(|c| c.end_of_primary).map(|e| method_name(e.method)),
         e_end: state.e_end,
         e_eop: state.e_eop,
@@ -1187,11 +1155,24 @@ fn write_flags(out: &mut String, flags: &[String]) {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    // The tests read real files from a temporary folder, as the daemon's `analyze` does.
+    fn read(path: &Path) -> std::io::Result<String> {
+        std::fs::read_to_string(path)
+    }
+
+    fn analyze_increment(path: &Path, drainage_path_mm: f64) -> Result<IncrementReport, OfflineError> {
+        super::analyze_increment(path, drainage_path_mm, &mut read)
+    }
+
+    fn analyze_test_source(source: &str, path: &Path) -> Result<TestReport, OfflineError> {
+        super::analyze_test_source(source, path, &mut read)
+    }
     use crate::analysis::terzaghi::degree_of_consolidation;
     use proptest::prelude::*;
 
-    /// A time curve from the exact Terzaghi series (`terzaghi`, REFERENCES §2) plus a straight secondary
-    /// branch from T = 1.10 (REFERENCES §6a) [C]: cv 1.5 mm²/min, Hdr 9.5 mm, 0.03 mm immediate, 1.2 mm
+    /// A time curve from the exact Terzaghi series (`terzaghi`) plus a straight secondary branch from
+    /// T = 1.10 [ref: synthetic-checks, computed]: cv 1.5 mm²/min, Hdr 9.5 mm, 0.03 mm immediate, 1.2 mm
     /// primary, 0.04 mm per log cycle of secondary.
     fn curve_mm(t_min: f64) -> f64 {
         let (cv, hdr) = (1.5, 9.5);
@@ -1263,8 +1244,8 @@ mod tests {
 
     #[test]
     fn increment_reports_log_time_end_of_primary_and_cv_near_the_series() {
-        // Dense noise-free curve [C]: log-t cv within 1 % (REFERENCES §4: PCHIP in log t −0.9 % on t50), √t cv
-        // +0.5 … +2 % (the 1.15 factor biases it +1.5 %, REFERENCES §3).
+        // Dense noise-free curve (computed): log-t cv within 1 % (PCHIP in log t −0.9 % on t50
+        // [ref: curve-interpolation]), √t cv +0.5 … +2 % (the 1.15 factor biases it +1.5 % [ref: taylor-root-time]).
         let dir = tempfile::tempdir().unwrap();
         let path = write(dir.path(), "dense.csv", &csv(&dense_times(), curve_mm));
         let r = analyze_increment(&path, 9.5).unwrap();

@@ -7,10 +7,12 @@ use std::time::Duration;
 
 use serde::Serialize;
 
-use crate::analysis::{Drainage, Flag, IncrementParams, IncrementReduction, TimeCurve, reduce_curve};
+use crate::analysis::{
+    Flag, IncrementParams, IncrementReduction, ReductionRules, SpecimenState, TimeCurve, reduce_curve,
+};
 
 /// Time factor of U = 100 % by the Casagrande construction on the ideal curve, over T90: t100 ≈ 1.30·t90
-/// (REFERENCES §1.4 [C]: 1.10 / 0.848).
+/// (1.10 / 0.848) [ref: t100-t90-ratio, computed].
 const T100_OVER_T90: f64 = 1.101_345_7 / 0.848_085_4;
 
 /// How end of primary is decided.
@@ -31,13 +33,11 @@ pub enum EopRule {
 pub struct WatchParams {
     /// How end of primary is decided.
     pub rule: EopRule,
-    /// The Casagrande secondary line must span at least this many log cycles (REFERENCES §1.4: 0.3).
-    pub min_secondary_decades: f64,
+    /// The time-curve reduction's choices, shared with the reduction of stored load steps.
+    pub reduction: ReductionRules,
     /// Consecutive evaluations that must agree before `ready` is declared (hysteresis; it never flaps back).
     pub confirmations: u8,
-    /// Gauge resolution, mm.
-    pub gauge_resolution_mm: f64,
-    /// Load check tolerance as a fraction of the expected force (ASTM D4546 §7.1: ±0.5 %).
+    /// Load check tolerance as a fraction of the expected force (ASTM D4546 §7.1: ±0.5 %) [ref: load-check].
     pub load_tolerance: f64,
     /// Smallest load difference the cell can resolve, kN (the tolerance never goes below it).
     pub load_floor_kn: f64,
@@ -48,60 +48,32 @@ pub struct WatchParams {
     /// A gauge jump at least this large (and 3× any step of the increment so far) is a re-seat, mm.
     pub reseat_min_mm: f64,
     /// No increment is declared ready before this long, s: the standard reading schedules run through
-    /// 15 min at least (REFERENCES §1.3 [M/CP]), and a very small, fast increment is where the
+    /// 15 min at least [ref: reading-schedule, from memory], and a very small, fast increment is where the
     /// constructions are least sure.
     pub min_hold_s: u64,
     /// Without an end of primary from the constructions, the increment is declared ready (with a flag for
-    /// review) after this long, s — the 24 h of D2435 method A [R S1 §1.1.1].
+    /// review) after this long, s — the 24 h of D2435 method A [ref: test-methods].
     pub fallback_hold_s: u64,
-    /// The secondary line may be at most this fraction of the inflection tangent's slope. Soft soils with a
-    /// large Cα relative to the primary of an increment need more than the ideal curve's 0.49 (REFERENCES
-    /// §4 [C]); collinearity over the window still keeps a curving primary tail out.
-    pub max_secondary_slope_ratio: f64,
 }
 
 impl Default for WatchParams {
     fn default() -> Self {
         WatchParams {
             rule: EopRule::Constructions,
-            min_secondary_decades: 0.3,
+            reduction: ReductionRules::default(),
             confirmations: 2,
-            gauge_resolution_mm: 0.001,
             load_tolerance: 0.005,
             load_floor_kn: 0.001,
             load_window: 8,
             onset_lookback_us: 30 * 60 * 1_000_000,
             reseat_min_mm: 0.5,
-            max_secondary_slope_ratio: 0.6,
             fallback_hold_s: 86_400,
             min_hold_s: 900,
         }
     }
 }
 
-impl WatchParams {
-    /// The reduction parameters of an increment as the watch reduces it: double drainage from the specimen
-    /// height at the onset (`height_mm`, when the gauge read `d_onset_mm`), the watch's gauge resolution and
-    /// secondary-line rules, and the load increment ratio. The API reduces stored increments with the same.
-    pub fn increment_params(
-        &self,
-        height_mm: f64,
-        d_onset_mm: Option<f64>,
-        from_kpa: f64,
-        stress_kpa: f64,
-    ) -> IncrementParams {
-        let mut params = IncrementParams::with_specimen(height_mm, d_onset_mm.unwrap_or(0.0), Drainage::Double);
-        params.gauge_resolution_mm = self.gauge_resolution_mm;
-        params.casagrande.secondary_min_decades = self.min_secondary_decades;
-        params.casagrande.max_secondary_slope_ratio = self.max_secondary_slope_ratio;
-        if from_kpa > 0.0 {
-            params.load_increment_ratio = Some((stress_kpa - from_kpa) / from_kpa);
-        }
-        params
-    }
-}
-
-/// The frame's phase of the lifecycle (DESIGN.md states; `offline` is decided from reading age elsewhere).
+/// The frame's phase of the lifecycle (`offline` is decided from reading age elsewhere).
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "lowercase")]
 pub enum Phase {
@@ -538,7 +510,7 @@ impl FrameWatch {
             // take the middle, so t0 is within half a poll period of the truth either way.
             (change.before_us + (change.at_us - change.before_us) / 2, OnsetSource::LoadStep)
         } else {
-            let jump = (20.0 * self.params.gauge_resolution_mm).max(0.01);
+            let jump = (20.0 * self.params.reduction.gauge_resolution_mm).max(0.01);
             let ds: Vec<(i64, f64)> = self
                 .history
                 .iter()
@@ -570,7 +542,8 @@ impl FrameWatch {
             _ => 20.0,
         };
         let from_kpa = self.stress_kpa;
-        let params = self.params.increment_params(height_mm, d_onset, from_kpa, stress_kpa);
+        let specimen = SpecimenState { height_mm, at_reading_mm: d_onset.unwrap_or(0.0) };
+        let params = self.params.reduction.increment_params(specimen, from_kpa, stress_kpa, None);
         let mut curve = TimeCurve::new(params.bins_per_decade).expect("default bins are valid");
         if let Some(d) = d_onset {
             let _ = curve.push(0.0, d);
@@ -698,13 +671,13 @@ impl FrameWatch {
             let taylor_t100 = result.taylor.t90_min.map(|t90| T100_OVER_T90 * t90);
             let secondary = c.secondary.as_ref().is_some_and(|s| {
                 s.points >= 3
-                    && (s.t_end_min / s.t_start_min).log10() >= params.min_secondary_decades - 1e-9
+                    && (s.t_end_min / s.t_start_min).log10() >= params.reduction.min_secondary_decades - 1e-9
                     && taylor_t100.is_some_and(|t100| s.t_start_min >= t100)
             });
             // With the same 5 % margin on the log-time t100.
             let past_casagrande = c.t100_min.is_some_and(|t100| t_min >= 1.05 * t100);
             // Taylor: the reading has reached its d100, and t is past its t100 estimate (1.30·t90 on the
-            // ideal curve, REFERENCES §1.4 [C]) with a 5 % margin for the construction's bias and noise.
+            // ideal curve [ref: t100-t90-ratio, computed]) with a 5 % margin for the construction's bias and noise.
             let past_taylor = result.taylor.d100_mm.is_some_and(|d100| d >= d100)
                 && result.taylor.t90_min.is_some_and(|t90| t_min >= 1.05 * T100_OVER_T90 * t90);
             // A √t straight part fitted on too few early readings (sparse polls, a gap after the load
@@ -733,7 +706,7 @@ impl FrameWatch {
                 "movement has levelled off (primary too small for the constructions)".to_string()
             } else {
                 "secondary line over ≥ 0.3 log cycle; t ≥ t100 by both constructions"
-                    .replace("0.3", &format!("{}", params.min_secondary_decades))
+                    .replace("0.3", &format!("{}", params.reduction.min_secondary_decades))
             };
             return self.declare_ready(at_us, how);
         }
@@ -782,9 +755,8 @@ impl FrameWatch {
         let ready_eta_us = match (self.params.rule, live.ready_us) {
             (_, Some(at)) => Some(at),
             (EopRule::FixedDuration { hold_s }, None) => Some(live.onset_us + hold_s as i64 * 1_000_000),
-            (EopRule::Constructions, None) => {
-                t100.map(|t| live.onset_us + (t * 10f64.powf(self.params.min_secondary_decades) * 60e6) as i64)
-            }
+            (EopRule::Constructions, None) => t100
+                .map(|t| live.onset_us + (t * 10f64.powf(self.params.reduction.min_secondary_decades) * 60e6) as i64),
         };
         WatchStatus {
             seq: Some(live.seq),

@@ -9,13 +9,13 @@ use std::time::Duration;
 use rusqlite::{Connection, OptionalExtension, params};
 
 use super::{AlarmBoard, AlarmView};
-use oedolog_core::alarms::{AlarmEngine, AlarmRules, BusInput, Code, FrameInput, Subject, Transition};
 use crate::acquire::Live;
 use crate::clock::{Clock, rfc3339};
 use crate::config::Config;
 use crate::lab::Lab;
 use crate::store::{StoreError, Writer};
 use crate::watch::Hub;
+use oedolog_core::alarms::{AlarmEngine, AlarmRules, BusInput, Code, FrameInput, Subject, Transition};
 
 /// How often the conditions are judged, clock time.
 pub const PERIOD: Duration = Duration::from_secs(5);

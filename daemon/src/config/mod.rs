@@ -14,6 +14,7 @@ use std::ops::Range;
 use std::path::PathBuf;
 use std::time::Duration;
 
+use oedolog_core::diagnostics::{field_at, line_column};
 use oedolog_protocol::UnitId;
 use oedolog_protocol::gauge::LengthUnit;
 use oedolog_protocol::registers::RegisterMap;
@@ -562,13 +563,6 @@ struct Checker<'a> {
     problems: Vec<ConfigProblem>,
 }
 
-fn line_column(source: &str, offset: usize) -> (usize, usize) {
-    let before = &source[..offset.min(source.len())];
-    let line = before.matches('\n').count() + 1;
-    let column = before.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
-    (line, column)
-}
-
 impl Checker<'_> {
     fn at(&mut self, span: Range<usize>, field: impl Into<String>, message: impl Into<String>) {
         let (line, column) = line_column(self.source, span.start);
@@ -661,7 +655,7 @@ impl Config {
     pub fn parse(source: &str, purpose: Purpose) -> Result<Config, ConfigError> {
         let raw: RawConfig = toml::from_str(source).map_err(|error| {
             let (line, column) = error.span().map_or((0, 0), |span| line_column(source, span.start));
-            let field = field_of_serde_error(source, &error);
+            let field = error.span().map_or_else(|| "file".into(), |span| field_at(source, span.start));
             ConfigError { problems: vec![ConfigProblem { line, column, field, message: error.message().to_string() }] }
         })?;
         let mut checker = Checker { source, problems: Vec::new() };
@@ -709,28 +703,6 @@ impl Config {
         }
         out += &format!("{} frame(s), {} bus(es)", self.frames.len(), self.buses.len());
         out
-    }
-}
-
-/// The dotted field of a serde error, found from its span's table header and key.
-fn field_of_serde_error(source: &str, error: &toml::de::Error) -> String {
-    let Some(span) = error.span() else { return "file".into() };
-    let before = &source[..span.start.min(source.len())];
-    let header = before
-        .lines()
-        .rev()
-        .find_map(|l| {
-            let t = l.trim();
-            (t.starts_with('[') && t.ends_with(']')).then(|| t.trim_matches(|c| c == '[' || c == ']').to_string())
-        })
-        .unwrap_or_default();
-    let line = before.rsplit('\n').next().unwrap_or("").to_string() + &source[span.start.min(source.len())..];
-    let key = line.split('=').next().unwrap_or("").trim().trim_matches('"').to_string();
-    match (header.is_empty(), key.is_empty() || key.starts_with('[')) {
-        (true, true) => "file".into(),
-        (true, false) => key,
-        (false, true) => header,
-        (false, false) => format!("{header}.{key}"),
     }
 }
 

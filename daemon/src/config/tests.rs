@@ -77,11 +77,11 @@ fn broken_files_each_get_a_message_naming_the_field_and_what_is_allowed() {
         (
             "unknown field",
             |s| replace("baud = 19200", "baud = 19200\nspeed = 9")(s),
-            "bus.speed",
+            "bus[0].speed",
             "unknown field `speed`",
             10,
         ),
-        ("wrong type", |s| replace("unit = 1", "unit = \"one\"")(s), "frame.unit", "invalid type", 14),
+        ("wrong type", |s| replace("unit = 1", "unit = \"one\"")(s), "frame[0].unit", "invalid type", 14),
         (
             "missing bus",
             |s| replace("bus = \"line-a\"", "bus = \"line-b\"")(s),
@@ -106,7 +106,7 @@ fn broken_files_each_get_a_message_naming_the_field_and_what_is_allowed() {
                     "type = \"i48\" }\ncalibration = { gain = 0.0001 }\n[frame.load]",
                 )(s)
             },
-            "frame.displacement.register",
+            "frame[0].displacement.register",
             "unknown variant `i48`",
             17,
         ),
@@ -225,7 +225,7 @@ fn broken_files_each_get_a_message_naming_the_field_and_what_is_allowed() {
         (
             "unknown bus kind",
             |s| replace("kind = \"modbus-rtu\"", "kind = \"can-bus\"")(s),
-            "bus.kind",
+            "bus[0].kind",
             "unknown variant `can-bus`",
             7,
         ),
@@ -302,7 +302,7 @@ fn broken_files_each_get_a_message_naming_the_field_and_what_is_allowed() {
                     "{s}[[notify.webhook]]\nurl = \"http://127.0.0.1:8400/x\"\nevents = [\"ready\"]\nsecret = \"x\"\n"
                 )
             },
-            "notify.webhook.secret",
+            "notify.webhook[0].secret",
             "unknown field `secret`",
             25,
         ),

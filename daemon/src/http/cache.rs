@@ -18,8 +18,8 @@ use std::time::{Duration, Instant};
 use axum::body::Bytes;
 
 use super::ApiError;
-use super::queries::{self, IncrementRow, Poll, StoredCurve, TestRow};
-use oedolog_core::analysis::IncrementReduction;
+use super::queries::{self, IncrementRow, Poll, TestRow};
+use oedolog_core::analysis::{AnalysisError, IncrementReduction};
 
 /// What a lookup found.
 pub(crate) enum Found<V> {
@@ -233,15 +233,12 @@ pub struct Caches {
     polls: Memo<IncrementKey, IncrementStamp, PollRun>,
     /// Serialised thinned readings: (test, increment, max points).
     pub(crate) readings: Memo<(i64, i64, usize), IncrementStamp, Bytes>,
-    /// Stored increments reduced: (readings in the curve, gauge at the end, the reduction).
+    /// Stored increments' time curves reduced.
     pub(crate) reductions: Memo<IncrementKey, IncrementStamp, Reduced>,
 }
 
-/// What `queries::reduce_stored` gives, kept.
-pub(crate) type StoredReduction = (StoredCurve, IncrementReduction);
-
-/// A stored increment reduced (`None`: no curve yet), or why the analysis refused its curve.
-pub(crate) type Reduced = Arc<Result<Option<StoredReduction>, String>>;
+/// A stored increment's time curve reduced, or why the analysis refused it.
+pub(crate) type Reduced = Arc<Result<IncrementReduction, AnalysisError>>;
 
 /// How long the frames overview is served before it is built again (a dashboard refreshes every 2 s;
 /// an operator action drops it at once).

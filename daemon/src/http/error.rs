@@ -6,9 +6,9 @@ use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::Serialize;
 
-use oedolog_core::analysis::AnalysisError;
 use crate::store::StoreError;
 use crate::watch::{HubError, WatchError};
+use oedolog_core::analysis::AnalysisError;
 
 /// Why a request failed.
 #[derive(Debug, thiserror::Error)]

@@ -16,12 +16,12 @@ use super::auth::{Caller, actor};
 use super::body::JsonBody;
 use super::cache::IncrementStamp;
 use super::frames::json_bytes;
-use super::queries::{self, IncrementRow, Poll, TestRow};
+use super::queries::{self, IncrementRow, IncrementSummary, Poll, TestRow};
 use super::{ApiError, AppState};
-use oedolog_core::analysis::IncrementReduction;
 use crate::clock::rfc3339;
 use crate::config::Loading;
 use axum::body::Bytes;
+use oedolog_core::analysis::IncrementReduction;
 
 /// Standard gravity gn = 9.80665 m/s² (3rd CGPM, 1901), for hanger masses.
 pub const STANDARD_GRAVITY_M_PER_S2: f64 = 9.806_65;
@@ -535,6 +535,7 @@ async fn analysis(
     let live = state.hub.reduction(index).filter(|(s, _)| *s == seq).map(|(_, r)| r);
     let commits = state.writer.commits();
     let caches = state.caches.clone();
+    let frames = state.frames.clone();
     let out = state
         .read(move |conn| {
             let test = frame_test(conn, key, &id)?;
@@ -544,11 +545,15 @@ async fn analysis(
             let source = if live.is_some() { "live-watch" } else { "stored-readings" };
             let (reduction, unavailable) = match live {
                 Some(r) => (Some(r), None),
-                None => match queries::reduce_stored_cached(conn, &caches, &test, &inc, commits, now)?.as_ref() {
-                    Ok(Some((_, r))) => (Some(r.clone()), None),
-                    Ok(None) => (None, Some("no readings after the onset yet".to_string())),
-                    Err(why) => (None, Some(why.clone())),
-                },
+                // The stored increment as the test's one reduction gives it (its curve kept in the caches).
+                None => {
+                    let reduced = queries::reduce_test(conn, &caches, commits, test.id, now, &frames)?;
+                    match reduced.increments.into_iter().find(|i| i.row.seq == seq) {
+                        Some(IncrementSummary { curve: Some(r), .. }) => (Some(r), None),
+                        Some(IncrementSummary { curve_refused: Some(why), .. }) => (None, Some(why)),
+                        _ => (None, Some("no readings after the onset yet".to_string())),
+                    }
+                }
             };
             Ok(Analysis {
                 test_id: test.id,

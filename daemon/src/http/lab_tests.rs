@@ -94,7 +94,8 @@ pub(crate) fn validate(t: &NewTest) -> Result<Vec<Warning>, ApiError> {
     }
     let mut warnings = Vec::new();
     let ratio = t.diameter_mm / t.height_mm;
-    // Diameter at least 2.5 times the height limits side friction (common practice; REFERENCES §1.5).
+    // Diameter at least 2.5 times the height limits side friction [ref: specimen-dimensions] (the anchors
+    // are in daemon/core/REFERENCES.md).
     if ratio < 2.5 {
         warnings.push(Warning {
             code: "diameter-height-ratio-low",

@@ -5,18 +5,15 @@ use rusqlite::{Connection, OptionalExtension, params};
 use serde::Serialize;
 
 use super::ApiError;
-use oedolog_core::analysis::deflection::corrected_mm;
-use oedolog_core::analysis::{
-    CompressionInput, CompressionParams, CompressionPoint, CompressionReduction, IncrementParams, IncrementReduction,
-    PhaseRelations, SpecimenMeasurements, cv::Method, phase_relations, reduce_compression, reduce_increment,
-};
-use oedolog_core::analysis::{DeflectionCalibration, LoadBranch};
 use crate::clock::rfc3339;
 use crate::config::Frame;
-use crate::watch::WatchParams;
+use oedolog_core::analysis::{
+    CompressionReduction, DeflectionCalibration, IncrementReduction, PhaseRelations, ReductionRules, StepInput,
+    TestInput, TestSpecimen, reduce_increment, reduce_test_with,
+};
 use std::sync::Arc;
 
-use super::cache::{Caches, IncrementStamp, Reduced};
+use super::cache::{Caches, IncrementStamp};
 
 /// A test as stored, with its specimen data.
 #[derive(Clone, Debug, Serialize)]
@@ -197,14 +194,10 @@ fn zero_reading(conn: &Connection, test: &TestRow) -> Result<Option<f64>, ApiErr
         .optional()?)
 }
 
-/// An increment's stored time curve, ready for the analysis: `(t_min, d_mm)` from t0, plus its window.
+/// An increment's stored time curve, ready for the analysis: `(t_min, d_mm)` from t0.
 pub(crate) struct StoredCurve {
     /// (t_min, d_mm), t = 0 at the onset.
     pub readings: Vec<(f64, f64)>,
-    /// Gauge reading at t0.
-    pub d_onset_mm: Option<f64>,
-    /// The last reading of the increment.
-    pub d_end_mm: Option<f64>,
 }
 
 /// The curve from t0 of polls stamped after `onset` (earlier ones are skipped).
@@ -216,56 +209,23 @@ fn curve_of(conn: &Connection, test: &TestRow, onset: i64, polls: &[Poll]) -> Re
             readings.push(((at - onset) as f64 / 6e7, d));
         }
     }
-    let d_end = readings.last().map(|r| r.1);
-    Ok(StoredCurve { readings, d_onset_mm: d_onset, d_end_mm: d_end })
+    Ok(StoredCurve { readings })
 }
 
-/// The reduction parameters the live watch uses (`watch::frame`), so a stored increment reduces the same.
-fn increment_params(test: &TestRow, inc: &IncrementRow, zero: Option<f64>, d_onset: Option<f64>) -> IncrementParams {
-    let height_mm = match (zero, d_onset) {
-        (Some(z), Some(d)) => test.height_mm - (d - z),
-        _ => test.height_mm,
-    };
-    WatchParams::default().increment_params(height_mm, d_onset, inc.from_kpa.unwrap_or(0.0), inc.stress_kpa)
-}
-
-/// Reduces one stored curve; `None` without two readings.
-fn reduce_curve(
-    conn: &Connection,
-    test: &TestRow,
-    inc: &IncrementRow,
-    curve: StoredCurve,
-) -> Result<Option<(StoredCurve, IncrementReduction)>, ApiError> {
-    if curve.readings.len() < 2 {
-        return Ok(None);
-    }
-    let zero = zero_reading(conn, test)?;
-    let params = increment_params(test, inc, zero, curve.d_onset_mm);
-    let reduction = reduce_increment(&curve.readings, &params)?;
-    Ok(Some((curve, reduction)))
-}
-
-/// [`reduce_stored`] through the caches: a finished increment is reduced once, a running one again only
-/// after new readings committed (`commits` read before the database, see `Writer::commits`).
-pub(crate) fn reduce_stored_cached(
+/// The stored time curve of an increment through the poll cache; `None` before its onset or with fewer
+/// than two readings.
+fn stored_curve(
     conn: &Connection,
     caches: &Caches,
     test: &TestRow,
     inc: &IncrementRow,
-    commits: u64,
+    stamp: &IncrementStamp,
     now_us: i64,
-) -> Result<Reduced, ApiError> {
-    let stamp = IncrementStamp::of(inc, commits);
-    caches.reductions.get_or_build(&(test.id, inc.seq), &stamp, |_| {
-        let Some(onset) = inc.onset_us else { return Ok(Arc::new(Ok(None))) };
-        let polls = caches.increment_polls(conn, test, inc, &stamp, now_us)?;
-        let curve = curve_of(conn, test, onset, &polls)?;
-        match reduce_curve(conn, test, inc, curve) {
-            Ok(r) => Ok(Arc::new(Ok(r))),
-            Err(ApiError::Conflict(why)) => Ok(Arc::new(Err(why))),
-            Err(e) => Err(e),
-        }
-    })
+) -> Result<Option<StoredCurve>, ApiError> {
+    let Some(onset) = inc.onset_us else { return Ok(None) };
+    let polls = caches.increment_polls(conn, test, inc, stamp, now_us)?;
+    let curve = curve_of(conn, test, onset, &polls)?;
+    Ok((curve.readings.len() >= 2).then_some(curve))
 }
 
 /// One increment with what its time curve gave.
@@ -299,6 +259,12 @@ pub(crate) struct IncrementSummary {
     pub c_alpha_strain: Option<f64>,
     /// Quality flags, by code.
     pub flags: Vec<String>,
+    /// The core's reduction of the increment's time curve (not serialised here: the analysis route gives it).
+    #[serde(skip)]
+    pub curve: Option<IncrementReduction>,
+    /// Why the analysis refused the increment's time curve, if it did.
+    #[serde(skip)]
+    pub curve_refused: Option<String>,
 }
 
 /// A whole test reduced: the increments' summaries and the e–log σ′ curve.
@@ -319,25 +285,26 @@ pub(crate) struct TestReduction {
     pub apparatus_corrected: bool,
 }
 
-/// The apparatus deflection to take off a cumulative settlement at `stress_kpa`: y on the branch the
-/// stress is on, less y at the seating stress (the zero reading was taken with that already in it;
-/// REFERENCES §1.6). `None` (with the flags) when either lies outside the calibration.
-fn apparatus_deflection(
-    calibration: &DeflectionCalibration,
-    seating_kpa: f64,
-    stress_kpa: f64,
-    from_kpa: Option<f64>,
-) -> (Option<f64>, Vec<String>) {
-    let branch = if from_kpa.is_some_and(|f| stress_kpa < f) { LoadBranch::Unloading } else { LoadBranch::Loading };
-    let at = calibration.deflection_at(stress_kpa, branch);
-    let zero = calibration.deflection_at(seating_kpa, LoadBranch::Loading);
-    let mut flags: Vec<String> = at.flags.iter().map(|f| f.code().to_string()).collect();
-    flags.extend(zero.flags.iter().map(|f| format!("{} (seating stress)", f.code())));
-    (at.deflection_mm.zip(zero.deflection_mm).map(|(y, y0)| y - y0), flags)
+impl TestRow {
+    /// The specimen as the core's reduction takes it.
+    fn specimen(&self) -> TestSpecimen {
+        TestSpecimen {
+            diameter_mm: self.diameter_mm,
+            height_mm: self.height_mm,
+            dry_mass_g: self.dry_mass_g,
+            specific_gravity: self.specific_gravity,
+            initial_water_content: self.initial_water_content,
+            final_water_content: None,
+            seating_stress_kpa: self.seating_kpa.unwrap_or(0.0),
+            sigma_v0_kpa: None,
+        }
+    }
 }
 
-/// Reduces every increment of test `id` (through the caches) and then the test's e–log σ′ curve, with
-/// settlements corrected for apparatus deflection when the test's frame in `frames` has a calibration.
+/// Reduces test `id` with the core's [`reduce_test_with`]: every increment's stored curve (through the
+/// caches: a finished increment is reduced once, a running one again only after new readings committed,
+/// `commits` read before the database, see `Writer::commits`), settlements from the test's zero reading,
+/// corrected for apparatus deflection when the test's frame in `frames` has a calibration.
 pub(crate) fn reduce_test(
     conn: &Connection,
     caches: &Caches,
@@ -359,120 +326,81 @@ pub(crate) fn reduce_test(
         },
         None => None,
     };
-    let mut all_corrected = calibration.is_some();
-    let mut summaries = Vec::new();
-    for row in increments(conn, id)? {
-        let reduced = reduce_stored_cached(conn, caches, &test, &row, commits, now_us)?;
-        let reduced = match reduced.as_ref() {
-            Ok(r) => r.as_ref(),
-            // A curve the analysis refuses still gets its row, with the reason as a flag.
-            Err(why) => {
-                tracing::debug!("increment {} of test {id}: {why}", row.seq);
-                None
-            }
-        };
-        let summary = match reduced {
-            Some((curve, r)) => {
-                let cv = match r.end_of_primary.as_ref().map(|e| e.method) {
-                    Some(Method::Casagrande) => r.cv_casagrande.map(|c| c.cv_mm2_per_min),
-                    Some(Method::Taylor) => r.cv_taylor.map(|c| c.cv_mm2_per_min),
-                    None => None,
-                };
-                let measured = zero.zip(curve.d_end_mm).map(|(z, d)| d - z);
-                let measured_eop = zero.zip(r.end_of_primary.as_ref()).map(|(z, e)| e.d100_mm - z);
-                let mut flags: Vec<String> = r.flags.iter().map(|f| f.code().to_string()).collect();
-                let correction = match &calibration {
-                    Some(c) => {
-                        let (y, why) =
-                            apparatus_deflection(c, test.seating_kpa.unwrap_or(0.0), row.stress_kpa, row.from_kpa);
-                        flags.extend(why);
-                        all_corrected &= y.is_some() || measured.is_none();
-                        y
-                    }
-                    None => None,
-                };
-                let corrected = |m: Option<f64>| m.map(|m| correction.map_or(m, |y| corrected_mm(m, y)));
-                IncrementSummary {
-                    reading_count: curve.readings.len(),
-                    settlement_mm: corrected(measured),
-                    settlement_measured_mm: measured,
-                    apparatus_deflection_mm: correction,
-                    settlement_eop_mm: corrected(measured_eop),
-                    t50_min: r.casagrande.t50_min,
-                    t90_min: r.taylor.t90_min,
-                    cv_taylor_mm2_per_min: r.cv_taylor.map(|c| c.cv_mm2_per_min),
-                    cv_casagrande_mm2_per_min: r.cv_casagrande.map(|c| c.cv_mm2_per_min),
-                    cv_mm2_per_min: cv,
-                    c_alpha_strain: r.secondary.map(|s| s.c_alpha_strain),
-                    flags,
-                    row,
-                }
-            }
-            None => IncrementSummary {
-                row,
-                reading_count: 0,
-                settlement_mm: None,
-                settlement_measured_mm: None,
-                apparatus_deflection_mm: None,
-                settlement_eop_mm: None,
-                t50_min: None,
-                t90_min: None,
-                cv_taylor_mm2_per_min: None,
-                cv_casagrande_mm2_per_min: None,
-                cv_mm2_per_min: None,
-                c_alpha_strain: None,
-                flags: Vec::new(),
-            },
-        };
-        summaries.push(summary);
+    let rows = increments(conn, id)?;
+    let mut stamps = Vec::with_capacity(rows.len());
+    let mut curves = Vec::with_capacity(rows.len());
+    for row in &rows {
+        let stamp = IncrementStamp::of(row, commits);
+        curves.push(stored_curve(conn, caches, &test, row, &stamp, now_us)?);
+        stamps.push(stamp);
     }
-    let phase = match (test.dry_mass_g, test.specific_gravity) {
-        (Some(m), Some(gs)) => phase_relations(&SpecimenMeasurements {
-            diameter_mm: test.diameter_mm,
-            height_mm: test.height_mm,
-            dry_mass_g: m,
-            specific_gravity: gs,
-            initial_mass_g: None,
-            initial_water_content: test.initial_water_content,
-            water_density_g_per_cm3: 1.0,
-        })
-        .ok(),
-        _ => None,
-    };
-    let points: Vec<CompressionPoint> = summaries
+    let steps: Vec<StepInput<'_>> = rows
         .iter()
-        .filter_map(|s| {
-            s.settlement_mm.map(|settlement_mm| CompressionPoint {
-                stress_kpa: s.row.stress_kpa,
-                settlement_mm,
-                settlement_eop_mm: s.settlement_eop_mm,
-                cv_mm2_per_min: s.cv_mm2_per_min,
-            })
+        .zip(&curves)
+        .map(|(row, curve)| {
+            let readings = curve.as_ref().map(|c| &c.readings[..]);
+            StepInput {
+                stress_kpa: row.stress_kpa,
+                settlement_mm: zero.zip(readings.and_then(|r| r.last())).map(|(z, d)| d.1 - z),
+                readings,
+            }
         })
         .collect();
-    let (compression, compression_unavailable) = match &phase {
-        None => (None, Some("the e–log σ′ curve needs the dry mass and the specific gravity of the specimen".into())),
-        Some(_) if points.is_empty() => (None, Some("no increment has readings after its onset yet".into())),
-        Some(p) => {
-            let input = CompressionInput {
-                initial_height_mm: test.height_mm,
-                solids_height_mm: p.solids_height_mm,
-                seating_stress_kpa: test.seating_kpa.unwrap_or(0.0),
-                points: &points,
-            };
-            match reduce_compression(&input, &CompressionParams::default()) {
-                Ok(r) => (Some(r), None),
-                Err(e) => (None, Some(e.to_string())),
-            }
+    let rules = ReductionRules::default();
+    let input = TestInput { specimen: test.specimen(), steps: &steps, deflection: calibration.as_ref(), rules: &rules };
+    let reduced = reduce_test_with(&input, |index, readings, params| {
+        let key = (test.id, rows[index].seq);
+        let kept = caches.reductions.get_or_build(&key, &stamps[index], |_| {
+            Ok::<_, std::convert::Infallible>(Arc::new(reduce_increment(readings, params)))
+        });
+        match kept {
+            Ok(r) => Result::clone(&r),
+            Err(never) => match never {},
         }
+    });
+    let summaries = rows
+        .into_iter()
+        .zip(reduced.steps)
+        .zip(&curves)
+        .map(|((row, step), curve)| {
+            let mut flags: Vec<String> =
+                step.curve.iter().flat_map(|c| c.flags.iter().map(|f| f.code().to_string())).collect();
+            flags.extend(step.deflection_flags.iter().map(|f| f.code().to_string()));
+            flags.extend(step.seating_deflection_flags.iter().map(|f| format!("{} (seating stress)", f.code())));
+            if let Some(why) = &step.curve_refused {
+                tracing::debug!("increment {} of test {id}: {why}", row.seq);
+            }
+            let c = step.curve.as_ref();
+            IncrementSummary {
+                reading_count: curve.as_ref().map_or(0, |c| c.readings.len()),
+                settlement_mm: step.settlement_mm,
+                settlement_measured_mm: step.settlement_measured_mm,
+                apparatus_deflection_mm: step.apparatus_deflection_mm,
+                settlement_eop_mm: step.settlement_eop_mm,
+                t50_min: c.and_then(|c| c.casagrande.t50_min),
+                t90_min: c.and_then(|c| c.taylor.t90_min),
+                cv_taylor_mm2_per_min: c.and_then(|c| c.cv_taylor).map(|e| e.cv_mm2_per_min),
+                cv_casagrande_mm2_per_min: c.and_then(|c| c.cv_casagrande).map(|e| e.cv_mm2_per_min),
+                cv_mm2_per_min: step.cv_for_k.map(|e| e.cv_mm2_per_min),
+                c_alpha_strain: c.and_then(|c| c.secondary).map(|s| s.c_alpha_strain),
+                flags,
+                curve_refused: step.curve_refused.as_ref().map(ToString::to_string),
+                curve: step.curve,
+                row,
+            }
+        })
+        .collect();
+    let (compression, compression_unavailable) = match reduced.compression {
+        Ok(r) => (Some(r), None),
+        Err(why) => (None, Some(why.to_string())),
     };
     Ok(TestReduction {
         test,
         increments: summaries,
-        phase,
+        phase: reduced.phase.and_then(Result::ok),
         compression,
         compression_unavailable,
-        apparatus_corrected: all_corrected,
+        apparatus_corrected: reduced.apparatus_corrected,
     })
 }
 

@@ -14,8 +14,8 @@ use super::lab_tests::test_id;
 use super::overview::escape;
 use super::queries::TestReduction;
 use super::{ApiError, AppState};
-use oedolog_core::analysis::CompressionReduction;
 use crate::clock::rfc3339;
+use oedolog_core::analysis::CompressionReduction;
 
 fn num(x: Option<f64>, digits: usize) -> String {
     x.filter(|v| v.is_finite()).map_or("—".to_string(), |v| format!("{v:.digits$}"))

@@ -4,6 +4,7 @@
 
 use oedolog_sim::device::SimFrame;
 
+use oedolog_core::analysis::ReductionRules;
 use oedolog_core::watch::*;
 
 /// Steady poll period of the simulated logging, s; fast period and window after a load change.
@@ -125,8 +126,9 @@ fn ready_never_comes_before_the_true_t100_and_onset_is_within_one_poll() {
     assert!(fallbacks.iter().all(|r| *r >= 1.0));
     eprintln!("onset error, s: {}", summary(&onsets));
     // The truth's t100 is where the Casagrande tangent meets U = 100 % on the ideal curve (Tv = 1.10,
-    // REFERENCES §1.4 [C]); secondary compression starts there in the simulator. A secondary line spanning
-    // 0.3 log cycle therefore needs t ≥ 10^0.3·t100 ≈ 2·t100 of data after it.
+    // daemon/core/REFERENCES.md [ref: t100-t90-ratio, computed]); secondary compression starts there in the
+    // simulator. A secondary line spanning 0.3 log cycle therefore needs t ≥ 10^0.3·t100 ≈ 2·t100 of data
+    // after it.
     assert!(ratios.iter().all(|r| *r >= 1.0), "ready before t100: {}", summary(&ratios));
     // The secondary line is confirmed only once the primary tail has decayed: on large virgin increments
     // that is 2–4·t100 (measured); the 1.5·t100 cannot be met with a 0.3-cycle line (10^0.3 ≈ 2).
@@ -137,7 +139,10 @@ fn ready_never_comes_before_the_true_t100_and_onset_is_within_one_poll() {
 
 #[test]
 fn a_shorter_secondary_window_brings_ready_earlier_but_never_before_t100() {
-    let params = WatchParams { min_secondary_decades: 0.15, ..WatchParams::default() };
+    let params = WatchParams {
+        reduction: ReductionRules { min_secondary_decades: 0.15, ..ReductionRules::default() },
+        ..WatchParams::default()
+    };
     let (mut ratios, mut all) = (Vec::new(), Vec::new());
     for index in 0..4 {
         let outcome = run(index, 31 + index as u64, params.clone(), &[12.5, 25.0, 50.0, 100.0, 200.0]);

@@ -9,10 +9,10 @@ use std::time::Duration;
 
 use rusqlite::{Connection, params};
 
-use oedolog_core::watch::{FrameWatch, Note, OnsetSource, Phase, Specimen, WatchError, WatchParams, WatchStatus};
 use crate::clock::Clock;
 use crate::lab::{self, Lab};
 use crate::store::{ChannelKind, Event, Reading, StoreError, Writer};
+use oedolog_core::watch::{FrameWatch, Note, OnsetSource, Phase, Specimen, WatchError, WatchParams, WatchStatus};
 
 /// Why an operator action through the hub failed.
 #[derive(Debug, thiserror::Error)]

@@ -10,7 +10,7 @@ pub mod hub;
 #[cfg(test)]
 mod hub_tests;
 
+pub use hub::{Hub, HubError};
 pub use oedolog_core::watch::{
     EopRule, FrameWatch, Note, OnsetSource, Phase, Reseat, Specimen, WatchError, WatchParams, WatchStatus,
 };
-pub use hub::{Hub, HubError};

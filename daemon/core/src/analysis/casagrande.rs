@@ -1,5 +1,5 @@
-//! Casagrande's logarithm-of-time construction (Casagrande & Fadum 1940 [S10 M]; steps as in [R S11];
-//! REFERENCES §4): d0 by the 1:4 time-ratio offset, the tangent at the inflection, the straight secondary
+//! Casagrande's logarithm-of-time construction (Casagrande & Fadum 1940 [ref: casagrande-log-time]): d0 by
+//! the 1:4 time-ratio offset, the tangent at the inflection, the straight secondary
 //! line from late readings, d100 where they meet, d50 and t50 on the curve. Until a secondary branch exists
 //! d100 is undetermined — flagged, never invented. It only reads the curve; cv is the caller's.
 
@@ -19,15 +19,15 @@ const OFFSET_SQRT_FRACTION: f64 = 0.75;
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct CasagrandeParams {
     /// At most this many t1 values for the 1:4 offset, spread over the parabolic start and averaged
-    /// (Casagrande's practice [CP]).
+    /// (Casagrande's practice [ref: casagrande-log-time, common practice]).
     pub offset_pairs: usize,
-    /// Fewest late nodes on the secondary line: ≥ 3 collinear readings (REFERENCES §1.4, §4) [CP].
+    /// Fewest late nodes on the secondary line: ≥ 3 collinear readings [ref: casagrande-log-time, common practice].
     pub secondary_min_points: usize,
-    /// Least span of the secondary line in log cycles: 0.3 (REFERENCES §1.4) [CP/C].
+    /// Least span of the secondary line in log cycles: 0.3 [ref: eop-detection, common practice].
     pub secondary_min_decades: f64,
     /// The secondary line must be flatter than this fraction of the inflection tangent. On the ideal curve
-    /// the log-t slope has fallen to 0.49 of its maximum by T = 1.10, where the tangent meets U = 1 [C], so a
-    /// straight tail steeper than half the tangent is still primary.
+    /// the log-t slope has fallen to 0.49 of its maximum by T = 1.10, where the tangent meets U = 1
+    /// [ref: casagrande-log-time, computed], so a straight tail steeper than half the tangent is still primary.
     pub max_secondary_slope_ratio: f64,
 }
 
@@ -213,7 +213,7 @@ fn offset_d0(
     let nodes = &curve.nodes;
     let inside = |i: usize, end_min: f64| 4.0 * nodes[i].t_min <= end_min * (1.0 + 1e-12);
     // 4·t1 within the first 75 % (in √t) of the straight part: it ends at U ≤ 60 %, so U(4·t1) ≤ 45 %, where
-    // the 1:4 rule is exact to 1e-4 (REFERENCES §4 [C]).
+    // the 1:4 rule is exact to 1e-4 [ref: casagrande-log-time, computed].
     let eligible: Vec<usize> = match parabolic {
         Some(s) => (s.first_node..=s.last_node.min(nodes.len() - 1))
             .filter(|&i| inside(i, OFFSET_SQRT_FRACTION * OFFSET_SQRT_FRACTION * s.t_end_min))
@@ -310,9 +310,10 @@ mod tests {
         casagrande(&curve, t.straight.as_ref(), &CasagrandeParams::default()).unwrap()
     }
 
-    // Synthetic curves [C, REFERENCES §6a]: exact Terzaghi series, Hdr = 10 mm, 1 mm primary, 0.05 mm per
-    // log cycle of secondary from T = 1.10 — where the ideal inflection tangent meets U = 1 (REFERENCES §4),
-    // so the continuous construction gives d100 = d0 + primary and t100 = t(T = 1.10) exactly.
+    // Synthetic curves [ref: synthetic-checks, computed]: exact Terzaghi series, Hdr = 10 mm, 1 mm primary,
+    // 0.05 mm per log cycle of secondary from T = 1.10 — where the ideal inflection tangent meets U = 1
+    // [ref: t100-t90-ratio], so the continuous construction gives d100 = d0 + primary and t100 = t(T = 1.10)
+    // exactly.
 
     #[test]
     fn dense_curves_recover_d0_t50_and_d100() {
@@ -342,8 +343,9 @@ mod tests {
 
     #[test]
     fn inflection_tangent_sits_where_theory_puts_it() {
-        // REFERENCES §4 [C]: the ideal U–log T curve is steepest at T = 0.404, U = 0.701, slope 0.687 per log
-        // cycle. Dense noise-free data: within 3 % in time, 0.5 % of primary in d, 1 % in slope.
+        // The ideal U–log T curve is steepest at T = 0.404, U = 0.701, slope 0.687 per log cycle
+        // [ref: casagrande-log-time, computed]. Dense noise-free data: within 3 % in time, 0.5 % of primary in
+        // d, 1 % in slope.
         let m = Model::typical();
         let r = run(&sample(&m, &dense_schedule(), 0.0, 0.0, 0));
         let tangent = r.inflection.unwrap();
@@ -354,9 +356,9 @@ mod tests {
 
     #[test]
     fn offset_pairs_lie_inside_the_parabolic_start() {
-        // The 1:4 rule is exact while U(4·t1) ≲ 45 % (REFERENCES §4 [C]): every pair must end inside the
-        // first 75 % (in √t) of the √t-straight part, and each pair's d0 agree with the true d0 to 0.1 % of
-        // primary.
+        // The 1:4 rule is exact while U(4·t1) ≲ 45 % [ref: casagrande-log-time, computed]: every pair must end
+        // inside the first 75 % (in √t) of the √t-straight part, and each pair's d0 agree with the true d0 to
+        // 0.1 % of primary.
         let m = Model::typical();
         let readings = sample(&m, &dense_schedule(), 0.0, 0.0, 0);
         let curve = TimeCurve::from_readings(&readings, 40.0).unwrap().prepare(0.001).unwrap();
@@ -370,10 +372,10 @@ mod tests {
 
     #[test]
     fn sparse_hand_schedule_recovers_t50_and_d100() {
-        // Hand schedule (REFERENCES §1.3), 0.001 mm gauge, 0.5 µm noise, five cv values whose secondary branch
-        // has ≥ 3 readings × 20 seeds. REFERENCES §4 [C]: PCHIP-in-log t with analytic max slope gave t50
-        // −0.9 % on a sparse trial; measured here down to −1.6 %, d100 within 0.63 % of primary. Tolerances:
-        // t50 within 3 %; d0 within 0.3 % and d100 within 1.2 % of primary.
+        // Hand schedule [ref: reading-schedule], 0.001 mm gauge, 0.5 µm noise, five cv values whose secondary
+        // branch has ≥ 3 readings × 20 seeds. PCHIP-in-log t with analytic max slope gave t50 −0.9 % on a
+        // sparse trial [ref: curve-interpolation, computed]; measured here down to −1.6 %, d100 within 0.63 % of
+        // primary. Tolerances: t50 within 3 %; d0 within 0.3 % and d100 within 1.2 % of primary.
         for cv in [1.0, 1.5, 2.0, 3.0, 4.0] {
             let m = Model { cv_mm2_per_min: cv, ..Model::typical() };
             for seed in 0..20 {
@@ -390,7 +392,7 @@ mod tests {
     #[test]
     fn without_a_secondary_branch_d100_is_undetermined_not_invented() {
         // cv = 0.7: secondary starts at 157 min; of the hand readings after it only 480 and 1440 min are off
-        // the primary tail (at 240 min the tail still lacks 13 µm, T = 1.68 [C]) — two points, not three.
+        // the primary tail (at 240 min the tail still lacks 13 µm, T = 1.68; computed) — two points, not three.
         let m = Model { cv_mm2_per_min: 0.7, ..Model::typical() };
         let r = run(&sample(&m, &HAND_SCHEDULE_MIN, 0.001, 0.0, 0));
         assert!(r.flags.contains(&Flag::NoSecondaryBranch));

@@ -1,4 +1,4 @@
-//! The e–log σ′ reduction of a whole test (REFERENCES §5.2–5.4): void ratio at the end of primary and at the
+//! The e–log σ′ reduction of a whole test [ref: void-ratio-step]: void ratio at the end of primary and at the
 //! end of each increment, av, mv, k, Cc on the virgin branch, Cr from unload–reload, σ′p by Casagrande's
 //! construction and by the strain-energy (work) method, OCR. Every line carries the points it used. It must
 //! not read time curves; each increment arrives as settlements (and cv) already reduced.
@@ -11,7 +11,7 @@ use super::flags::{Flag, push_unique};
 use super::interp::Pchip;
 use super::{AnalysisError, check_positive, check_range};
 
-/// Unit weight of water γw, kN/m³, for k = cv·mv·γw [R S17 Ex 15.1; CP].
+/// Unit weight of water γw, kN/m³, for k = cv·mv·γw [ref: permeability, common practice].
 pub const UNIT_WEIGHT_WATER_KN_PER_M3: f64 = 9.81;
 /// Samples per interval when searching the smooth curve for its maximum curvature.
 const CURVATURE_SAMPLES: usize = 32;
@@ -29,7 +29,7 @@ pub struct CompressionPoint {
     pub cv_mm2_per_min: Option<f64>,
 }
 
-/// Which height ends an increment on the curve (REFERENCES §5.2).
+/// Which height ends an increment on the curve [ref: test-methods].
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "snake_case")]
 pub enum CurveBasis {
@@ -44,11 +44,11 @@ pub enum CurveBasis {
 pub struct CompressionParams {
     /// Which height ends an increment.
     pub basis: CurveBasis,
-    /// Cc is fitted to this many loading points at the highest stresses (≥ 2; 3 preferred, REFERENCES §5.4).
+    /// Cc is fitted to this many loading points at the highest stresses (≥ 2; 3 preferred) [ref: compression-index].
     pub virgin_points: usize,
     /// Plotting ratio for Casagrande's construction: Δe drawn as long as one log cycle of σ′. Curvature and
-    /// the bisector depend on it (REFERENCES §5.4). `None`: the e range of the loading branch over its log
-    /// cycles, i.e. the curve drawn in a square frame [CP].
+    /// the bisector depend on it [ref: preconsolidation-casagrande]. `None`: the e range of the loading branch
+    /// over its log cycles, i.e. the curve drawn in a square frame (common practice).
     pub e_per_log_cycle: Option<f64>,
     /// γw, kN/m³.
     pub unit_weight_water_kn_per_m3: f64,
@@ -100,7 +100,7 @@ pub struct StatePoint {
     pub stress_kpa: f64,
     /// Where it lies on the stress path.
     pub branch: Branch,
-    /// e at the end of the increment: e0 − ΔH/Hs [CP, REFERENCES §5.2].
+    /// e at the end of the increment: e0 − ΔH/Hs [ref: void-ratio-step, common practice].
     pub e_end: f64,
     /// e at the end of primary.
     pub e_eop: Option<f64>,
@@ -108,13 +108,13 @@ pub struct StatePoint {
     pub e: f64,
     /// Axial strain ΔH/H0 on the chosen basis.
     pub strain: f64,
-    /// LIR = Δσ′/σ′ before the increment [R S8 Eq 3-4]; `None` from a zero seating stress.
+    /// LIR = Δσ′/σ′ before the increment [ref: load-increment-ratio]; `None` from a zero seating stress.
     pub load_increment_ratio: Option<f64>,
-    /// av = −Δe/Δσ′, 1/kPa [R S9 Ex 7.1].
+    /// av = −Δe/Δσ′, 1/kPa [ref: av-mv].
     pub av_per_kpa: Option<f64>,
-    /// mv = av/(1 + e before), 1/kPa = m²/kN [R S9 Ex 7.1].
+    /// mv = av/(1 + e before), 1/kPa = m²/kN [ref: av-mv].
     pub mv_per_kpa: Option<f64>,
-    /// k = cv·mv·γw, m/s [R S17 Ex 15.1], when cv is given.
+    /// k = cv·mv·γw, m/s [ref: permeability], when cv is given.
     pub k_m_per_s: Option<f64>,
     /// Quality remarks on the increment.
     pub flags: Vec<Flag>,
@@ -172,7 +172,7 @@ pub struct WorkLine {
     pub line: Line,
 }
 
-/// σ′p by the strain-energy (work) method of Becker et al. (1987) [R S19].
+/// σ′p by the strain-energy (work) method of Becker et al. (1987) [ref: preconsolidation-work].
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct WorkPreconsolidation {
     /// σ′p, kPa: where the two lines meet.
@@ -194,7 +194,7 @@ pub struct CompressionReduction {
     pub points: Vec<StatePoint>,
     /// Cc on the virgin branch.
     pub cc: Option<IndexLine>,
-    /// Compression ratio CR = Cc/(1 + e0) [CP].
+    /// Compression ratio CR = Cc/(1 + e0) [ref: compression-index, common practice].
     pub compression_ratio: Option<f64>,
     /// Cr on the first unload–reload cycle.
     pub cr: Option<IndexLine>,
@@ -202,7 +202,7 @@ pub struct CompressionReduction {
     pub sigma_p_casagrande: Option<CasagrandePreconsolidation>,
     /// σ′p by the work method.
     pub sigma_p_work: Option<WorkPreconsolidation>,
-    /// OCR = σ′p/σ′v0 (Casagrande σ′p) [R S23].
+    /// OCR = σ′p/σ′v0 (Casagrande σ′p) [ref: ocr].
     pub ocr_casagrande: Option<f64>,
     /// OCR from the work σ′p.
     pub ocr_work: Option<f64>,
@@ -210,33 +210,33 @@ pub struct CompressionReduction {
     pub flags: Vec<Flag>,
 }
 
-/// LIR = (σ′ − σ′before)/σ′before [R S8 Eq 3-4]; `None` when σ′before is not positive.
+/// LIR = (σ′ − σ′before)/σ′before [ref: load-increment-ratio]; `None` when σ′before is not positive.
 pub fn load_increment_ratio(previous_kpa: f64, stress_kpa: f64) -> Option<f64> {
     (previous_kpa > 0.0).then(|| (stress_kpa - previous_kpa) / previous_kpa)
 }
 
-/// av = −Δe/Δσ′, 1/kPa [R S9 Ex 7.1]; `None` for Δσ′ = 0.
+/// av = −Δe/Δσ′, 1/kPa [ref: av-mv]; `None` for Δσ′ = 0.
 pub fn av_per_kpa(e_before: f64, e_after: f64, stress_before_kpa: f64, stress_after_kpa: f64) -> Option<f64> {
     let dsigma = stress_after_kpa - stress_before_kpa;
     (dsigma != 0.0).then(|| -(e_after - e_before) / dsigma)
 }
 
-/// mv = av/(1 + e before the increment), 1/kPa = m²/kN [R S9 Ex 7.1].
+/// mv = av/(1 + e before the increment), 1/kPa = m²/kN [ref: av-mv].
 pub fn mv_per_kpa(av_per_kpa: f64, e_before: f64) -> f64 {
     av_per_kpa / (1.0 + e_before)
 }
 
-/// Cc (or Cr) between two points: −Δe/Δlog10 σ′ [R S9 Ex 7.1].
+/// Cc (or Cr) between two points: −Δe/Δlog10 σ′ [ref: compression-index].
 pub fn compression_index(stress_1_kpa: f64, e_1: f64, stress_2_kpa: f64, e_2: f64) -> f64 {
     -(e_2 - e_1) / (stress_2_kpa / stress_1_kpa).log10()
 }
 
-/// k = cv·mv·γw, m/s [R S17 Ex 15.1]: cv in mm²/min, mv in 1/kPa (m²/kN), γw in kN/m³.
+/// k = cv·mv·γw, m/s [ref: permeability]: cv in mm²/min, mv in 1/kPa (m²/kN), γw in kN/m³.
 pub fn permeability_m_per_s(cv_mm2_per_min: f64, mv_per_kpa: f64, unit_weight_water_kn_per_m3: f64) -> f64 {
     cv_mm2_per_min * M2_PER_S_PER_MM2_PER_MIN * mv_per_kpa * unit_weight_water_kn_per_m3
 }
 
-/// Final consolidation settlement ρ∞ = mv·H·Δσ′ (mm for H in mm) [R S17 Ex 15.2].
+/// Final consolidation settlement ρ∞ = mv·H·Δσ′ (mm for H in mm) [ref: final-settlement].
 pub fn final_settlement_mm(mv_per_kpa: f64, height_mm: f64, stress_change_kpa: f64) -> f64 {
     mv_per_kpa * height_mm * stress_change_kpa
 }
@@ -418,8 +418,9 @@ fn unload_reload_line(points: &[StatePoint], flags: &mut Vec<Flag>) -> Option<In
     Some(IndexLine { points: used, index: -line.slope, line })
 }
 
-/// Casagrande (1936) [R S22, S23]: maximum curvature of a smooth (PCHIP) fit of e on log σ′ in plotted units,
-/// horizontal and tangent there, their bisector, and its intersection with the virgin line.
+/// Casagrande (1936) [ref: preconsolidation-casagrande]: maximum curvature of a smooth (PCHIP) fit of e on
+/// log σ′ in plotted units, horizontal and tangent there, their bisector, and its intersection with the
+/// virgin line.
 fn casagrande_sigma_p(
     points: &[StatePoint],
     loading: &[usize],
@@ -487,9 +488,10 @@ fn casagrande_sigma_p(
     })
 }
 
-/// Becker et al. (1987) [R S19]: cumulative work W = Σ ½(σ′before + σ′)(ε − εbefore) [M] along the whole
-/// stress path, plotted on arithmetic axes for the seating state and the loading branch; two lines fitted
-/// to an early and a late run — the split with the least total residual — and σ′p where they meet.
+/// Becker et al. (1987) [ref: preconsolidation-work]: cumulative work W = Σ ½(σ′before + σ′)(ε − εbefore)
+/// (the sum from memory) along the whole stress path, plotted on arithmetic axes for the seating state and
+/// the loading branch; two lines fitted to an early and a late run — the split with the least total
+/// residual — and σ′p where they meet.
 fn work_sigma_p(
     input: &CompressionInput<'_>,
     points: &[StatePoint],
@@ -557,8 +559,8 @@ mod tests {
 
     #[test]
     fn venkatramaiah_example_7_1_av_mv_cc() {
-        // Venkatramaiah Ex 7.1 [R S9]: σ′ 50 → 100 kN/m², e 0.70 → 0.65 ⇒ av = 0.001 m²/kN,
-        // mv = 5.88e-4 m²/kN, Cc = 0.166 (0.1661 [C]).
+        // Venkatramaiah Ex 7.1 [ref: av-mv]: σ′ 50 → 100 kN/m², e 0.70 → 0.65 ⇒ av = 0.001 m²/kN,
+        // mv = 5.88e-4 m²/kN, Cc = 0.166 (0.1661 computed) [ref: compression-index].
         let av = av_per_kpa(0.70, 0.65, 50.0, 100.0).unwrap();
         assert!((av - 0.001).abs() < 1e-15);
         assert!((mv_per_kpa(av, 0.70) - 5.88e-4).abs() < 5e-7);
@@ -582,9 +584,9 @@ mod tests {
 
     #[test]
     fn atkinson_example_15_1_permeability() {
-        // Atkinson Ex 15.1 [R S17]: cv = 2.0 m²/yr, mv = 4.6e-4 m²/kN ⇒ k = cv·mv·γw = 2.9e-10 m/s.
-        // REFERENCES §6 computes 2.862e-10 with a 365-day year; with the 365.25-day year of our unit factor
-        // (0.52596) it is 2.860e-10 [C].
+        // Atkinson Ex 15.1 [ref: permeability]: cv = 2.0 m²/yr, mv = 4.6e-4 m²/kN ⇒ k = cv·mv·γw = 2.9e-10 m/s;
+        // 2.862e-10 with a 365-day year, and with the 365.25-day year of our unit factor (0.52596) 2.860e-10
+        // [ref: cv-units, computed].
         let k = permeability_m_per_s(from_m2_per_year(2.0), 4.6e-4, UNIT_WEIGHT_WATER_KN_PER_M3);
         assert!((k - 2.0 / (365.25 * 86_400.0) * 4.6e-4 * 9.81).abs() < 1e-20, "k = {k}");
         assert!((k - 2.862e-10).abs() / 2.862e-10 < 1e-3);
@@ -593,11 +595,12 @@ mod tests {
 
     #[test]
     fn atkinson_example_15_2_final_settlement() {
-        // Atkinson Ex 15.2 [R S17]: Δσ = 100 kPa on a 20 mm sample, mv = 5e-4 m²/kN ⇒ ρ∞ = mv·H·Δσ = 1.0 mm.
+        // Atkinson Ex 15.2 [ref: final-settlement]: Δσ = 100 kPa on a 20 mm sample, mv = 5e-4 m²/kN ⇒
+        // ρ∞ = mv·H·Δσ = 1.0 mm.
         assert!((final_settlement_mm(5e-4, 20.0, 100.0) - 1.0).abs() < 1e-12);
     }
 
-    /// e on a bilinear e–log σ′ curve [C]: Cr = 0.04 up to σ′p = 200 kPa, Cc = 0.4 beyond; unloading with
+    /// e on a bilinear e–log σ′ curve (computed): Cr = 0.04 up to σ′p = 200 kPa, Cc = 0.4 beyond; unloading with
     /// Cs = 0.05 from `peak`.
     fn bilinear_e(stress_kpa: f64) -> f64 {
         let e_p = 1.0 - 0.04 * (200.0f64 / 12.5).log10();
@@ -623,10 +626,10 @@ mod tests {
 
     #[test]
     fn bilinear_curve_gives_exact_cc_cr_and_sigma_p_by_both_methods() {
-        // [C]: on an exactly bilinear e–log σ′ curve with its break at an applied stress, Casagrande's maximum
+        // Computed: on an exactly bilinear e–log σ′ curve with its break at an applied stress, Casagrande's maximum
         // curvature falls on the break, whose bisector meets the virgin line there; and W–σ′ is exactly
         // bilinear for doubling stresses (ΔW ∝ C·σ′before), breaking at σ′p too. So Cc = 0.4, Cr = 0.05 and
-        // σ′p = 200 kPa to rounding; OCR = 2 for σ′v0 = 100 kPa [R S23].
+        // σ′p = 200 kPa to rounding; OCR = 2 for σ′v0 = 100 kPa [ref: ocr].
         let points = bilinear_test();
         let input = CompressionInput {
             initial_height_mm: 20.0,
@@ -647,7 +650,7 @@ mod tests {
         let work = r.sigma_p_work.as_ref().unwrap();
         assert!((work.sigma_p_kpa - 200.0).abs() < 1e-6, "work σ′p {}", work.sigma_p_kpa);
         assert!((r.ocr_casagrande.unwrap() - 2.0).abs() < 1e-8 && (r.ocr_work.unwrap() - 2.0).abs() < 1e-8);
-        // The increments 100 → 200 and 200 → 400 kPa touch σ′p: flagged for cv [R S2 Note 5]; no other.
+        // The increments 100 → 200 and 200 → 400 kPa touch σ′p: flagged for cv [ref: load-increment-ratio]; no other.
         let spans: Vec<usize> = (0..r.points.len())
             .filter(|&i| r.points[i].flags.iter().any(|f| matches!(f, Flag::SpansPreconsolidation { .. })))
             .collect();
@@ -658,7 +661,7 @@ mod tests {
 
     #[test]
     fn smooth_break_lands_near_the_asymptotes_intersection() {
-        // [C]: a soft-plus blend of the two lines, 0.05 log cycle wide, with its asymptotes crossing at
+        // Computed: a soft-plus blend of the two lines, 0.05 log cycle wide, with its asymptotes crossing at
         // σ′p = 150, 200 or 283 kPa, sampled at doubling stresses (0.3 cycle apart). Neither construction is
         // defined by the asymptotes, and the break is sampled coarsely; measured within 6 % (Casagrande) and
         // 11 % (work). Tolerance 15 %.
@@ -689,7 +692,7 @@ mod tests {
 
     #[test]
     fn plotting_ratio_is_recorded_and_matters() {
-        // REFERENCES §5.4: the construction depends on axis scaling; the ratio used is reported.
+        // [ref: preconsolidation-casagrande]: the construction depends on axis scaling; the ratio used is reported.
         let points = bilinear_test();
         let input = CompressionInput {
             initial_height_mm: 20.0,
@@ -730,7 +733,7 @@ mod tests {
         // End-of-primary basis: the EOP value where given, else end of increment with a flag.
         assert!((r.points[1].e - (1.0 - 0.009)).abs() < 1e-12 && r.points[1].e_end == 1.0 - 0.01);
         assert!(r.points[0].flags.contains(&Flag::EndOfPrimaryMissing { stress_kpa: 50.0 }));
-        // k = cv·mv·γw from the increment's own mv [R S17 Ex 15.1].
+        // k = cv·mv·γw from the increment's own mv [ref: permeability].
         let p = &r.points[1];
         assert_eq!(p.k_m_per_s, Some(permeability_m_per_s(2.0, p.mv_per_kpa.unwrap(), 9.81)));
         // Few points: Cc from the 3 highest loading points is allowed, σ′p still tried.

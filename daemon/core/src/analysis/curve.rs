@@ -8,7 +8,7 @@ use serde::Serialize;
 use super::AnalysisError;
 
 /// Default bin density: 40 per decade of time keeps ≈ 250 nodes over a 24 h increment, finer than any
-/// standard reading schedule (REFERENCES §1.3 is ≈ 3 per decade).
+/// standard reading schedule (≈ 3 per decade [ref: reading-schedule]).
 pub const DEFAULT_BINS_PER_DECADE: f64 = 40.0;
 /// Larger times are not readings of a laboratory increment (≈ 1900 years).
 pub const MAX_TIME_MIN: f64 = 1e9;
@@ -17,9 +17,9 @@ pub const MAX_DISPLACEMENT_MM: f64 = 1e6;
 /// A reading this close (relative) to the bin's mean time stays in that bin even past its edge, so node
 /// times always differ enough for √t and log t to keep them apart.
 const SAME_TIME_RELATIVE: f64 = 1e-9;
-/// Straight-line tests accept residuals under 2 gauge resolutions (REFERENCES §3) [CP] …
+/// Straight-line tests accept residuals under 2 gauge resolutions [ref: straight-run-rule, common practice] …
 pub(crate) const RESOLUTION_MULTIPLE: f64 = 2.0;
-/// … or under 3 standard errors of a node where the readings are noisier than that [CP].
+/// … or under 3 standard errors of a node where the readings are noisier than that [ref: straight-run-rule].
 pub(crate) const NOISE_MULTIPLE: f64 = 3.0;
 /// Pooled degrees of freedom needed before a noise estimate is trusted.
 const MIN_NOISE_DOF: usize = 10;
@@ -307,7 +307,7 @@ mod tests {
 
     #[test]
     fn sparse_schedule_keeps_one_node_per_reading() {
-        // Hand schedule of REFERENCES §1.3 [CP]: readings a factor ≥ 1.8 apart never share a 40/decade bin.
+        // Hand schedule [ref: reading-schedule]: readings a factor ≥ 1.8 apart never share a 40/decade bin.
         let times = [0.25, 0.5, 1.0, 2.0, 4.0, 8.0, 15.0, 30.0, 60.0, 120.0, 240.0, 480.0, 1440.0];
         let readings: Vec<(f64, f64)> = std::iter::once((0.0, 0.0)).chain(times.iter().map(|&t| (t, t))).collect();
         let curve = TimeCurve::from_readings(&readings, DEFAULT_BINS_PER_DECADE).unwrap();
@@ -334,7 +334,7 @@ mod tests {
 
     #[test]
     fn noise_estimate_recovers_the_scatter_inside_bins() {
-        // [C]: a sloping line plus a ±σ square wave has within-bin standard deviation σ once the trend is
+        // Computed: a sloping line plus a ±σ square wave has within-bin standard deviation σ once the trend is
         // removed; the pooled estimate must find it.
         let sigma = 0.002;
         let readings: Vec<(f64, f64)> = (1..=20_000)

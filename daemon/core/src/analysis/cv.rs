@@ -7,11 +7,11 @@ use serde::Serialize;
 use super::interp::Pchip;
 use super::{AnalysisError, check_positive};
 
-/// cv [m²/yr] = cv [mm²/min] × this: 1e-6 m²/mm² × 525 960 min per 365.25-day year (REFERENCES §3) [C].
+/// cv [m²/yr] = cv [mm²/min] × this: 1e-6 m²/mm² × 525 960 min per 365.25-day year [ref: cv-units, computed].
 pub const M2_PER_YEAR_PER_MM2_PER_MIN: f64 = 0.52596;
-/// cv [cm²/s] = cv [mm²/min] × this (REFERENCES §3) [C].
+/// cv [cm²/s] = cv [mm²/min] × this [ref: cv-units, computed].
 pub const CM2_PER_S_PER_MM2_PER_MIN: f64 = 0.01 / 60.0;
-/// cv [m²/s] = cv [mm²/min] × this [C].
+/// cv [m²/s] = cv [mm²/min] × this [ref: cv-units, computed].
 pub const M2_PER_S_PER_MM2_PER_MIN: f64 = 1e-6 / 60.0;
 
 /// Which faces of the specimen drain.
@@ -25,7 +25,7 @@ pub enum Drainage {
 }
 
 impl Drainage {
-    /// Longest drainage path for a specimen of height `height_mm` [R S9 Eq 7.25; CP].
+    /// Longest drainage path for a specimen of height `height_mm` [ref: drainage-path].
     pub fn path_mm(self, height_mm: f64) -> f64 {
         match self {
             Drainage::Double => 0.5 * height_mm,
@@ -34,16 +34,16 @@ impl Drainage {
     }
 }
 
-/// Which specimen height stands for "the height during the increment" (REFERENCES §2).
+/// Which specimen height stands for "the height during the increment" [ref: drainage-path].
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "snake_case")]
 pub enum HeightBasis {
     /// The height at 50 % consolidation, H0 − ΔH(d50), each method at its own d50 — ASTM D2435 practice
-    /// [M, REFERENCES §2]. The default.
+    /// [ref: drainage-path, from memory]. The default.
     AtHalfConsolidation,
     /// The mean of the heights at the start (reading at t = 0, else the first) and the end (the last node,
     /// i.e. the mean of the last log-time bin's readings) of the increment — the "mean height" of BS 1377-6
-    /// forms [R S6 6L]. Moves while the increment runs.
+    /// forms [ref: drainage-path]. Moves while the increment runs.
     MeanOfIncrement,
 }
 
@@ -66,7 +66,8 @@ pub enum DrainagePath {
 }
 
 /// Ties gauge readings to specimen height: the specimen was `height_mm` high when the (apparatus-corrected)
-/// gauge read `at_reading_mm`, so H = height_mm − (d − at_reading_mm), compression positive [CP].
+/// gauge read `at_reading_mm`, so H = height_mm − (d − at_reading_mm), compression positive
+/// [ref: drainage-path, common practice].
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct SpecimenState {
     /// Specimen height, mm.
@@ -113,7 +114,7 @@ pub struct CvEstimate {
     pub cv_20c_mm2_per_min: Option<f64>,
 }
 
-/// cv = T·Hdr²/t [R S28; R S9 Eq 7.25]: mm²/min from a time factor, a drainage path in mm and a time in min.
+/// cv = T·Hdr²/t [ref: cv-formula]: mm²/min from a time factor, a drainage path in mm and a time in min.
 pub fn cv_mm2_per_min(time_factor: f64, drainage_path_mm: f64, time_min: f64) -> Result<f64, AnalysisError> {
     check_positive("time_factor", time_factor)?;
     check_positive("drainage_path_mm", drainage_path_mm)?;
@@ -142,8 +143,8 @@ pub fn to_m2_per_s(cv_mm2_per_min: f64) -> f64 {
 }
 
 /// Dynamic viscosity of liquid water at 0.101325 MPa, (°C, mPa·s), every 2 °C: the IAPWS 2008 formulation
-/// (Huber et al. 2009, J. Phys. Chem. Ref. Data 38, 101 [M]) evaluated with the `iapws` Python package
-/// 1.5.5, a general-purpose reference library.
+/// (Huber et al. 2009, J. Phys. Chem. Ref. Data 38, 101 [ref: viscosity-correction, from memory]) evaluated
+/// with the `iapws` Python package 1.5.5, a general-purpose reference library.
 const WATER_VISCOSITY_MPA_S: [(f64, f64); 31] = [
     (0.0, 1.791756),
     (2.0, 1.673515),
@@ -189,7 +190,7 @@ pub fn water_viscosity_mpa_s(temperature_c: f64) -> Option<f64> {
     Pchip::new(t, mu).ok().map(|p| p.eval(temperature_c))
 }
 
-/// μ(T)/μ(20 °C): cv,20 = cv,T · μT/μ20 [M/CP, REFERENCES §1.7]. `None` outside 0–60 °C.
+/// μ(T)/μ(20 °C): cv,20 = cv,T · μT/μ20 [ref: viscosity-correction, from memory]. `None` outside 0–60 °C.
 pub fn viscosity_ratio_to_20c(temperature_c: f64) -> Option<f64> {
     Some(water_viscosity_mpa_s(temperature_c)? / water_viscosity_mpa_s(20.0)?)
 }
@@ -200,7 +201,7 @@ mod tests {
 
     #[test]
     fn unit_factors_match_the_reference_conversions() {
-        // REFERENCES §3 [C]: cv[m²/yr] = cv[mm²/min] × 0.52596; cv[cm²/s] = cv[mm²/min] × 1.6667e-4.
+        // [ref: cv-units, computed]: cv[m²/yr] = cv[mm²/min] × 0.52596; cv[cm²/s] = cv[mm²/min] × 1.6667e-4.
         assert!((to_m2_per_year(1.0) - 1e-6 * 60.0 * 24.0 * 365.25).abs() < 1e-12);
         assert!((to_cm2_per_s(1.0) - 1.6667e-4).abs() < 1e-8);
         assert!((from_m2_per_year(to_m2_per_year(3.7)) - 3.7).abs() < 1e-12);
@@ -209,8 +210,8 @@ mod tests {
 
     #[test]
     fn bs_style_constants_follow_from_the_time_factors() {
-        // REFERENCES §3, §4 [C]: with H̄ the full height in mm, double drainage and t in min,
-        // cv[m²/yr] = 0.1115·H̄²/t90 and 0.0259·H̄²/t50 (printed 0.112 and 0.026 in BS 1377-5 [M]).
+        // [ref: cv-units, computed]: with H̄ the full height in mm, double drainage and t in min,
+        // cv[m²/yr] = 0.1115·H̄²/t90 and 0.0259·H̄²/t50 (printed 0.112 and 0.026 in BS 1377-5, from memory).
         let height = 20.0;
         let t90 = cv_mm2_per_min(0.848, Drainage::Double.path_mm(height), 1.0).unwrap();
         assert!((to_m2_per_year(t90) / (height * height) - 0.1115).abs() < 5e-5);

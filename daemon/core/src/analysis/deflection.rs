@@ -1,4 +1,4 @@
-//! Apparatus-deflection correction (REFERENCES §1.6): the frame+cell+stones deflection measured with a
+//! Apparatus-deflection correction [ref: apparatus-deflection]: the frame+cell+stones deflection measured with a
 //! metal dummy disc, per loading and unloading branch, interpolated at the applied stress on the right
 //! branch. Never extrapolated: outside the calibrated range the answer is "no correction" plus a flag. It
 //! must not decide which branch a test is on or apply corrections to stored readings itself.
@@ -13,7 +13,7 @@ use super::interp::Pchip;
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "snake_case")]
 pub enum LoadBranch {
-    /// Stress rising (first loading and reloading: one table [CP]).
+    /// Stress rising (first loading and reloading: one table [ref: apparatus-deflection, common practice]).
     Loading,
     /// Stress falling.
     Unloading,
@@ -78,8 +78,8 @@ impl DeflectionCalibration {
         Ok(DeflectionCalibration { loading, unloading })
     }
 
-    /// Deflection y at `stress_kpa` on `branch` [CP, REFERENCES §1.6]. Falls back on the loading branch
-    /// (flagged) when no unloading branch was calibrated.
+    /// Deflection y at `stress_kpa` on `branch` [ref: apparatus-deflection, common practice]. Falls back on
+    /// the loading branch (flagged) when no unloading branch was calibrated.
     pub fn deflection_at(&self, stress_kpa: f64, branch: LoadBranch) -> Deflection {
         let mut flags = Vec::new();
         let (table, used) = match (branch, &self.unloading) {
@@ -102,7 +102,7 @@ impl DeflectionCalibration {
     }
 }
 
-/// Corrected compression: ΔH_corr = ΔH_meas − y [R S6 Form 5B].
+/// Corrected compression: ΔH_corr = ΔH_meas − y [ref: apparatus-deflection].
 pub fn corrected_mm(measured_mm: f64, deflection_mm: f64) -> f64 {
     measured_mm - deflection_mm
 }
@@ -112,7 +112,7 @@ mod tests {
     use super::*;
 
     // Invented calibration for the demo frame (not a published table): deflection grows with load and
-    // recovers only partly on unloading, as a dummy-disc calibration does [CP].
+    // recovers only partly on unloading, as a dummy-disc calibration does [ref: apparatus-deflection, common practice].
     const LOADING: [(f64, f64); 6] =
         [(5.0, 0.0), (25.0, 0.012), (50.0, 0.020), (100.0, 0.031), (200.0, 0.045), (400.0, 0.062)];
     const UNLOADING: [(f64, f64); 4] = [(25.0, 0.030), (100.0, 0.042), (200.0, 0.052), (400.0, 0.062)];

@@ -1,4 +1,4 @@
-//! Straight lines: ordinary least squares (hand-rolled, ECOSYSTEM §6), evaluation and intersection.
+//! Straight lines: ordinary least squares (hand-rolled [ref: least-squares]), evaluation and intersection.
 //! It knows nothing of what the axes mean; callers say whether x is √t, log10 t, log10 σ′ or σ′.
 
 use serde::Serialize;
@@ -81,7 +81,7 @@ impl LineAccumulator {
     }
 
     /// Leverage of a new abscissa on the fitted line, 1/n + (x − x̄)²/Sxx: the variance of the line's
-    /// prediction at x in units of one point's variance (standard regression result [CP]).
+    /// prediction at x in units of one point's variance (standard regression result [ref: least-squares]).
     pub fn leverage(&self, x: f64) -> f64 {
         if self.n < 2 {
             return f64::INFINITY;
@@ -136,7 +136,8 @@ pub fn residual_sum_of_squares(line: &Line, points: impl IntoIterator<Item = (f6
 /// the tolerance widened by √(1 + leverage), as a prediction interval is, so a line from a few early points
 /// is not over-trusted far from them. One
 /// stray point is forgiven (kept inside the run, left out of the sums) if the point after it is back on the
-/// line; two in a row end the run (REFERENCES §3 residual rule [CP], made robust to single noisy readings).
+/// line; two in a row end the run (the residual rule of [ref: straight-run-rule, common practice], made robust to
+/// single noisy readings).
 /// Returns how many points the run spans from the start of the scan, and the sums of those fitted.
 pub(crate) fn grow_straight_run(
     points: impl IntoIterator<Item = (f64, f64, f64)>,
@@ -176,7 +177,7 @@ mod tests {
 
     #[test]
     fn fit_recovers_an_exact_line_despite_a_large_offset() {
-        // [C]: points exactly on y = 12.345 + 0.0021·x must give the line back to rounding.
+        // Computed: points exactly on y = 12.345 + 0.0021·x must give the line back to rounding.
         let line = fit_line((0..50).map(|k| (k as f64, 12.345 + 0.0021 * k as f64))).unwrap();
         assert!((line.slope - 0.0021).abs() < 1e-13);
         assert!((line.intercept - 12.345).abs() < 1e-12);
@@ -184,7 +185,7 @@ mod tests {
 
     #[test]
     fn fit_matches_the_closed_form_for_three_points() {
-        // [C] by hand: (0,1), (1,2), (2,4): slope = 1.5, intercept = 5/6.
+        // Computed by hand: (0,1), (1,2), (2,4): slope = 1.5, intercept = 5/6.
         let line = fit_line([(0.0, 1.0), (1.0, 2.0), (2.0, 4.0)]).unwrap();
         assert!((line.slope - 1.5).abs() < 1e-14);
         assert!((line.intercept - 5.0 / 6.0).abs() < 1e-14);

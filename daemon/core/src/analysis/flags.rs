@@ -51,12 +51,12 @@ pub enum Flag {
     NoOffsetPair,
     /// The d100 intersection falls outside the readings or before the inflection.
     IntersectionOutsideData,
-    /// Load increment ratio under 0.7 [R S2 Note 5].
+    /// Load increment ratio under 0.7 [ref: load-increment-ratio].
     LoadIncrementRatioLow {
         /// Δσ/σ before the increment.
         lir: f64,
     },
-    /// The increment's stress range contains σ′p [R S2 Note 5].
+    /// The increment's stress range contains σ′p [ref: load-increment-ratio].
     SpansPreconsolidation {
         /// The σ′p estimate used.
         sigma_p_kpa: f64,
@@ -88,7 +88,7 @@ pub enum Flag {
         /// e0 from wf·Gs and the height ratio.
         e0_from_final_water: f64,
     },
-    /// Initial degree of saturation under 95 %: cv assumes a saturated specimen [R S1 §1.2].
+    /// Initial degree of saturation under 95 %: cv assumes a saturated specimen [ref: saturation-check].
     PartlySaturated {
         /// S0 as a fraction.
         saturation: f64,
@@ -269,7 +269,7 @@ mod tests {
 
     #[test]
     fn lir_flag_reads_as_the_rule_it_reports() {
-        // Rule from [R S2 Note 5]: LIR < 0.7 may prevent evaluation of cv.
+        // Rule from ASTM D2435 Note 5 [ref: load-increment-ratio]: LIR < 0.7 may prevent evaluation of cv.
         let flag = Flag::LoadIncrementRatioLow { lir: 0.5 };
         assert_eq!(flag.to_string(), "LIR 0.50 < 0.7: cv unreliable");
         assert_eq!(flag.code(), "lir_low");

@@ -20,7 +20,7 @@ use super::{AnalysisError, check_positive, check_range};
 /// Everything one increment's reduction depends on besides the readings.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct IncrementParams {
-    /// Gauge resolution, mm; straight-line tolerances start at twice this (REFERENCES §3) [CP].
+    /// Gauge resolution, mm; straight-line tolerances start at twice this [ref: straight-run-rule, common practice].
     pub gauge_resolution_mm: f64,
     /// Log-time bins per decade for thinning.
     pub bins_per_decade: f64,
@@ -34,11 +34,11 @@ pub struct IncrementParams {
     pub taylor: TaylorParams,
     /// log-t construction choices.
     pub casagrande: CasagrandeParams,
-    /// Time factor used with t90: 0.848 published [R S28].
+    /// Time factor used with t90: 0.848 as printed [ref: terzaghi-time-factors].
     pub time_factor_90: f64,
-    /// Time factor used with t50: 0.197 published [R S28].
+    /// Time factor used with t50: 0.197 as printed [ref: terzaghi-time-factors].
     pub time_factor_50: f64,
-    /// Load increment ratio Δσ/σ of this increment, if known; under 0.7 flags cv [R S2 Note 5].
+    /// Load increment ratio Δσ/σ of this increment, if known; under 0.7 flags cv [ref: load-increment-ratio].
     pub load_increment_ratio: Option<f64>,
     /// Mean temperature of the increment, °C; adds cv corrected to 20 °C.
     pub temperature_c: Option<f64>,
@@ -289,14 +289,14 @@ mod tests {
     };
     use proptest::prelude::*;
 
-    // Synthetic curves [C, REFERENCES §6a]; see `synthetic::Model::typical` for the parameters.
+    // Synthetic curves [ref: synthetic-checks, computed]; see `synthetic::Model::typical` for the parameters.
 
     #[test]
     fn cv_by_both_methods_recovers_the_model_within_stated_biases() {
-        // Drainage path given (10 mm). Expected biases (REFERENCES §3, §4 [C]): √t +1.5 % from the 1.15
-        // factor (measured +1.1 %, the fitted line's slight flattening offsets part of it); log t within 1 %
-        // on dense data. Sparse hand schedule: √t reads t90 between readings an octave apart (PCHIP −2.5 %
-        // in REFERENCES' trial), so cv +0 … +6.5 %; log t within 3.5 %.
+        // Drainage path given (10 mm). Expected biases [ref: taylor-root-time, computed]: √t +1.5 % from the
+        // 1.15 factor (measured +1.1 %, the fitted line's slight flattening offsets part of it); log t within
+        // 1 % on dense data. Sparse hand schedule: √t reads t90 between readings an octave apart (PCHIP −2.5 %
+        // in a trial [ref: curve-interpolation, computed]), so cv +0 … +6.5 %; log t within 3.5 %.
         for cv in [1.0, 2.0, 4.0] {
             let m = Model { cv_mm2_per_min: cv, ..Model::typical() };
             let dense = reduce(&m, &log_schedule(20_000, 1.0 / 60.0, 1440.0), 0.001, 0.0005, 7);
@@ -343,7 +343,7 @@ mod tests {
     #[test]
     fn secondary_compression_index_comes_with_its_window_and_height() {
         // Model: 0.05 mm per log cycle over H ≈ 19 mm at the start of secondary → Cα(ε) ≈ 0.0026. The fitted
-        // line starts where the primary tail still adds slope (at T = 2.3 it adds 37 µm per cycle [C]), so
+        // line starts where the primary tail still adds slope (at T = 2.3 it adds 37 µm per cycle; computed), so
         // the tolerance is 10 %.
         let m = Model::typical();
         let mut params = IncrementParams::with_specimen(20.0, m.start_mm, Drainage::Double);
@@ -369,11 +369,11 @@ mod tests {
         params.load_increment_ratio = Some(0.5);
         let r = reduce_increment(&readings, &params).unwrap();
         let cv = r.cv_taylor.unwrap();
-        // cv,20 = cv,T·μT/μ20 [M/CP, REFERENCES §1.7] with IAPWS viscosities (`cv`).
+        // cv,20 = cv,T·μT/μ20 [ref: viscosity-correction, from memory] with IAPWS viscosities (`cv`).
         let ratio = crate::analysis::cv::viscosity_ratio_to_20c(25.0).unwrap();
         assert!((cv.cv_20c_mm2_per_min.unwrap() - cv.cv_mm2_per_min * ratio).abs() < 1e-15);
         assert!((ratio - 0.8900 / 1.0016).abs() < 2e-4, "ratio {ratio}");
-        // LIR < 0.7 [R S2 Note 5].
+        // LIR < 0.7 [ref: load-increment-ratio].
         assert!(r.flags.contains(&Flag::LoadIncrementRatioLow { lir: 0.5 }));
         params.temperature_c = Some(90.0);
         let r = reduce_increment(&readings, &params).unwrap();

@@ -1,8 +1,8 @@
 //! Monotone piecewise-cubic Hermite interpolation (PCHIP): Fritsch & Carlson (1980), SIAM J. Numer. Anal.
 //! 17(2) 238–246, with the weighted-harmonic-mean node slopes of Fritsch & Butland (1984) and the
-//! shape-preserving end slopes used by SciPy's `PchipInterpolator` [M]. It never overshoots the data, so
-//! constructions read intersections on the curve, not on chords (REFERENCES §3, §4). It must not smooth or
-//! extrapolate: outside the nodes it holds the end values.
+//! shape-preserving end slopes used by SciPy's `PchipInterpolator` (from memory). It never overshoots the
+//! data, so constructions read intersections on the curve, not on chords [ref: curve-interpolation]. It
+//! must not smooth or extrapolate: outside the nodes it holds the end values.
 
 use super::AnalysisError;
 use super::fit::Line;
@@ -26,7 +26,8 @@ fn sign(v: f64) -> i8 {
     }
 }
 
-/// End slope by the three-point formula, kept shape-preserving (SciPy's `_edge_case` rule [M]).
+/// End slope by the three-point formula, kept shape-preserving (SciPy's `_edge_case` rule
+/// [ref: curve-interpolation, from memory]).
 fn end_slope(h0: f64, h1: f64, delta0: f64, delta1: f64) -> f64 {
     let d = ((2.0 * h0 + h1) * delta0 - h0 * delta1) / (h0 + h1);
     if sign(d) != sign(delta0) {
@@ -293,7 +294,7 @@ mod tests {
 
     #[test]
     fn monotone_data_give_a_monotone_curve_without_overshoot() {
-        // Fritsch & Carlson (1980) [M]: the interpolant of monotone data is monotone.
+        // Fritsch & Carlson 1980 [ref: curve-interpolation, from memory]: monotone data, monotone interpolant.
         let p = Pchip::new(MONOTONE_X.to_vec(), MONOTONE_Y.to_vec()).unwrap();
         let mut previous = f64::NEG_INFINITY;
         for k in 0..=800 {

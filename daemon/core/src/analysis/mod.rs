@@ -4,11 +4,11 @@
 //! Pure: numbers in, numbers out. Nothing here reads a clock, a database, a configuration file or does any
 //! I/O; every construction choice comes in as a parameter and goes out in the result, with quality flags and
 //! the points and lines used, so the dashboard can draw the construction and an engineer can review it.
-//! Results are proposals for a qualified engineer to check (REFERENCES §7), never commands to a frame.
+//! Results are proposals for a qualified engineer to check [ref: review-and-safety], never commands to a frame.
 //!
 //! Conventions: time in minutes since the load went on, displacement in mm with compression positive,
-//! stress in kPa. Method facts cite `shared/REFERENCES.md` by its tags ([R Sx] read, [C] computed,
-//! [M] from memory, [CP] common practice).
+//! stress in kPa. Method facts cite `daemon/core/REFERENCES.md` by anchor, `[ref: <anchor>, <mark>]`, the
+//! mark being read, computed, from memory or common practice.
 
 pub mod casagrande;
 pub mod compression;
@@ -20,6 +20,7 @@ pub mod flags;
 pub mod increment;
 pub mod interp;
 pub mod phase;
+pub mod reduction;
 pub mod secondary;
 pub mod taylor;
 pub mod terzaghi;
@@ -38,6 +39,10 @@ pub use fit::Line;
 pub use flags::Flag;
 pub use increment::{IncrementParams, IncrementReduction, reduce_curve, reduce_increment};
 pub use phase::{PhaseRelations, SpecimenMeasurements, phase_relations};
+pub use reduction::{
+    CurveUnavailable, ReductionRules, StepInput, StepReduction, TestInput, TestReduction, TestSpecimen, reduce_test,
+    reduce_test_with,
+};
 pub use taylor::{TaylorParams, TaylorResult, taylor};
 
 /// Why an analysis could not even start: bad input or a parameter outside what is allowed.

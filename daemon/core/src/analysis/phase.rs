@@ -1,4 +1,4 @@
-//! Phase relations of the specimen (REFERENCES §5.1): ring area, height of solids Hs = Ms/(Gs·ρw·A), initial
+//! Phase relations of the specimen [ref: height-of-solids]: ring area, height of solids Hs = Ms/(Gs·ρw·A), initial
 //! void ratio, densities, initial water content and degree of saturation, and the final-water-content
 //! cross-check of e. Numbers only; it must not know which test or frame they belong to.
 
@@ -10,11 +10,13 @@ use super::flags::Flag;
 use super::{AnalysisError, check_positive, check_range};
 
 /// e from the dry mass and e back-calculated from the final water content may differ by this much before
-/// the check is flagged (REFERENCES §5.1) [CP].
+/// the check is flagged [ref: final-water-check, common practice].
 pub const VOID_RATIO_DISCREPANCY_LIMIT: f64 = 0.02;
-/// Degree of saturation below this flags cv: time-curve theory assumes saturation [R S1 §1.2] (95 % [CP]).
+/// Degree of saturation below this flags cv: time-curve theory assumes saturation [ref: saturation-check]
+/// (95 %, common practice).
 const PARTLY_SATURATED_BELOW: f64 = 0.95;
-/// Degree of saturation above this means inconsistent masses, dimensions or Gs [CP].
+/// Degree of saturation above this means inconsistent masses, dimensions or Gs
+/// [ref: saturation-check, common practice].
 const OVERSATURATED_ABOVE: f64 = 1.05;
 
 /// What was measured on the specimen before the test.
@@ -32,7 +34,7 @@ pub struct SpecimenMeasurements {
     pub initial_mass_g: Option<f64>,
     /// Initial water content from trimmings (fraction); used when `initial_mass_g` is absent.
     pub initial_water_content: Option<f64>,
-    /// Density of water ρw, g/cm³ (Mg/m³); 1.0 by common practice [CP].
+    /// Density of water ρw, g/cm³ (Mg/m³); 1.0 by common practice [ref: height-of-solids].
     pub water_density_g_per_cm3: f64,
 }
 
@@ -58,9 +60,9 @@ pub struct PhaseRelations {
     pub area_mm2: f64,
     /// Initial height H0, mm.
     pub height_mm: f64,
-    /// Height of solids Hs = Ms/(Gs·ρw·A), mm [R S28].
+    /// Height of solids Hs = Ms/(Gs·ρw·A), mm [ref: height-of-solids].
     pub solids_height_mm: f64,
-    /// e0 = (H0 − Hs)/Hs [R S6 Form 5A].
+    /// e0 = (H0 − Hs)/Hs [ref: height-of-solids].
     pub e0: f64,
     /// Specific gravity used.
     pub specific_gravity: f64,
@@ -70,14 +72,14 @@ pub struct PhaseRelations {
     pub bulk_density_mg_per_m3: Option<f64>,
     /// Initial water content w0 (fraction).
     pub initial_water_content: Option<f64>,
-    /// S0 = w0·Gs/e0 [CP: Sr = w·Gs/e].
+    /// S0 = w0·Gs/e0 (Sr = w·Gs/e) [ref: saturation-check, common practice].
     pub initial_saturation: Option<f64>,
     /// Quality remarks.
     pub flags: Vec<Flag>,
 }
 
 impl PhaseRelations {
-    /// Void ratio when the specimen is `height_mm` high: e = (H − Hs)/Hs [R S6 Form 5A; REFERENCES §5.2].
+    /// Void ratio when the specimen is `height_mm` high: e = (H − Hs)/Hs [ref: height-of-solids].
     pub fn void_ratio_at(&self, height_mm: f64) -> f64 {
         (height_mm - self.solids_height_mm) / self.solids_height_mm
     }
@@ -139,9 +141,9 @@ pub fn phase_relations(m: &SpecimenMeasurements) -> Result<PhaseRelations, Analy
 pub struct FinalWaterCheck {
     /// e at the end from the dry mass: (Hf − Hs)/Hs.
     pub e_final_from_dry_mass: f64,
-    /// e at the end from the water content, saturated: ef = wf·Gs [CP].
+    /// e at the end from the water content, saturated: ef = wf·Gs [ref: final-water-check, common practice].
     pub e_final_from_water: f64,
-    /// e0 back-calculated from ef: 1 + e0 = (1 + ef)·H0/Hf (v/h constant) [CP].
+    /// e0 back-calculated from ef: 1 + e0 = (1 + ef)·H0/Hf (v/h constant) [ref: final-water-check, common practice].
     pub e0_from_final_water: f64,
     /// e0 (dry mass) − e0 (final water).
     pub discrepancy: f64,
@@ -150,7 +152,7 @@ pub struct FinalWaterCheck {
 }
 
 /// Compares e0 from the dry mass with e0 back-calculated from the final water content and the final height
-/// `final_height_mm` (both apparatus-corrected), as BS 1377 Form 5A computes e0 both ways [R S6 Form 5A].
+/// `final_height_mm` (both apparatus-corrected), as BS 1377 Form 5A computes e0 both ways [ref: final-water-check].
 pub fn final_water_check(
     phase: &PhaseRelations,
     final_height_mm: f64,
@@ -180,7 +182,7 @@ mod tests {
 
     #[test]
     fn solids_height_and_void_ratio_follow_the_textbook_formulae() {
-        // Hs = Ms/(Gs·ρw·A) [R S28], e0 = (H0 − Hs)/Hs [R S6 Form 5A]. [C] by hand: D = 75 mm gives
+        // Hs = Ms/(Gs·ρw·A), e0 = (H0 − Hs)/Hs [ref: height-of-solids]. Computed by hand: D = 75 mm gives
         // A = 4417.86 mm²; Ms = 120 g, Gs = 2.70 → Hs = 120/(2.70·0.001·4417.86) = 10.06016 mm; H0 = 20 mm →
         // e0 = 0.98804.
         let mut m = SpecimenMeasurements::new(75.0, 20.0, 120.0, 2.70);
@@ -189,7 +191,7 @@ mod tests {
         assert!((p.area_mm2 - 4417.8647).abs() < 1e-3);
         assert!((p.solids_height_mm - 10.06016).abs() < 1e-4);
         assert!((p.e0 - 0.98804).abs() < 1e-4);
-        // w0 = 43/120 = 0.35833; S0 = w0·Gs/e0 = 0.97921 [CP: Sr = w·Gs/e].
+        // w0 = 43/120 = 0.35833; S0 = w0·Gs/e0 = 0.97921 [ref: saturation-check, common practice].
         assert!((p.initial_water_content.unwrap() - 0.358333).abs() < 1e-6);
         assert!((p.initial_saturation.unwrap() - 0.97921).abs() < 1e-4);
         assert!(p.flags.is_empty());
@@ -210,7 +212,7 @@ mod tests {
 
     #[test]
     fn final_water_content_check_flags_only_discrepancies_over_0_02() {
-        // [C]: Hs = 10.06016 mm. A specimen ending at Hf = 17 mm has e_f = 0.68983 by dry mass; a saturated
+        // Computed: Hs = 10.06016 mm. A specimen ending at Hf = 17 mm has e_f = 0.68983 by dry mass; a saturated
         // end water content of e_f/Gs = 0.25549 reproduces e0 exactly.
         let p = phase_relations(&SpecimenMeasurements::new(75.0, 20.0, 120.0, 2.70)).unwrap();
         let e_f = p.void_ratio_at(17.0);

@@ -1,5 +1,5 @@
 //! Secondary compression index Cα from the straight secondary line of the log-t construction, on strain and
-//! void-ratio bases [R S9 Eqs 7.34–7.35], with the time window it was fitted over. It must not find the line
+//! void-ratio bases [ref: secondary-compression], with the time window it was fitted over. It must not find the line
 //! itself (that is `casagrande`).
 
 use serde::Serialize;
@@ -11,14 +11,14 @@ use super::{AnalysisError, check_positive};
 /// Cα of one increment.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct SecondaryCompression {
-    /// Cα(ε) = Δε/Δlog10 t, ε over `height_mm` [R S9 Eq 7.34].
+    /// Cα(ε) = Δε/Δlog10 t, ε over `height_mm` [ref: secondary-compression].
     pub c_alpha_strain: f64,
-    /// Cα,e = Δe/Δlog10 t = Cα(ε)·(1 + e_p) [R S9 Eq 7.35]; needs Hs.
+    /// Cα,e = Δe/Δlog10 t = Cα(ε)·(1 + e_p) [ref: secondary-compression]; needs Hs.
     pub c_alpha_void_ratio: Option<f64>,
     /// Slope of the secondary line, mm per log cycle.
     pub slope_mm_per_log_cycle: f64,
     /// The height the strain is taken over: the specimen height at the start of secondary compression
-    /// (at d100 of the log-t construction) — so 1 + e_p = height/Hs [CP].
+    /// (at d100 of the log-t construction) — so 1 + e_p = height/Hs [ref: secondary-compression, common practice].
     pub height_mm: f64,
     /// Fitted window start, min.
     pub t_start_min: f64,
@@ -60,7 +60,7 @@ mod tests {
 
     #[test]
     fn strain_and_void_ratio_bases_obey_the_textbook_relation() {
-        // [R S9 Eq 7.35]: Cα(ε) = Cα,e/(1 + e_p). With H = 18 mm and Hs = 10 mm, 1 + e_p = 1.8.
+        // [ref: secondary-compression]: Cα(ε) = Cα,e/(1 + e_p). With H = 18 mm and Hs = 10 mm, 1 + e_p = 1.8.
         let line = SecondaryLine {
             first_node: 10,
             last_node: 20,
@@ -75,7 +75,7 @@ mod tests {
         let e_p = 18.0 / 10.0 - 1.0;
         assert!((ca.c_alpha_strain - ca.c_alpha_void_ratio.unwrap() / (1.0 + e_p)).abs() < 1e-15);
         assert!(flags.is_empty());
-        // 0.005 lies in the NC-clay range 0.005–0.030 of [R S9 Table 7.1] (after Cernica 1982).
+        // 0.005 lies in the NC-clay range 0.005–0.030 of Venkatramaiah Table 7.1 [ref: secondary-ranges].
         assert!((0.005..=0.030).contains(&ca.c_alpha_strain));
     }
 

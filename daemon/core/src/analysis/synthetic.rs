@@ -1,6 +1,6 @@
 //! Test support: synthetic time curves from the exact Terzaghi series of `terzaghi` plus a straight
-//! secondary branch (REFERENCES §6a), sampled on standard schedules with gauge quantisation and noise.
-//! Computed checks [C]; it must not be used outside tests.
+//! secondary branch [ref: synthetic-checks], sampled on standard schedules with gauge quantisation and noise.
+//! Computed checks; it must not be used outside tests.
 
 use super::increment::{IncrementParams, IncrementReduction, reduce_increment};
 use super::terzaghi::{degree_of_consolidation, time_factor};
@@ -27,8 +27,8 @@ pub(crate) struct Model {
 impl Model {
     /// A 20 mm specimen, double drainage (Hdr = 10 mm), cv = 1 mm²/min (≈ 0.53 m²/yr): t90 = 84.8 min,
     /// 1 mm of primary, Cα(ε) ≈ 0.0025 (0.05 mm per log cycle over 20 mm) from T = 1.10 — where the ideal
-    /// tangent at the inflection meets U = 1 (REFERENCES §4 [C]), so the log-t construction's continuous
-    /// answer is d100 = d0 + primary exactly.
+    /// tangent at the inflection meets U = 1 [ref: t100-t90-ratio, computed], so the log-t construction's
+    /// continuous answer is d100 = d0 + primary exactly.
     pub(crate) fn typical() -> Model {
         Model {
             cv_mm2_per_min: 1.0,
@@ -81,7 +81,7 @@ impl Model {
     }
 }
 
-/// Hand schedule, min: ¼ … 1440 plus the reading at t = 0 (REFERENCES §1.3) [CP].
+/// Hand schedule, min: ¼ … 1440 plus the reading at t = 0 [ref: reading-schedule, common practice].
 pub(crate) const HAND_SCHEDULE_MIN: [f64; 14] =
     [0.0, 0.25, 0.5, 1.0, 2.0, 4.0, 8.0, 15.0, 30.0, 60.0, 120.0, 240.0, 480.0, 1440.0];
 

@@ -1,5 +1,5 @@
-//! Taylor's square-root-of-time construction (Taylor 1942, 1948 [S10 M]; steps as in [R S11, S12];
-//! REFERENCES §3): straight early part → corrected zero d0, a line with abscissae `factor` × larger →
+//! Taylor's square-root-of-time construction (Taylor 1942, 1948 [ref: taylor-root-time]): straight early
+//! part → corrected zero d0, a line with abscissae `factor` × larger →
 //! t90 and d90 where it meets the curve, d100 = d0 + (d90 − d0)/0.9. It only reads the curve; cv from t90
 //! is the caller's (it needs the drainage path).
 
@@ -17,17 +17,17 @@ pub const MIN_NODES: usize = 4;
 const WEAK_FIT_POINTS: usize = 4;
 /// Primary compression under this many gauge resolutions is flagged: on synthetic curves quantised to the
 /// resolution, 30 resolutions of primary let the log-t tail pass for a straight line and biased cv by +25 %,
-/// 100 resolutions by +2 % [C, tests in `casagrande`].
+/// 100 resolutions by +2 % (tests in `casagrande`) [ref: gauge-resolution, computed].
 pub(crate) const SMALL_PRIMARY_RESOLUTIONS: f64 = 50.0;
 
 /// Choices of the √t construction.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct TaylorParams {
-    /// Abscissa ratio of the construction line, OC = 1.15·OB [R S11, S12]. The exact-theory value is
-    /// 1.1546, and 1.15 biases cv by +1.5 % [C, REFERENCES §3]; exposed so a lab can choose.
+    /// Abscissa ratio of the construction line, OC = 1.15·OB [ref: taylor-root-time]. The exact-theory value
+    /// is 1.1546, and 1.15 biases cv by +1.5 % [ref: taylor-root-time, computed]; exposed so a lab can choose.
     pub factor: f64,
     /// The straight fit stops before nodes beyond this degree of consolidation, the end of the √T-linear
-    /// range (U ≲ 60 % [R S12]).
+    /// range (U ≲ 60 % [ref: terzaghi-approximations, computed]).
     pub max_fit_degree: f64,
     /// Fewest nodes in the straight fit (they seed it).
     pub min_fit_points: usize,
@@ -250,16 +250,16 @@ mod tests {
         taylor(&curve, params).unwrap()
     }
 
-    // Synthetic curves [C, REFERENCES §6a]: exact Terzaghi series (`terzaghi`) for Hdr = 10 mm, 0.02 mm
-    // immediate compression, 1 mm primary, 0.05 mm per log cycle of secondary from T = 1.10.
+    // Synthetic curves [ref: synthetic-checks, computed]: exact Terzaghi series (`terzaghi`) for Hdr = 10 mm,
+    // 0.02 mm immediate compression, 1 mm primary, 0.05 mm per log cycle of secondary from T = 1.10.
 
     #[test]
     fn dense_noise_free_curves_recover_d0_t90_and_d100_within_the_construction_bias() {
         // With the published 1.15 the line meets the ideal curve at T = 0.8354, i.e. t90 −1.50 % and
-        // d90 at U = 0.897, d100 −0.33 % of primary (REFERENCES §3 [C]). The fitted straight part ends near
-        // U = 55 %, where the exact curve has bent by ~0.1 % of primary, so its slope is a little low and the
-        // intersection a little later (measured −1.1 %). Tolerances: t90 in [−2.0 %, −0.5 %]; d0 within
-        // 0.05 % and d100 within 0.5 % of primary.
+        // d90 at U = 0.897, d100 −0.33 % of primary [ref: taylor-root-time, computed]. The fitted straight
+        // part ends near U = 55 %, where the exact curve has bent by ~0.1 % of primary, so its slope is a
+        // little low and the intersection a little later (measured −1.1 %). Tolerances: t90 in [−2.0 %,
+        // −0.5 %]; d0 within 0.05 % and d100 within 0.5 % of primary.
         for cv in [0.5, 1.0, 2.0, 4.0] {
             let m = Model { cv_mm2_per_min: cv, ..Model::typical() };
             let r = run(&sample(&m, &dense_schedule(), 0.0, 0.0, 0), &TaylorParams::default());
@@ -269,7 +269,7 @@ mod tests {
             assert!(m.of_primary(r.d100_mm.unwrap(), m.d100_mm()).abs() < 0.005, "cv {cv}: d100 {:?}", r.d100_mm);
             let t50_error = relative(r.t50_min.unwrap(), m.t50_min());
             assert!(t50_error.abs() < 0.01, "cv {cv}: t50 error {t50_error}");
-            // The straight part stays within the √T-linear range, U ≤ 60 % [R S12].
+            // The straight part stays within the √T-linear range, U ≤ 60 % [ref: terzaghi-approximations].
             let s = r.straight.unwrap();
             let u_end = degree_of_consolidation(m.cv_mm2_per_min * s.t_end_min / 100.0);
             assert!(u_end <= 0.6 && s.points >= 20, "cv {cv}: straight part to U = {u_end}, {} points", s.points);
@@ -279,8 +279,8 @@ mod tests {
 
     #[test]
     fn exact_theory_factor_removes_the_published_factors_bias() {
-        // REFERENCES §3 [C]: the exact factor is 1.1546; with 1.15 the line meets at T = 0.8354 instead of
-        // 0.8481, so t90(1.15)/t90(1.1546) = 0.985.
+        // [ref: taylor-root-time, computed]: the exact factor is 1.1546; with 1.15 the line meets at
+        // T = 0.8354 instead of 0.8481, so t90(1.15)/t90(1.1546) = 0.985.
         let m = Model::typical();
         let readings = sample(&m, &dense_schedule(), 0.0, 0.0, 0);
         let published = run(&readings, &TaylorParams::default());
@@ -294,11 +294,11 @@ mod tests {
 
     #[test]
     fn sparse_hand_schedule_recovers_t90_within_the_pchip_bias() {
-        // Hand schedule ¼ … 1440 min (REFERENCES §1.3), gauge quantised to 0.001 mm with 0.5 µm noise, six cv
-        // values × 20 noise seeds. REFERENCES §3 [C]: PCHIP on a sparse schedule gave t90 −2.5 % in a trial;
-        // here −0.1 … −2.7 % noise-free and down to −4.3 % with noise (the construction line is read between
-        // readings an octave apart). Tolerances: t90 in [−6 %, +2 %]; d0 within 0.3 % and d100 within 2.5 %
-        // of primary (measured 0.14 % and 1.4 %).
+        // Hand schedule ¼ … 1440 min [ref: reading-schedule], gauge quantised to 0.001 mm with 0.5 µm noise,
+        // six cv values × 20 noise seeds. PCHIP on a sparse schedule gave t90 −2.5 % in a trial
+        // [ref: curve-interpolation, computed]; here −0.1 … −2.7 % noise-free and down to −4.3 % with noise
+        // (the construction line is read between readings an octave apart). Tolerances: t90 in [−6 %, +2 %];
+        // d0 within 0.3 % and d100 within 2.5 % of primary (measured 0.14 % and 1.4 %).
         for cv in [0.7, 1.0, 1.5, 2.0, 3.0, 4.0] {
             let m = Model { cv_mm2_per_min: cv, ..Model::typical() };
             for seed in 0..20 {
@@ -314,7 +314,7 @@ mod tests {
     #[test]
     fn small_primary_straight_part_is_cut_at_sixty_percent() {
         // 0.1 mm of primary read to 0.001 mm: the curve's bend at U = 60–70 % is under 2 gauge resolutions,
-        // so the residual rule alone runs on; the U ≤ 60 % limit must end the fit [R S12].
+        // so the residual rule alone runs on; the U ≤ 60 % limit must end the fit [ref: taylor-root-time].
         let m = Model { primary_mm: 0.1, secondary_mm_per_log_cycle: 0.005, ..Model::typical() };
         let r = run(&sample(&m, &dense_schedule(), 0.001, 0.0, 0), &TaylorParams::default());
         let s = r.straight.unwrap();

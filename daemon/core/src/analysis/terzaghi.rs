@@ -4,13 +4,13 @@
 
 use std::f64::consts::{FRAC_PI_2, PI};
 
-/// Published time factor for U = 50 %, used with t50 (Casagrande) [R S28; Taylor 1948, S10 M].
+/// Published time factor for U = 50 %, used with t50 (Casagrande; Taylor 1948) [ref: terzaghi-time-factors].
 pub const T50_PUBLISHED: f64 = 0.197;
-/// Published time factor for U = 90 %, used with t90 (Taylor) [R S28; Taylor 1948, S10 M].
+/// Published time factor for U = 90 %, used with t90 (Taylor 1948) [ref: terzaghi-time-factors].
 pub const T90_PUBLISHED: f64 = 0.848;
 
 /// Below this time factor the short-time form U = 2·√(T/π) is exact to machine precision: the image terms
-/// it leaves out are of order exp(−1/T) < 1e-21 [C, REFERENCES §2].
+/// it leaves out are of order exp(−1/T) < 1e-21 [ref: terzaghi-series, computed].
 const SHORT_TIME_LIMIT: f64 = 0.02;
 /// The series term 2/M²·exp(−M²T) is dropped once it is below this (far under f64 resolution of U).
 const TERM_CUTOFF: f64 = 1e-18;
@@ -19,7 +19,7 @@ const MAX_TERMS: usize = 200;
 
 /// Average degree of consolidation U (0…1) at time factor `time_factor` = cv·t/Hdr².
 ///
-/// U = 1 − Σ_{m≥0} (2/M²)·exp(−M²T), M = (π/2)(2m + 1) [M, integral of R S9 Eqs 7.23–7.24]; for T ≤ 0.02
+/// U = 1 − Σ_{m≥0} (2/M²)·exp(−M²T), M = (π/2)(2m + 1) [ref: terzaghi-series, computed]; for T ≤ 0.02
 /// the equivalent short-time form 2√(T/π). T ≤ 0 gives 0, NaN gives NaN.
 pub fn degree_of_consolidation(time_factor: f64) -> f64 {
     if time_factor.is_nan() {
@@ -87,7 +87,7 @@ pub fn time_factor(degree: f64) -> Option<f64> {
 mod tests {
     use super::*;
 
-    /// (U %, T exact [C], T printed [M: Taylor 1948 and later texts]) — REFERENCES §2 check table.
+    /// (U %, T exact (computed), T printed (Taylor 1948 and later texts, from memory)) [ref: terzaghi-time-factors].
     const TABLE: [(f64, f64, Option<f64>); 11] = [
         (10.0, 0.00785, Some(0.008)),
         (20.0, 0.03142, Some(0.031)),
@@ -104,7 +104,8 @@ mod tests {
 
     #[test]
     fn inverse_matches_the_exact_column_of_the_reference_table() {
-        // REFERENCES §2, column "T exact" [C], printed to 5 decimals: agree to half a unit in the last digit.
+        // [ref: terzaghi-time-factors], column "T exact" (computed), printed to 5 decimals: agree to half a
+        // unit in the last digit.
         for (u_percent, t_exact, _) in TABLE {
             let t = time_factor(u_percent / 100.0).unwrap();
             assert!((t - t_exact).abs() <= 0.5e-5 + 1e-9, "U = {u_percent} %: T = {t}, table {t_exact}");
@@ -113,7 +114,7 @@ mod tests {
 
     #[test]
     fn inverse_agrees_with_printed_textbook_time_factors() {
-        // Printed T values [M: Taylor 1948 and later texts, REFERENCES §2] carry ±1 in their third decimal.
+        // Printed T values [ref: terzaghi-time-factors, from memory] carry ±1 in their third decimal.
         for (u_percent, _, printed) in TABLE {
             if let Some(printed) = printed {
                 let t = time_factor(u_percent / 100.0).unwrap();
@@ -124,14 +125,14 @@ mod tests {
 
     #[test]
     fn published_t50_and_t90_round_from_the_exact_series() {
-        // T50 = 0.197 and T90 = 0.848 as published [R S28]; exact 0.19673 and 0.84809 [C].
+        // T50 = 0.197 and T90 = 0.848 as printed; exact 0.19673 and 0.84809 [ref: terzaghi-time-factors, computed].
         assert_eq!((time_factor(0.5).unwrap() * 1000.0).round() / 1000.0, T50_PUBLISHED);
         assert_eq!((time_factor(0.9).unwrap() * 1000.0).round() / 1000.0, T90_PUBLISHED);
     }
 
     #[test]
     fn forward_values_match_the_reference_check_values() {
-        // REFERENCES §2 forward check values [C], printed to 5 decimals.
+        // Forward check values [ref: terzaghi-series, computed], printed to 5 decimals.
         let checks = [
             (0.05, 0.25231),
             (0.1, 0.35682),
@@ -150,8 +151,8 @@ mod tests {
 
     #[test]
     fn textbook_approximations_hold_to_their_stated_accuracy() {
-        // T = (π/4)U² for U ≤ 60 % and T = 1.781 − 0.933·log10(100 − U%) above [R S11]; accuracy of each
-        // against the exact series as computed in REFERENCES §2 [C]: −1.28 % at 60 %, ≤ 0.02 % for 70–99 %.
+        // T = (π/4)U² for U ≤ 60 % and T = 1.781 − 0.933·log10(100 − U%) above; accuracy of each against the
+        // exact series [ref: terzaghi-approximations, computed]: −1.28 % at 60 %, ≤ 0.02 % for 70–99 %.
         for u_percent in [10.0, 20.0, 30.0, 40.0, 50.0, 60.0] {
             let exact = time_factor(u_percent / 100.0).unwrap();
             let approx = PI / 4.0 * (u_percent / 100.0_f64).powi(2);
@@ -166,11 +167,11 @@ mod tests {
 
     #[test]
     fn short_time_form_joins_the_series_seamlessly() {
-        // Both forms are exact at T = 0.02 [C]: they must agree to rounding.
+        // Both forms are exact at T = 0.02 [ref: terzaghi-series, computed]: they must agree to rounding.
         let series = series_degree(SHORT_TIME_LIMIT);
         let short = 2.0 * (SHORT_TIME_LIMIT / PI).sqrt();
         assert!((series - short).abs() < 1e-12, "series {series} vs short form {short}");
-        // Initial slope U/√T → 2/√π = 1.12838 [C, REFERENCES §2].
+        // Initial slope U/√T → 2/√π = 1.12838 [ref: terzaghi-series, computed].
         assert!((degree_of_consolidation(1e-6) / 1e-3 - std::f64::consts::FRAC_2_SQRT_PI).abs() < 1e-12);
     }
 
@@ -202,8 +203,8 @@ mod tests {
 
     #[test]
     fn atkinson_example_15_2_time_factor_at_quarter_consolidation() {
-        // Atkinson Ex 15.2 [R S17] reads Tv = 0.05 at U = 0.25 (parabolic-isochrone chart); the exact series
-        // gives 0.0491 [C, REFERENCES §6], which rounds to the book's one significant figure.
+        // Atkinson Ex 15.2 reads Tv = 0.05 at U = 0.25 (parabolic-isochrone chart); the exact series gives
+        // 0.0491 [ref: parabolic-isochrone, computed], which rounds to the book's one significant figure.
         let t = time_factor(0.25).unwrap();
         assert!((t - 0.0491).abs() < 5e-5, "T = {t}");
         assert_eq!((t * 100.0).round() / 100.0, 0.05);
