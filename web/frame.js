@@ -57,6 +57,16 @@
             const px = u.valToPos(x, "x", true), py = u.valToPos(y, "y", true);
             i ? ctx.lineTo(px, py) : ctx.moveTo(px, py);
           }
+        } else if (it.path) {
+          // A polyline through points in the order given (the e–log σ′ path in test order).
+          it.path.forEach(([x, y], i) => {
+            const px = u.valToPos(x, "x", true), py = u.valToPos(y, "y", true);
+            i ? ctx.lineTo(px, py) : ctx.moveTo(px, py);
+          });
+        } else if (it.dot) {
+          const [x, y] = it.dot;
+          ctx.arc(u.valToPos(x, "x", true), u.valToPos(y, "y", true), 4.5 * devicePixelRatio, 0, 2 * Math.PI);
+          ctx.fill();
         } else if (it.y !== undefined) {
           const py = u.valToPos(it.y, "y", true); ctx.moveTo(left, py); ctx.lineTo(left + width, py);
         } else if (it.x !== undefined) {
@@ -197,21 +207,28 @@
     const linear = document.getElementById("comp-linear").checked;
     const x = pts.map((p) => p.stress_kpa), y = pts.map((p) => p.e);
     const order = x.map((_, i) => i).filter((i) => x[i] > 0 || linear);
-    // uPlot wants ascending x; unloading steps repeat stresses, so the curve is drawn by the series order
-    // of a second x-sorted copy, and each point keeps its own value.
+    // uPlot wants ascending x; unloading steps repeat stresses. The points are a series in stress order
+    // (markers only); the curve itself is drawn as a path in the order of the test — loading, unloading,
+    // reloading — so an unload–reload loop reads as a loop.
     const sorted = order.slice().sort((a, b) => x[a] - x[b] || a - b);
     const data = [sorted.map((i) => x[i]), sorted.map((i) => y[i])];
-    const items = [];
+    const items = [{ path: order.map((i) => [x[i], y[i]]), color: INK }];
     const logLine = (line) => (s) => line.intercept + line.slope * Math.log10(s);
     if (c.cc) items.push({ fn: logLine(c.cc.line), color: FIT, dash: [6, 4], label: "Cc " + fmt.num(c.cc.index, 3) });
     if (c.cr) items.push({ fn: logLine(c.cr.line), color: "#65568a", dash: [6, 4], label: "Cr " + fmt.num(c.cr.index, 3) });
     const sp = c.sigma_p_casagrande;
     if (sp) {
-      // Tangent, horizontal and bisector start at the point of greatest curvature (Casagrande 1936).
-      items.push({ fn: logLine(sp.tangent), from: sp.max_curvature_stress_kpa, color: MARK, dash: [2, 3] });
-      items.push({ fn: logLine(sp.bisector), from: sp.max_curvature_stress_kpa, to: sp.sigma_p_kpa * 1.5, color: MARK, dash: [2, 3] });
-      items.push({ fn: () => sp.max_curvature_e, from: sp.max_curvature_stress_kpa, color: MARK, dash: [2, 3] });
-      items.push({ x: sp.sigma_p_kpa, color: MARK, dash: [1, 0], label: "σ′p " + fmt.sig(sp.sigma_p_kpa, 3) + " kPa" });
+      // Casagrande's construction drawn through the points it uses: the horizontal and the tangent pass
+      // through the point of greatest curvature on both sides, the bisector runs from it to where it
+      // meets the virgin line, and that meeting point is σ′p.
+      const m = sp.max_curvature_stress_kpa, p = sp.sigma_p_kpa;
+      const lo = Math.min(m, p) / 2.5, hi = Math.max(m, p) * 2.5;
+      items.push({ fn: () => sp.max_curvature_e, from: lo, to: hi, color: MARK, dash: [2, 3] });
+      items.push({ fn: logLine(sp.tangent), from: m / 2.5, to: m * 2.5, color: MARK, dash: [2, 3] });
+      items.push({ fn: logLine(sp.bisector), from: Math.min(m, p) / 1.2, to: Math.max(m, p) * 1.2, color: MARK, dash: [2, 3] });
+      items.push({ dot: [m, sp.max_curvature_e], color: MARK });
+      items.push({ dot: [p, logLine(sp.virgin)(p)], color: MARK });
+      items.push({ x: p, color: MARK, dash: [1, 0], label: "σ′p " + fmt.sig(p, 3) + " kPa" });
     }
     O.constructions.compression = items;
     // A few points (or one) would get uPlot's wide default range; pad around the data instead.
@@ -222,7 +239,7 @@
         y: { range: (u, lo, hi) => (lo === null || lo === undefined ? [0, 1] : pad(lo, hi, 0.02)) },
       },
       axes: [Object.assign({}, baseAxis, { label: "effective stress σ′, kPa" + (linear ? "" : " (log scale)") }), Object.assign({}, baseAxis, { label: "void ratio e", size: 56, values: (u, v) => v.map((a) => a.toFixed(3)) })],
-      series: [{ label: "σ′ kPa" }, { label: "e", stroke: INK, width: 2, points: { show: true, size: 7, fill: "#fff" }, value: (u, v) => fmt.num(v, 4) }],
+      series: [{ label: "σ′ kPa" }, { label: "e", stroke: INK, width: 0, paths: () => null, points: { show: true, size: 7, fill: "#fff" }, value: (u, v) => fmt.num(v, 4) }],
       hooks: { draw: [overlayHook(() => O.constructions.compression)] },
     }, data);
     const v = [];

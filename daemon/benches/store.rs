@@ -34,13 +34,13 @@ fn rows(n: usize) -> Vec<Reading> {
         .collect()
 }
 
-fn fresh(dir: &std::path::Path, name: &str) -> (std::path::PathBuf, rusqlite::Connection) {
+fn fresh(dir: &std::path::Path, name: &str) -> (std::path::PathBuf, store::Database) {
     let path = dir.join(name);
-    let conn = store::open(&path).expect("open");
+    let db = store::open(&path).expect("open");
     for i in 1..=8 {
-        store::frame_key(&conn, &format!("F{i}"), "bench", 0).expect("frame");
+        store::frame_key(&db, &format!("F{i}"), "bench", 0).expect("frame");
     }
-    (path, conn)
+    (path, db)
 }
 
 fn main() {
@@ -49,8 +49,14 @@ fn main() {
     let data = rows(n);
     let batch = 2_400; // 1 s of 8 frames × 3 channels at 100 Hz: the writer's batches under load
 
-    // Baseline: the same rows, straight into rusqlite, in transactions of `batch`.
-    let (base_path, mut conn) = fresh(dir.path(), "bare.sqlite");
+    // Baseline: the same rows, straight into rusqlite, in transactions of `batch`, on a connection of its
+    // own to the same schema: WAL (kept in the file) and synchronous=FULL (set per connection), as the store.
+    let (base_path, db) = fresh(dir.path(), "bare.sqlite");
+    drop(db);
+    let mut conn = rusqlite::Connection::open(&base_path).expect("reopen");
+    let mode: String = conn.query_row("PRAGMA journal_mode", [], |r| r.get(0)).expect("journal mode");
+    assert_eq!(mode, "wal");
+    conn.pragma_update(None, "synchronous", "FULL").expect("synchronous");
     let started = Instant::now();
     for chunk in data.chunks(batch) {
         let tx = conn.transaction().expect("tx");

@@ -8,8 +8,9 @@ use std::f64::consts::PI;
 use std::path::PathBuf;
 use std::time::{Duration, Instant, SystemTime, UNIX_EPOCH};
 
-use oedolog::store::{self, ChannelKind, Event, Reading, Writer, WriterPolicy};
-use rusqlite::params;
+use oedolog::store::lab_book::{self, ImportedIncrement, ImportedTest};
+use oedolog::store::{self, ChannelKind, Event, EventKind, Reading, TestState, Writer, WriterPolicy};
+use oedolog_core::watch::OnsetSource;
 
 const FRAMES: i64 = 32;
 /// Target stresses of the six increments, kPa (a doubling ladder, common practice).
@@ -90,7 +91,7 @@ impl Seeder {
     }
 }
 
-fn event(at_us: i64, key: i64, kind: &'static str, message: String) -> Event {
+fn event(at_us: i64, key: i64, kind: EventKind, message: String) -> Event {
     Event { at_us, frame_key: Some(key), kind, message, actor: None, data: None }
 }
 
@@ -125,54 +126,46 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         let spread = 0.8 + 0.4 * ((f * 37) % 32) as f64 / 31.0;
         let t90_s = 480.0 + 960.0 * ((f * 13) % 32) as f64 / 31.0;
         let ready = f % 4 != 0;
-        let state = if ready { "ready" } else { "primary" };
+        let state = if ready { TestState::Ready } else { TestState::Primary };
         let specimen = format!("BH{}-U{} {:.1} m", 1 + (f - 1) / 4, 1 + (f - 1) % 4, 2.0 + 0.5 * (f % 9) as f64);
-        let test_id = seeder.writer.run(move |conn| {
-            conn.execute(
-                "INSERT INTO tests (frame_key, specimen, description, height_mm, diameter_mm, dry_mass_g, specific_gravity,
-                     initial_water_content, sigma_v0_kpa, state, started_us, seating_kpa)
-                 VALUES (?1, ?2, 'soft grey silty clay (benchmark seed)', ?3, ?4, ?5, 2.70, ?6, ?7, ?8, ?9, ?10)",
-                params![
-                    key,
-                    specimen,
-                    HEIGHT_MM,
-                    DIAMETER_MM,
-                    88.0 + (f % 5) as f64,
-                    0.38 + 0.01 * (f % 7) as f64,
-                    40.0 + 10.0 * (f % 6) as f64,
-                    state,
-                    test_start_us,
-                    SEATING_KPA
-                ],
-            )?;
-            let test_id = conn.last_insert_rowid();
-            for seq in 1..=6usize {
+        let increments = (1..=6usize)
+            .map(|seq| {
                 let onset = onset_us(seq);
-                let ended = (seq < 6).then(|| onset_us(seq + 1));
-                let ready_us = (seq < 6 || ready).then_some(onset + (1.5 * t90_s / 0.848) as i64 * 1_000_000);
-                let from_kpa = if seq == 1 { SEATING_KPA } else { STRESS_KPA[seq - 2] };
-                conn.execute(
-                    "INSERT INTO increments (test_id, seq, stress_kpa, armed_us, reported_us, onset_us, onset_source, ready_us, ended_us, from_kpa)
-                     VALUES (?1, ?2, ?3, ?4, ?5, ?6, 'load-step', ?7, ?8, ?9)",
-                    params![
-                        test_id,
-                        seq as i64,
-                        STRESS_KPA[seq - 1],
-                        onset - 90_000_000,
-                        onset + 20_000_000,
-                        onset,
-                        ready_us,
-                        ended,
-                        from_kpa
-                    ],
-                )?;
-            }
-            Ok(test_id)
-        })?;
+                ImportedIncrement {
+                    seq: seq as i64,
+                    stress_kpa: STRESS_KPA[seq - 1],
+                    from_kpa: if seq == 1 { SEATING_KPA } else { STRESS_KPA[seq - 2] },
+                    armed_us: onset - 90_000_000,
+                    reported_us: onset + 20_000_000,
+                    onset_us: onset,
+                    onset_source: OnsetSource::LoadStep,
+                    ready_us: (seq < 6 || ready).then_some(onset + (1.5 * t90_s / 0.848) as i64 * 1_000_000),
+                    ended_us: (seq < 6).then(|| onset_us(seq + 1)),
+                }
+            })
+            .collect();
+        let test_id = lab_book::import_test(
+            &seeder.writer,
+            ImportedTest {
+                frame_key: key,
+                specimen,
+                description: "soft grey silty clay (benchmark seed)".into(),
+                height_mm: HEIGHT_MM,
+                diameter_mm: DIAMETER_MM,
+                dry_mass_g: Some(88.0 + (f % 5) as f64),
+                specific_gravity: Some(2.70),
+                initial_water_content: Some(0.38 + 0.01 * (f % 7) as f64),
+                sigma_v0_kpa: Some(40.0 + 10.0 * (f % 6) as f64),
+                state,
+                started_us: test_start_us,
+                seating_kpa: SEATING_KPA,
+                increments,
+            },
+        )?;
         seeder.writer.event(event(
             test_start_us,
             key,
-            "test-started",
+            EventKind::TestStarted,
             format!("test {test_id} started (benchmark seed)"),
         ))?;
 
@@ -193,7 +186,12 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                 seeder.poll(key, onset + t * 1_000_000, d, load_kn)?;
                 polls += 1;
             }
-            seeder.writer.event(event(onset, key, "onset", format!("increment {seq}: onset (benchmark seed)")))?;
+            seeder.writer.event(event(
+                onset,
+                key,
+                EventKind::Onset,
+                format!("increment {seq}: onset (benchmark seed)"),
+            ))?;
             before_mm += increment_settlement_mm(primary_mm, t90_s, span_s as f64);
             if seq == 6 {
                 running_polls.push((f, polls));

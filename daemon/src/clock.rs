@@ -12,9 +12,7 @@ use std::sync::Arc;
 use std::sync::atomic::{AtomicI64, Ordering};
 use std::time::{Duration, Instant};
 
-use rusqlite::Connection;
-
-use crate::store::{self, ChannelKind, Event, StoreError, Writer};
+use crate::store::{Event, EventKind, Reader, StoreError, Writer, read};
 
 /// A wall clock and the steady clock may differ by this much before it counts as a step (NTP slews by
 /// far less; a person or an RTC steps by far more).
@@ -341,7 +339,7 @@ impl ClockStep {
         Event {
             at_us: self.at_us,
             frame_key: None,
-            kind: "clock-step",
+            kind: EventKind::ClockStep,
             message: format!(
                 "the system clock stepped {step_s:+.3} s (it now reads {offset_s:+.3} s from the readings' clock, {}); \
                  stamps keep following the steady clock, so running increments need nothing. If the step was a \
@@ -377,7 +375,7 @@ impl ClockBehind {
         Event {
             at_us: self.resumed_us,
             frame_key: None,
-            kind: "clock-behind",
+            kind: EventKind::ClockBehind,
             message: format!(
                 "the system clock read {}, {gap_s:.3} s before the newest stored instant {}: stamps continue \
                  from just after it, so readings stay in order; elapsed time across this restart is short by the \
@@ -397,16 +395,8 @@ impl ClockBehind {
 /// went back across a restart), moves it on to just after that instant, so the running increment's
 /// readings stay in order. Cheap: each (frame, channel)'s newest reading is one step down the primary
 /// key, and events are indexed by time.
-pub fn resume_after_store(conn: &Connection, clock: &dyn Clock) -> Result<Option<ClockBehind>, StoreError> {
-    let mut newest: Option<i64> = conn.query_row("SELECT MAX(at_us) FROM events", [], |r| r.get(0))?;
-    let keys: Vec<i64> =
-        conn.prepare("SELECT key FROM frames")?.query_map([], |r| r.get(0))?.collect::<Result<_, _>>()?;
-    for key in keys {
-        for channel in ChannelKind::ALL {
-            newest = newest.max(store::latest_reading(conn, key, channel)?.map(|(at_us, _)| at_us));
-        }
-    }
-    let Some(newest_us) = newest else { return Ok(None) };
+pub fn resume_after_store(conn: &Reader, clock: &dyn Clock) -> Result<Option<ClockBehind>, StoreError> {
+    let Some(newest_us) = read::newest_instant(conn)? else { return Ok(None) };
     let read_us = clock.now_us();
     if read_us > newest_us || !clock.resume_after(newest_us) {
         return Ok(None);
@@ -440,6 +430,7 @@ pub fn rfc3339(at_us: i64) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::store::{self, ChannelKind};
 
     /// 2025-10-26T00:00:00Z, an arbitrary start for the manual wall clock.
     const T0_US: i64 = 1_761_436_800_000_000;
@@ -581,7 +572,7 @@ mod tests {
         wall.advance_us(1_000_000);
         assert_eq!(clock.check_wall().map(|s| s.step_us), Some(2_500_000));
         let event = back.event();
-        assert_eq!(event.kind, "clock-step");
+        assert_eq!(event.kind, EventKind::ClockStep);
         assert!(event.message.contains("-3600.000 s") && event.message.contains("restart"), "{}", event.message);
         assert_eq!(event.data.unwrap()["step_s"], -3600.0);
     }
@@ -657,7 +648,7 @@ mod tests {
             .event(Event {
                 at_us: newest_us - 30_000_000,
                 frame_key: None,
-                kind: "daemon-stop",
+                kind: EventKind::DaemonStop,
                 message: "power cut".into(),
                 actor: None,
                 data: None,
@@ -667,10 +658,9 @@ mod tests {
         thread.close();
     }
 
-    fn events(path: &std::path::Path) -> Vec<(i64, String, Option<String>)> {
+    fn events(path: &std::path::Path) -> Vec<(i64, EventKind, Option<serde_json::Value>)> {
         let conn = store::reader(path).unwrap();
-        let mut statement = conn.prepare("SELECT at_us, kind, data FROM events ORDER BY rowid").unwrap();
-        statement.query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?))).unwrap().map(|r| r.unwrap()).collect()
+        store::testing::journal(&conn).into_iter().map(|e| (e.at_us, e.kind, e.data)).collect()
     }
 
     #[test]
@@ -694,7 +684,7 @@ mod tests {
         let empty = store::open(&dir.path().join("empty.sqlite")).unwrap();
         assert_eq!(resume_after_store(&empty, &clock).unwrap(), None);
         let event = behind.event();
-        assert_eq!((event.kind, event.at_us), ("clock-behind", newest_us + 1));
+        assert_eq!((event.kind, event.at_us), (EventKind::ClockBehind, newest_us + 1));
         assert!(event.message.contains("10800.000 s") && event.message.contains("NTP"), "{}", event.message);
     }
 
@@ -714,13 +704,16 @@ mod tests {
         running.stop("test over");
         let journal: Vec<_> = events(&path)
             .into_iter()
-            .filter(|e| ["daemon-start", "daemon-stop", "clock-behind", "clock-step"].contains(&e.1.as_str()))
+            .filter(|e| {
+                [EventKind::DaemonStart, EventKind::DaemonStop, EventKind::ClockBehind, EventKind::ClockStep]
+                    .contains(&e.1)
+            })
             .collect();
-        let kinds: Vec<&str> = journal.iter().map(|e| e.1.as_str()).collect();
+        let kinds: Vec<&str> = journal.iter().map(|e| e.1.name()).collect();
         assert_eq!(kinds, ["daemon-stop", "daemon-start", "clock-behind", "daemon-stop"], "no clock-step either");
         assert!(journal[1..].iter().all(|e| e.0 > newest_us), "everything after the restart stamped after the store");
         assert!(journal.windows(2).all(|w| w[0].0 <= w[1].0), "in order: {journal:?}");
-        let data: serde_json::Value = serde_json::from_str(journal[2].2.as_deref().unwrap()).unwrap();
+        let data = journal[2].2.as_ref().unwrap();
         assert_eq!(data["gap_s"], 10_800.0);
         assert_eq!(journal[3].0, newest_us + 1 + 1_000_000, "the stop is one second of steady time later");
     }
@@ -759,7 +752,7 @@ mod tests {
         wall.advance_us(-HOUR_US);
         let steps = || {
             thread.writer().sync().unwrap();
-            events(&path).into_iter().filter(|e| e.1 == "clock-step").collect::<Vec<_>>()
+            events(&path).into_iter().filter(|e| e.1 == EventKind::ClockStep).collect::<Vec<_>>()
         };
         until("a clock-step entry", || !steps().is_empty()).await;
         // Ten more checks of the unchanged wall clock add nothing.
@@ -768,7 +761,7 @@ mod tests {
         task.abort();
         let steps = steps();
         assert_eq!(steps.len(), 1, "{steps:?}");
-        let data: serde_json::Value = serde_json::from_str(steps[0].2.as_deref().unwrap()).unwrap();
+        let data = steps[0].2.as_ref().unwrap();
         assert_eq!(data["step_s"], -3600.0);
         assert_eq!(steps[0].0, T0_US, "stamped on the steady clock");
         thread.close();

@@ -18,7 +18,8 @@ use crate::config::{
     Bus, BusKind, Calibration, Channel, Config, Frame, Loading, LogConfig, PollSchedule, StoreConfig, TcpLink,
 };
 use crate::lab::Specimen;
-use crate::service::{self, Options, Running};
+use crate::service::{self, Options, Running, StartError};
+use crate::watch::HubError;
 
 /// Demo settings from the command line.
 #[derive(Clone, Debug)]
@@ -134,10 +135,33 @@ pub fn demo_config(
     }
 }
 
+/// Why the demo could not start.
+#[derive(Debug, thiserror::Error)]
+pub enum DemoError {
+    /// The simulated frames could not be built.
+    #[error("the simulated frames: {0}")]
+    Simulation(#[from] oedolog_sim::physics::ModelError),
+    /// The simulator's loopback port could not be bound.
+    #[error("cannot listen for the simulator on 127.0.0.1: {0}")]
+    SimulatorPort(#[source] std::io::Error),
+    /// The daemon could not start.
+    #[error(transparent)]
+    Start(#[from] StartError),
+    /// A frame's demo test could not be started.
+    #[error("frame {frame}: cannot start its demo test: {source}")]
+    Test {
+        /// The frame's config index.
+        frame: usize,
+        /// Why.
+        source: HubError,
+    },
+    /// A set-up task stopped.
+    #[error("the demo's set-up task stopped: {0}")]
+    Task(#[from] tokio::task::JoinError),
+}
+
 /// Starts the demo; returns the running daemon (the simulator runs on the same runtime).
-pub async fn start(
-    options: DemoOptions,
-) -> Result<(Running, Arc<dyn Clock>), Box<dyn std::error::Error + Send + Sync>> {
+pub async fn start(options: DemoOptions) -> Result<(Running, Arc<dyn Clock>), DemoError> {
     let start_us = SystemClock.now_us();
     let scaled = Arc::new(ScaledClock::new(start_us, options.speed));
     let clock: Arc<dyn Clock> = scaled.clone();
@@ -157,8 +181,8 @@ pub async fn start(
             }
         })
         .collect();
-    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await?;
-    let sim_addr = listener.local_addr()?;
+    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.map_err(DemoError::SimulatorPort)?;
+    let sim_addr = listener.local_addr().map_err(DemoError::SimulatorPort)?;
     let config = demo_config(
         &sim,
         sim_addr,
@@ -176,7 +200,8 @@ pub async fn start(
             hub.finish_test(i, "the demo restarted")?;
             hub.start_test(i, specimen, oedolog_sim::scenario::SEATING_KPA, Some("demo".into()))
         })
-        .await??;
+        .await?
+        .map_err(|source| DemoError::Test { frame: i, source })?;
     }
     let shared_for_arming = shared.clone();
     tokio::spawn(run_schedules(shared, Duration::from_millis(50), |_, _, _| {}));

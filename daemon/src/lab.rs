@@ -6,10 +6,11 @@
 
 use std::sync::{Arc, RwLock};
 
-use rusqlite::{Connection, OptionalExtension, params};
 use serde::Serialize;
 
-use crate::store::{ChannelKind, Event, StoreError, Writer, latest_reading};
+use crate::store::lab_book::{self, NewTest, Step};
+use crate::store::{ChannelKind, Event, EventKind, Reader, StoreError, TestState, Writer, latest_reading};
+use oedolog_core::watch::OnsetSource;
 
 /// Specimen data of a new test.
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -36,7 +37,7 @@ pub struct RunningTest {
     /// The specimen reference.
     pub specimen: String,
     /// One of `seating`, `armed`, `primary`, `ready`.
-    pub state: String,
+    pub state: TestState,
     /// Current increment number (0 under seating only).
     pub increment: i64,
     /// Its target stress, kPa.
@@ -65,53 +66,29 @@ pub struct Lab {
     writer: Writer,
 }
 
-fn load_running(conn: &Connection, frame_key: i64) -> Result<Option<RunningTest>, StoreError> {
-    let test = conn
-        .query_row(
-            "SELECT id, specimen, state, started_us, height_mm, coalesce(seating_kpa, 0) FROM tests
-             WHERE frame_key = ?1 AND finished_us IS NULL",
-            [frame_key],
-            |r| {
-                Ok((
-                    r.get::<_, i64>(0)?,
-                    r.get::<_, String>(1)?,
-                    r.get::<_, String>(2)?,
-                    r.get::<_, i64>(3)?,
-                    r.get::<_, f64>(4)?,
-                    r.get::<_, f64>(5)?,
-                ))
-            },
-        )
-        .optional()?;
-    let Some((test_id, specimen, state, started_us, height_mm, seating_kpa)) = test else { return Ok(None) };
-    type Row = (i64, f64, Option<i64>, Option<i64>, Option<i64>, Option<f64>);
-    let increment: Option<Row> = conn
-        .query_row(
-            "SELECT seq, stress_kpa, onset_us, armed_us, ready_us, from_kpa FROM increments WHERE test_id = ?1 ORDER BY seq DESC LIMIT 1",
-            [test_id],
-            |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?, r.get(4)?, r.get(5)?)),
-        )
-        .optional()?;
+fn load_running(conn: &Reader, frame_key: i64) -> Result<Option<RunningTest>, StoreError> {
+    let Some(test) = lab_book::open_test(conn, frame_key)? else { return Ok(None) };
+    let increment = test.increment;
     Ok(Some(RunningTest {
-        test_id,
-        specimen,
-        state,
-        increment: increment.map_or(0, |i| i.0),
-        stress_kpa: increment.map(|i| i.1),
-        onset_us: increment.and_then(|i| i.2),
-        armed_us: increment.and_then(|i| i.3),
-        ready_us: increment.and_then(|i| i.4),
-        from_kpa: increment.and_then(|i| i.5),
-        started_us,
-        height_mm,
-        seating_kpa,
+        test_id: test.test_id,
+        specimen: test.specimen,
+        state: test.state,
+        increment: increment.map_or(0, |i| i.seq),
+        stress_kpa: increment.map(|i| i.stress_kpa),
+        onset_us: increment.and_then(|i| i.onset_us),
+        armed_us: increment.and_then(|i| i.armed_us),
+        ready_us: increment.and_then(|i| i.ready_us),
+        from_kpa: increment.and_then(|i| i.from_kpa),
+        started_us: test.started_us,
+        height_mm: test.height_mm,
+        seating_kpa: test.seating_kpa,
     }))
 }
 
 impl Lab {
     /// Loads the running tests of frames `keys` (config order) and journals, for each, that it resumed
     /// and how long the gap since its last reading was.
-    pub fn resume(conn: &Connection, keys: Vec<i64>, writer: Writer, now_us: i64) -> Result<Lab, StoreError> {
+    pub fn resume(conn: &Reader, keys: Vec<i64>, writer: Writer, now_us: i64) -> Result<Lab, StoreError> {
         let mut running = Vec::new();
         for &key in &keys {
             let test = load_running(conn, key)?;
@@ -123,7 +100,7 @@ impl Lab {
                 writer.event(Event {
                     at_us: now_us,
                     frame_key: Some(key),
-                    kind: "test-resumed",
+                    kind: EventKind::TestResumed,
                     message: format!(
                         "test {} ({}) resumed in state {}, increment {}: {gap}",
                         t.test_id, t.specimen, t.state, t.increment
@@ -152,25 +129,25 @@ impl Lab {
         actor: Option<String>,
     ) -> Result<RunningTest, StoreError> {
         let key = self.keys[index];
-        let s = specimen.clone();
-        let who = actor.clone();
-        let test_id = self.writer.run(move |conn| {
-            conn.execute(
-                "INSERT INTO tests (frame_key, specimen, description, height_mm, diameter_mm, dry_mass_g, specific_gravity, started_us, seating_kpa)
-                 VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
-                params![key, s.specimen, s.description, s.height_mm, s.diameter_mm, s.dry_mass_g, s.specific_gravity, now_us, seating_kpa],
-            )?;
-            let id = conn.last_insert_rowid();
-            conn.execute(
-                "INSERT INTO events (at_us, frame_key, kind, message, actor) VALUES (?1, ?2, 'test-started', ?3, ?4)",
-                params![now_us, key, format!("test {id} started: specimen {}", s.specimen), who],
-            )?;
-            Ok(id)
-        })?;
+        let test_id = lab_book::start_test(
+            &self.writer,
+            NewTest {
+                frame_key: key,
+                specimen: specimen.specimen.clone(),
+                description: specimen.description,
+                height_mm: specimen.height_mm,
+                diameter_mm: specimen.diameter_mm,
+                dry_mass_g: specimen.dry_mass_g,
+                specific_gravity: specimen.specific_gravity,
+                seating_kpa,
+                started_us: now_us,
+                actor,
+            },
+        )?;
         let test = RunningTest {
             test_id,
             specimen: specimen.specimen,
-            state: "seating".into(),
+            state: TestState::Seating,
             increment: 0,
             stress_kpa: None,
             onset_us: None,
@@ -189,22 +166,13 @@ impl Lab {
     pub fn finish_test(&self, index: usize, now_us: i64, why: &str) -> Result<(), StoreError> {
         let Some(test) = self.snapshot()[index].clone() else { return Ok(()) };
         let key = self.keys[index];
-        let why = why.to_string();
-        self.writer.run(move |conn| {
-            conn.execute(
-                "UPDATE increments SET ended_us = ?2 WHERE test_id = ?1 AND ended_us IS NULL",
-                params![test.test_id, now_us],
-            )?;
-            conn.execute(
-                "UPDATE tests SET finished_us = ?2, state = 'finished' WHERE id = ?1",
-                params![test.test_id, now_us],
-            )?;
-            conn.execute(
-                "INSERT INTO events (at_us, frame_key, kind, message) VALUES (?1, ?2, 'test-finished', ?3)",
-                params![now_us, key, format!("test {} finished: {why}", test.test_id)],
-            )?;
-            Ok(())
-        })?;
+        lab_book::finish_test(
+            &self.writer,
+            test.test_id,
+            key,
+            now_us,
+            format!("test {} finished: {why}", test.test_id),
+        )?;
         self.running.write().unwrap_or_else(|e| e.into_inner())[index] = None;
         Ok(())
     }
@@ -215,18 +183,9 @@ impl Lab {
         let key = self.keys[index];
         let seq = test.increment + 1;
         let from_kpa = test.stress_kpa.unwrap_or(test.seating_kpa);
-        self.writer.run(move |conn| {
-            conn.execute(
-                "INSERT INTO increments (test_id, seq, stress_kpa, armed_us, from_kpa) VALUES (?1, ?2, ?3, ?4, ?5)",
-                params![test.test_id, seq, stress_kpa, now_us, from_kpa],
-            )?;
-            conn.execute("UPDATE tests SET state = 'armed' WHERE id = ?1", [test.test_id])?;
-            conn.execute(
-                "INSERT INTO events (at_us, frame_key, kind, message, actor) VALUES (?1, ?2, 'armed', ?3, ?4)",
-                params![now_us, key, format!("increment {seq}: {stress_kpa} kPa armed (from {from_kpa} kPa)"), actor],
-            )?;
-            Ok(())
-        })?;
+        let message = format!("increment {seq}: {stress_kpa} kPa armed (from {from_kpa} kPa)");
+        let step = Step { test_id: test.test_id, frame_key: key, seq };
+        lab_book::arm_increment(&self.writer, step, stress_kpa, from_kpa, now_us, actor, message)?;
         self.update(index, |t| {
             t.increment = seq;
             t.from_kpa = Some(from_kpa);
@@ -234,35 +193,26 @@ impl Lab {
             t.armed_us = Some(now_us);
             t.onset_us = None;
             t.ready_us = None;
-            t.state = "armed".into();
+            t.state = TestState::Armed;
         });
         Ok(())
     }
 
     /// The watch found the onset of the armed increment: t0 stored, the previous increment ended, state `primary`.
-    pub fn set_onset(&self, index: usize, onset_us: i64, source: &str, message: String) -> Result<(), StoreError> {
+    pub fn set_onset(
+        &self,
+        index: usize,
+        onset_us: i64,
+        source: OnsetSource,
+        message: String,
+    ) -> Result<(), StoreError> {
         let Some(test) = self.snapshot()[index].clone() else { return Ok(()) };
         let key = self.keys[index];
-        let source = source.to_string();
-        self.writer.run(move |conn| {
-            conn.execute(
-                "UPDATE increments SET ended_us = ?2 WHERE test_id = ?1 AND ended_us IS NULL AND seq < ?3",
-                params![test.test_id, onset_us, test.increment],
-            )?;
-            conn.execute(
-                "UPDATE increments SET onset_us = ?3, onset_source = ?4 WHERE test_id = ?1 AND seq = ?2",
-                params![test.test_id, test.increment, onset_us, source],
-            )?;
-            conn.execute("UPDATE tests SET state = 'primary' WHERE id = ?1", [test.test_id])?;
-            conn.execute(
-                "INSERT INTO events (at_us, frame_key, kind, message) VALUES (?1, ?2, 'onset', ?3)",
-                params![onset_us, key, message],
-            )?;
-            Ok(())
-        })?;
+        let step = Step { test_id: test.test_id, frame_key: key, seq: test.increment };
+        lab_book::record_onset(&self.writer, step, onset_us, source, message)?;
         self.update(index, |t| {
             t.onset_us = Some(onset_us);
-            t.state = "primary".into();
+            t.state = TestState::Primary;
         });
         Ok(())
     }
@@ -271,21 +221,11 @@ impl Lab {
     pub fn set_ready(&self, index: usize, at_us: i64, message: String) -> Result<(), StoreError> {
         let Some(test) = self.snapshot()[index].clone() else { return Ok(()) };
         let key = self.keys[index];
-        self.writer.run(move |conn| {
-            conn.execute(
-                "UPDATE increments SET ready_us = ?3 WHERE test_id = ?1 AND seq = ?2",
-                params![test.test_id, test.increment, at_us],
-            )?;
-            conn.execute("UPDATE tests SET state = 'ready' WHERE id = ?1", [test.test_id])?;
-            conn.execute(
-                "INSERT INTO events (at_us, frame_key, kind, message) VALUES (?1, ?2, 'ready', ?3)",
-                params![at_us, key, message],
-            )?;
-            Ok(())
-        })?;
+        let step = Step { test_id: test.test_id, frame_key: key, seq: test.increment };
+        lab_book::record_ready(&self.writer, step, at_us, message)?;
         self.update(index, |t| {
             t.ready_us = Some(at_us);
-            t.state = "ready".into();
+            t.state = TestState::Ready;
         });
         Ok(())
     }

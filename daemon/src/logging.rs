@@ -1,5 +1,7 @@
 //! Logging through tracing: readable lines on stderr, and optionally a daily-rotated file.
 
+use std::io::IsTerminal;
+
 use tracing_subscriber::EnvFilter;
 use tracing_subscriber::layer::SubscriberExt;
 use tracing_subscriber::util::SubscriberInitExt;
@@ -16,7 +18,10 @@ pub fn init(config: &LogConfig) -> Result<LogGuard, String> {
     let filter = EnvFilter::try_from_default_env()
         .or_else(|_| EnvFilter::try_new(&config.level))
         .map_err(|e| format!("log.level `{}`: {e}", config.level))?;
-    let stderr = tracing_subscriber::fmt::layer().with_writer(std::io::stderr).with_target(false);
+    // Colour only for a person at a terminal: a file, a pipe or journald gets plain text (and NO_COLOR,
+    // https://no-color.org, turns colour off everywhere).
+    let ansi = std::io::stderr().is_terminal() && std::env::var_os("NO_COLOR").is_none_or(|v| v.is_empty());
+    let stderr = tracing_subscriber::fmt::layer().with_writer(std::io::stderr).with_target(false).with_ansi(ansi);
     let (file, guard) = match &config.dir {
         None => (None, None),
         Some(dir) => {

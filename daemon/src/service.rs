@@ -14,8 +14,9 @@ use crate::clock::Clock;
 use crate::config::Config;
 use crate::http::{AppState, router};
 use crate::lab::Lab;
-use crate::store::{self, CommitReport, Event, StoreError, Writer, WriterPolicy, WriterThread};
+use crate::store::{self, CommitReport, Event, EventKind, StoreError, Writer, WriterPolicy, WriterThread};
 use crate::watch::{Hub, WatchParams};
+use oedolog_core::alarms::{Code, Subject};
 
 /// Why the daemon could not start.
 #[derive(Debug, thiserror::Error)]
@@ -33,6 +34,14 @@ pub enum StartError {
     Exposed {
         /// The address.
         addr: SocketAddr,
+    },
+    /// A thread of the daemon could not be started.
+    #[error("cannot start the {name} thread: {source}")]
+    Thread {
+        /// The thread's name.
+        name: &'static str,
+        /// Why.
+        source: std::io::Error,
     },
     /// The HTTP address could not be bound.
     #[error("cannot listen on {addr}: {source}")]
@@ -74,8 +83,24 @@ pub fn commit_line(report: &CommitReport) -> String {
     format!("committed batch={} readings={} total={} last={last}", report.batch, report.readings, report.total_readings)
 }
 
-/// Starts everything the configuration describes.
-pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> Result<Running, StartError> {
+/// A daemon assembled from its configuration: the store open, the writer running, the lab book, the live
+/// watch and the alarm board resumed from what is stored, and the HTTP state built on them — but no bus
+/// polled, no task spawned and no port bound yet. `oedolog run`, the demo and the in-process HTTP tests
+/// all build the service through [`assemble`]; `run` and the demo then [`Assembled::start`] it.
+pub struct Assembled {
+    /// What the HTTP routes serve (live view, lab book, hub, writer, clock, caches, alarm board).
+    pub state: AppState,
+    /// `frames.key` of each configured frame, in config order.
+    pub keys: Vec<i64>,
+    /// The writer thread; closing it commits what is queued.
+    pub writer_thread: WriterThread,
+    /// Alarms an earlier run left open (already on the board), for the alarm task.
+    open_alarms: Vec<(Subject, Code, i64)>,
+}
+
+/// Builds the service the configuration describes (see [`Assembled`]). The start and resume entries of
+/// the journal are committed before it returns.
+pub fn assemble(config: &Config, clock: Arc<dyn Clock>, options: Options) -> Result<Assembled, StartError> {
     let store_config = config.store.as_ref().ok_or(StartError::NoStore)?;
     // Checked again here, not only in the config: the demo's --listen bypasses the file.
     if config.http.users.is_empty() && !config.http.listen.ip().is_loopback() {
@@ -101,7 +126,7 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
     writer.event(Event {
         at_us: now,
         frame_key: None,
-        kind: "daemon-start",
+        kind: EventKind::DaemonStart,
         message: format!(
             "oedolog {} started with {} frame(s) on {} bus(es)",
             env!("CARGO_PKG_VERSION"),
@@ -117,15 +142,14 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
     let lab = Lab::resume(&reader, keys.clone(), writer.clone(), now)?;
     let areas = config.frames.iter().map(|f| f.ring_area_mm2).collect();
     let hub = Hub::resume(&reader, lab.clone(), writer.clone(), clock.clone(), areas, WatchParams::default())?;
+    // Alarms: what an earlier run left open goes on the board first, so it is neither lost nor raised twice.
+    let alarms = AlarmBoard::default();
+    let open = crate::alarms::task::load_open(&reader, &keys)?;
+    alarms.update(|board, _| board.extend(open.iter().map(|(_, _, v)| v.clone())));
+    let open_alarms = open.into_iter().map(|(s, c, v)| (s, c, v.id)).collect();
     drop(reader);
     // The start and resume entries are committed before the daemon says it is listening.
     writer.sync()?;
-    let (tap, taps) = std::sync::mpsc::channel();
-    let hub_thread = hub.clone();
-    std::thread::Builder::new()
-        .name("oedolog-watch".into())
-        .spawn(move || hub_thread.run(taps))
-        .map_err(|e| StoreError::Folder { path: "watch thread".into(), source: e })?;
     let live = Live::new(
         config
             .frames
@@ -134,69 +158,86 @@ pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> 
             .map(|(f, &key)| LiveFrame { id: f.id.clone(), name: f.name.clone(), key, ..Default::default() })
             .collect(),
     );
-    let sinks = Sinks { writer: writer.clone(), live: live.clone(), clock: clock.clone(), tap: Some(tap) };
-    let mut tasks = spawn_buses(config, &keys, &sinks);
-    if clock.wall_offset_s().is_some() {
-        let period = crate::clock::WALL_CHECK_PERIOD;
-        tasks.push(tokio::spawn(crate::clock::journal_wall_steps(clock.clone(), writer.clone(), period)));
-    }
-    // After the start entries are committed: a webhook seen for the first time starts after them.
-    let notify = crate::notify::start(
-        &config.notify.webhooks,
-        &store_config.path,
-        &writer,
-        clock.clone(),
-        crate::notify::NotifyPolicy::default(),
-    )?;
-    tasks.push(notify);
-    let listener = TcpListener::bind(config.http.listen)
-        .await
-        .map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
-    let http_addr = listener.local_addr().map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
     // Offline after ten steady periods without a valid reading, and never under 30 s of clock time.
     let stale_after: Vec<Duration> =
         config.frames.iter().map(|f| (f.poll.steady * 10).max(Duration::from_secs(30))).collect();
-    // Alarms: what an earlier run left open goes on the board first, so it is neither lost nor raised twice.
-    let alarms = AlarmBoard::default();
-    let open = {
-        let reader = store::reader(&store_config.path)?;
-        crate::alarms::task::load_open(&reader, &keys)?
-    };
-    alarms.update(|board, _| board.extend(open.iter().map(|(_, _, v)| v.clone())));
-    let sources = AlarmSources {
-        live: live.clone(),
-        lab: lab.clone(),
-        hub: hub.clone(),
-        clock: clock.clone(),
-        writer: writer.clone(),
-        stale_after: stale_after.clone(),
-        keys: keys.clone(),
-        facts: FrameFacts::of(config),
-    };
-    let open = open.into_iter().map(|(s, c, v)| (s, c, v.id)).collect();
-    tasks.push(tokio::spawn(AlarmTask::new(sources, config.alarms.clone(), alarms.clone(), open).run()));
     let state = AppState {
-        live: live.clone(),
-        lab: lab.clone(),
-        hub: hub.clone(),
-        clock: clock.clone(),
+        live,
+        lab,
+        hub,
+        clock,
         stale_after,
         started_us: now,
-        writer: writer.clone(),
+        writer,
         store_path: store_config.path.clone(),
         frames: Arc::new(config.frames.clone()),
         users: Arc::new(config.http.users.clone()),
         caches: Default::default(),
         alarms,
     };
-    let app = router(state);
-    tasks.push(tokio::spawn(async move {
-        if let Err(error) = axum::serve(listener, app).await {
-            tracing::error!("http server stopped: {error}");
+    Ok(Assembled { state, keys, writer_thread, open_alarms })
+}
+
+/// Assembles and starts everything the configuration describes.
+pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> Result<Running, StartError> {
+    assemble(config, clock, options)?.start(config).await
+}
+
+impl Assembled {
+    /// Starts the assembled daemon: the watch thread fed by acquisition, the bus tasks, the clock's step
+    /// journal, the webhooks, the alarm task and the HTTP server on `config.http.listen`.
+    pub async fn start(self, config: &Config) -> Result<Running, StartError> {
+        let Assembled { state, keys, writer_thread, open_alarms } = self;
+        let (writer, clock, hub, live, lab) =
+            (state.writer.clone(), state.clock.clone(), state.hub.clone(), state.live.clone(), state.lab.clone());
+        let (tap, taps) = std::sync::mpsc::channel();
+        let hub_thread = hub.clone();
+        std::thread::Builder::new()
+            .name("oedolog-watch".into())
+            .spawn(move || hub_thread.run(taps))
+            .map_err(|source| StartError::Thread { name: "oedolog-watch", source })?;
+        let sinks = Sinks { writer: writer.clone(), live: live.clone(), clock: clock.clone(), tap: Some(tap) };
+        let mut tasks = spawn_buses(config, &keys, &sinks);
+        if clock.wall_offset_s().is_some() {
+            let period = crate::clock::WALL_CHECK_PERIOD;
+            tasks.push(tokio::spawn(crate::clock::journal_wall_steps(clock.clone(), writer.clone(), period)));
         }
-    }));
-    drop(sinks);
-    Ok(Running { live, lab, hub, writer, http_addr, writer_thread, tasks, clock })
+        // After the start entries are committed: a webhook seen for the first time starts after them.
+        let notify = crate::notify::start(
+            &config.notify.webhooks,
+            &state.store_path,
+            &writer,
+            clock.clone(),
+            crate::notify::NotifyPolicy::default(),
+        )?;
+        tasks.push(notify);
+        let listener = TcpListener::bind(config.http.listen)
+            .await
+            .map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
+        let http_addr =
+            listener.local_addr().map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
+        let sources = AlarmSources {
+            live: live.clone(),
+            lab: lab.clone(),
+            hub: hub.clone(),
+            clock: clock.clone(),
+            writer: writer.clone(),
+            stale_after: state.stale_after.clone(),
+            keys: keys.clone(),
+            facts: FrameFacts::of(config),
+        };
+        tasks.push(tokio::spawn(
+            AlarmTask::new(sources, config.alarms.clone(), state.alarms.clone(), open_alarms).run(),
+        ));
+        let app = router(state);
+        tasks.push(tokio::spawn(async move {
+            if let Err(error) = axum::serve(listener, app).await {
+                tracing::error!("http server stopped: {error}");
+            }
+        }));
+        drop(sinks);
+        Ok(Running { live, lab, hub, writer, http_addr, writer_thread, tasks, clock })
+    }
 }
 
 impl Running {
@@ -208,7 +249,7 @@ impl Running {
         let _ = self.writer.event(Event {
             at_us: self.clock.now_us(),
             frame_key: None,
-            kind: "daemon-stop",
+            kind: EventKind::DaemonStop,
             message: format!("oedolog stopped: {why}"),
             actor: None,
             data: None,

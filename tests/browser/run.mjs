@@ -140,6 +140,15 @@ try {
       head: document.getElementById("head").dataset.frameId,
     }));
     check(info.head === id, "frame page shows " + info.head + ", not " + id);
+    // The e–log σ′ curve is drawn as a path in the order of the test, not in order of stress.
+    const path = await page.evaluate(async () => {
+      const drawn = (window.oedolog.constructions.compression || []).find((it) => it.path);
+      const r = await (await fetch("/api/tests/" + window.oedolog.frame.test.test_id + "/compression")).json();
+      const api = ((r.compression || {}).points || []).map((q) => q.stress_kpa);
+      return { drawn: drawn ? drawn.path.map((q) => q[0]) : null, api };
+    });
+    check(path.drawn && path.drawn.length >= 2, "no e–log σ′ path drawn: " + JSON.stringify(path));
+    check(JSON.stringify(path.drawn) === JSON.stringify(path.api.slice(0, path.drawn.length)), "e–log σ′ path not in test order: " + JSON.stringify(path));
     check(info.logt > 5 && info.sqrt > 5, "time curves without readings: " + JSON.stringify(info));
     check(info.rows >= 2, "load-step table rows: " + info.rows);
     const bytes = await pageWeight(page);

@@ -3,9 +3,7 @@
 //! only; it must not touch the store, the clock or a frame.
 
 use divan::{Bencher, black_box};
-use oedolog_core::analysis::curve::TimeCurve;
-use oedolog_core::analysis::increment::{IncrementParams, reduce_curve, reduce_increment};
-use oedolog_core::analysis::terzaghi::degree_of_consolidation;
+use oedolog_core::analysis::{IncrementParams, TimeCurve, degree_of_consolidation, reduce_curve, reduce_increment};
 
 fn main() {
     divan::main();

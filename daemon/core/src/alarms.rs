@@ -41,9 +41,9 @@ pub struct AlarmRules {
     /// The window over which that share is taken.
     pub bus_window: Duration,
     /// Fewest requests in the window before a share is judged.
-    pub bus_min_requests: u64,
+    pub(crate) bus_min_requests: u64,
     /// A refused value keeps `out-of-range` raised this long after the last one.
-    pub refused_hold: Duration,
+    pub(crate) refused_hold: Duration,
 }
 
 impl Default for AlarmRules {
@@ -221,7 +221,8 @@ impl AlarmEngine {
     }
 
     /// Whether an alarm is open.
-    pub fn is_open(&self, subject: &Subject, code: Code) -> bool {
+    #[cfg(test)]
+    pub(crate) fn is_open(&self, subject: &Subject, code: Code) -> bool {
         self.open.contains_key(&(subject.clone(), code))
     }
 

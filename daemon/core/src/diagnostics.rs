@@ -21,7 +21,7 @@ fn floor_char_boundary(source: &str, offset: usize) -> usize {
 }
 
 /// `line L, column C: ` for a place, nothing without one (for messages that start with the place).
-pub fn at_prefix(at: Option<(usize, usize)>) -> String {
+pub(crate) fn at_prefix(at: Option<(usize, usize)>) -> String {
     at.map(|(l, c)| format!("line {l}, column {c}: ")).unwrap_or_default()
 }
 

@@ -22,9 +22,10 @@ use crate::analysis::{
 use crate::diagnostics::{at_prefix, field_at, line_column};
 
 /// The one header a time-curve CSV may have: minutes since the load went on, compression positive in mm.
-pub const CSV_HEADER: &str = "time_min,displacement_mm";
+#[cfg(test)]
+const CSV_HEADER: &str = "time_min,displacement_mm";
 /// Largest drainage path `analyze increment` accepts, mm (a 2 m specimen is no oedometer specimen).
-pub const MAX_DRAINAGE_PATH_MM: f64 = 1000.0;
+pub(crate) const MAX_DRAINAGE_PATH_MM: f64 = 1000.0;
 /// Largest stress a test file may give, kPa (the analysis refuses more).
 const MAX_STRESS_KPA: f64 = 1e6;
 
@@ -33,7 +34,7 @@ const MAX_STRESS_KPA: f64 = 1e6;
 
 /// What is wrong with a time-curve CSV, without where (see [`CsvError`]).
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
-pub enum CsvProblem {
+pub(crate) enum CsvProblem {
     /// Nothing in the file, not even the header.
     #[error("the file is empty; its first line must be the header `time_min,displacement_mm`")]
     Empty,
@@ -107,9 +108,9 @@ pub enum CsvProblem {
 #[error("{}{problem}", at_line(*.line))]
 pub struct CsvError {
     /// 1-based line, counting the header as line 1.
-    pub line: Option<usize>,
+    pub(crate) line: Option<usize>,
     /// What is wrong.
-    pub problem: CsvProblem,
+    pub(crate) problem: CsvProblem,
 }
 
 fn at_line(line: Option<usize>) -> String {
@@ -190,10 +191,10 @@ pub enum OfflineError {
 // ---------------------------------------------------------------------------------------------------------
 // The time-curve CSV
 
-/// Parses a time-curve CSV: the header [`CSV_HEADER`], then one `time_min,displacement_mm` reading a line.
+/// Parses a time-curve CSV: the header `time_min,displacement_mm`, then one such reading a line.
 /// Spaces around fields, a UTF-8 byte-order mark, CRLF line ends and blank lines are allowed; times must not
 /// decrease, be negative or be anything but finite decimal numbers.
-pub fn parse_readings(text: &str) -> Result<Vec<(f64, f64)>, CsvError> {
+pub(crate) fn parse_readings(text: &str) -> Result<Vec<(f64, f64)>, CsvError> {
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
     let mut lines = text.lines().enumerate().map(|(i, l)| (i + 1, l.trim()));
     let err = |line: usize, problem: CsvProblem| CsvError { line: Some(line), problem };
@@ -252,14 +253,14 @@ fn number(text: &str, column: &'static str, limit: f64) -> Result<f64, CsvProble
 
 /// How the caller reads a file named in a command or a test file (the core does no I/O of its own; the
 /// daemon passes `std::fs::read_to_string`).
-pub type ReadFile<'a> = &'a mut dyn FnMut(&Path) -> std::io::Result<String>;
+pub(crate) type ReadFile<'a> = &'a mut dyn FnMut(&Path) -> std::io::Result<String>;
 
 fn read_text(path: &Path, read: ReadFile<'_>) -> Result<String, OfflineError> {
     read(path).map_err(|error| OfflineError::Read { path: path.to_path_buf(), error })
 }
 
 /// Reads (with `read`) and parses a time-curve CSV file.
-pub fn read_readings(path: &Path, read: ReadFile<'_>) -> Result<Vec<(f64, f64)>, OfflineError> {
+pub(crate) fn read_readings(path: &Path, read: ReadFile<'_>) -> Result<Vec<(f64, f64)>, OfflineError> {
     parse_readings(&read_text(path, read)?).map_err(|error| OfflineError::Csv { path: path.to_path_buf(), error })
 }
 
@@ -288,52 +289,52 @@ fn split_remarks(remarks: &[Remark]) -> (Vec<String>, Vec<&'static str>) {
 
 /// The √t construction as reported.
 #[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct TaylorSummary {
+pub(crate) struct TaylorSummary {
     /// Corrected zero, mm.
-    pub d0_mm: Option<f64>,
+    pub(crate) d0_mm: Option<f64>,
     /// Reading at t90, mm.
-    pub d90_mm: Option<f64>,
+    pub(crate) d90_mm: Option<f64>,
     /// d0 + (d90 − d0)/0.9, mm.
-    pub d100_mm: Option<f64>,
+    pub(crate) d100_mm: Option<f64>,
     /// (d0 + d100)/2, mm.
-    pub d50_mm: Option<f64>,
+    pub(crate) d50_mm: Option<f64>,
     /// Time the curve reaches d50, min.
-    pub t50_min: Option<f64>,
+    pub(crate) t50_min: Option<f64>,
     /// Where the construction line meets the curve, min.
-    pub t90_min: Option<f64>,
+    pub(crate) t90_min: Option<f64>,
     /// cv = 0.848·Hdr²/t90, mm²/min [ref: cv-formula].
-    pub cv_mm2_per_min: Option<f64>,
+    pub(crate) cv_mm2_per_min: Option<f64>,
     /// The same in m²/yr.
-    pub cv_m2_per_year: Option<f64>,
+    pub(crate) cv_m2_per_year: Option<f64>,
     /// Time window of the straight early part, min.
-    pub fit_window_min: Option<[f64; 2]>,
+    pub(crate) fit_window_min: Option<[f64; 2]>,
     /// Abscissa ratio of the construction line (1.15) [ref: taylor-root-time].
-    pub factor: f64,
+    pub(crate) factor: f64,
 }
 
 /// The log-t construction as reported.
 #[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct CasagrandeSummary {
+pub(crate) struct CasagrandeSummary {
     /// Corrected zero by the 1:4 offset, mm.
-    pub d0_mm: Option<f64>,
+    pub(crate) d0_mm: Option<f64>,
     /// Where the inflection tangent meets the secondary line, mm.
-    pub d100_mm: Option<f64>,
+    pub(crate) d100_mm: Option<f64>,
     /// (d0 + d100)/2, mm.
-    pub d50_mm: Option<f64>,
+    pub(crate) d50_mm: Option<f64>,
     /// Time the curve reaches d50, min.
-    pub t50_min: Option<f64>,
+    pub(crate) t50_min: Option<f64>,
     /// Time at d100, min.
-    pub t100_min: Option<f64>,
+    pub(crate) t100_min: Option<f64>,
     /// cv = 0.197·Hdr²/t50, mm²/min [ref: cv-formula].
-    pub cv_mm2_per_min: Option<f64>,
+    pub(crate) cv_mm2_per_min: Option<f64>,
     /// The same in m²/yr.
-    pub cv_m2_per_year: Option<f64>,
+    pub(crate) cv_m2_per_year: Option<f64>,
     /// 1:4 time pairs averaged for d0.
-    pub offset_pairs: usize,
+    pub(crate) offset_pairs: usize,
     /// Time of the steepest point (inflection), min.
-    pub inflection_t_min: Option<f64>,
+    pub(crate) inflection_t_min: Option<f64>,
     /// Time window of the secondary line, min.
-    pub secondary_window_min: Option<[f64; 2]>,
+    pub(crate) secondary_window_min: Option<[f64; 2]>,
 }
 
 /// `analyze increment`: one time curve reduced. The first keys are the command's contract; the rest are
@@ -342,45 +343,45 @@ pub struct CasagrandeSummary {
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct IncrementReport {
     /// Corrected zero of the construction in `primary_from`, mm.
-    pub d0_mm: Option<f64>,
+    pub(crate) d0_mm: Option<f64>,
     /// d50 of that construction, mm.
-    pub d50_mm: Option<f64>,
+    pub(crate) d50_mm: Option<f64>,
     /// End of primary consolidation of that construction, mm.
-    pub d100_mm: Option<f64>,
+    pub(crate) d100_mm: Option<f64>,
     /// t50 of that construction, min.
-    pub t50_min: Option<f64>,
+    pub(crate) t50_min: Option<f64>,
     /// t90 by the √t construction, min.
-    pub t90_min: Option<f64>,
+    pub(crate) t90_min: Option<f64>,
     /// cv by √t, mm²/min.
-    pub cv_taylor_mm2_per_min: Option<f64>,
+    pub(crate) cv_taylor_mm2_per_min: Option<f64>,
     /// cv by log t, mm²/min.
-    pub cv_casagrande_mm2_per_min: Option<f64>,
+    pub(crate) cv_casagrande_mm2_per_min: Option<f64>,
     /// Cα(ε): strain per log cycle of time on the secondary line, strain over `c_alpha_height_mm`.
-    pub c_alpha: Option<f64>,
+    pub(crate) c_alpha: Option<f64>,
     /// Every quality remark, as sentences.
-    pub flags: Vec<String>,
+    pub(crate) flags: Vec<String>,
     /// The remarks' stable codes, in the same order.
-    pub flag_codes: Vec<&'static str>,
+    pub(crate) flag_codes: Vec<&'static str>,
     /// `casagrande` or `taylor`: where the top-level d0, d50, d100, t50 come from (`None`: neither found d100).
-    pub primary_from: Option<&'static str>,
+    pub(crate) primary_from: Option<&'static str>,
     /// The drainage path given, mm.
-    pub drainage_path_mm: f64,
+    pub(crate) drainage_path_mm: f64,
     /// Height Cα's strain is taken over: 2 × the drainage path (double drainage assumed), mm.
-    pub c_alpha_height_mm: f64,
+    pub(crate) c_alpha_height_mm: f64,
     /// Slope of the secondary line, mm per log cycle (height-free).
-    pub secondary_slope_mm_per_log_cycle: Option<f64>,
+    pub(crate) secondary_slope_mm_per_log_cycle: Option<f64>,
     /// Readings in the file.
-    pub reading_count: usize,
+    pub(crate) reading_count: usize,
     /// Log-time nodes the constructions ran on.
-    pub node_count: usize,
+    pub(crate) node_count: usize,
     /// Reading noise estimated from the scatter inside bins, mm.
-    pub noise_mm: Option<f64>,
+    pub(crate) noise_mm: Option<f64>,
     /// The √t construction.
-    pub taylor: TaylorSummary,
+    pub(crate) taylor: TaylorSummary,
     /// The log-t construction.
-    pub casagrande: CasagrandeSummary,
+    pub(crate) casagrande: CasagrandeSummary,
     /// The file reduced.
-    pub file: String,
+    pub(crate) file: String,
 }
 
 fn method_name(method: Method) -> &'static str {
@@ -562,150 +563,150 @@ pub fn analyze_increment(
 /// A test file as written (`analyze test`). Every table refuses unknown fields.
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
-pub struct TestFile {
+pub(crate) struct TestFile {
     /// `[specimen]`
-    pub specimen: SpecimenEntry,
+    pub(crate) specimen: SpecimenEntry,
     /// `[[increment]]`, in the order applied.
     #[serde(default, rename = "increment")]
-    pub increments: Vec<IncrementEntry>,
+    pub(crate) increments: Vec<IncrementEntry>,
 }
 
 /// `[specimen]`: what was measured before and after the test.
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
-pub struct SpecimenEntry {
+pub(crate) struct SpecimenEntry {
     /// Ring diameter, mm.
-    pub diameter_mm: Spanned<f64>,
+    pub(crate) diameter_mm: Spanned<f64>,
     /// Initial height H0, mm.
-    pub height_mm: Spanned<f64>,
+    pub(crate) height_mm: Spanned<f64>,
     /// Oven-dry mass of the specimen, g.
-    pub dry_mass_g: Spanned<f64>,
+    pub(crate) dry_mass_g: Spanned<f64>,
     /// Specific gravity of the solids Gs.
-    pub specific_gravity: Spanned<f64>,
+    pub(crate) specific_gravity: Spanned<f64>,
     /// Initial water content (fraction), e.g. from trimmings.
-    pub initial_water_content: Option<Spanned<f64>>,
+    pub(crate) initial_water_content: Option<Spanned<f64>>,
     /// Water content at the end of the test (fraction), for the cross-check of e.
-    pub final_water_content: Option<Spanned<f64>>,
+    pub(crate) final_water_content: Option<Spanned<f64>>,
     /// In-situ vertical effective stress σ′v0, kPa, for OCR.
-    pub sigma_v0_kpa: Option<Spanned<f64>>,
+    pub(crate) sigma_v0_kpa: Option<Spanned<f64>>,
     /// Stress under which `height_mm` was measured, kPa (default 0).
-    pub seating_stress_kpa: Option<Spanned<f64>>,
+    pub(crate) seating_stress_kpa: Option<Spanned<f64>>,
 }
 
 /// `[[increment]]`: one load increment (or decrement).
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
-pub struct IncrementEntry {
+pub(crate) struct IncrementEntry {
     /// Effective vertical stress of the increment, kPa.
-    pub stress_kpa: Spanned<f64>,
+    pub(crate) stress_kpa: Spanned<f64>,
     /// Cumulative compression from the initial height at the end of the increment, apparatus-corrected, mm.
-    pub settlement_mm: Spanned<f64>,
+    pub(crate) settlement_mm: Spanned<f64>,
     /// A time-curve CSV for the increment, relative to the test file.
-    pub readings: Option<Spanned<String>>,
+    pub(crate) readings: Option<Spanned<String>>,
 }
 
 /// One increment of `analyze test`.
 #[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct IncrementRow {
+pub(crate) struct IncrementRow {
     /// σ′, kPa.
-    pub stress_kpa: f64,
+    pub(crate) stress_kpa: f64,
     /// e on the curve's basis: end of primary where a time curve gives it, else end of increment.
-    pub e: f64,
+    pub(crate) e: f64,
     /// mv = av/(1 + e before), 1/kPa = m²/kN [ref: av-mv].
-    pub mv_per_kpa: Option<f64>,
+    pub(crate) mv_per_kpa: Option<f64>,
     /// cv by √t, mm²/min (time curve only).
-    pub cv_taylor_mm2_per_min: Option<f64>,
+    pub(crate) cv_taylor_mm2_per_min: Option<f64>,
     /// cv by log t, mm²/min (time curve only).
-    pub cv_casagrande_mm2_per_min: Option<f64>,
+    pub(crate) cv_casagrande_mm2_per_min: Option<f64>,
     /// `loading`, `unloading` or `reloading`.
-    pub branch: &'static str,
+    pub(crate) branch: &'static str,
     /// Settlement at the end of the increment, as given, mm.
-    pub settlement_mm: f64,
+    pub(crate) settlement_mm: f64,
     /// Settlement at the end of primary, from the time curve, mm.
-    pub settlement_eop_mm: Option<f64>,
+    pub(crate) settlement_eop_mm: Option<f64>,
     /// Which construction gave the end of primary.
-    pub eop_from: Option<&'static str>,
+    pub(crate) eop_from: Option<&'static str>,
     /// e at the end of the increment.
-    pub e_end: f64,
+    pub(crate) e_end: f64,
     /// e at the end of primary.
-    pub e_eop: Option<f64>,
+    pub(crate) e_eop: Option<f64>,
     /// av = −Δe/Δσ′, 1/kPa.
-    pub av_per_kpa: Option<f64>,
+    pub(crate) av_per_kpa: Option<f64>,
     /// LIR = Δσ′/σ′ before.
-    pub load_increment_ratio: Option<f64>,
+    pub(crate) load_increment_ratio: Option<f64>,
     /// k = cv·mv·γw, m/s, with the log-t cv where found, else the √t cv.
-    pub k_m_per_s: Option<f64>,
+    pub(crate) k_m_per_s: Option<f64>,
     /// t50 by log t, min.
-    pub t50_min: Option<f64>,
+    pub(crate) t50_min: Option<f64>,
     /// t90 by √t, min.
-    pub t90_min: Option<f64>,
+    pub(crate) t90_min: Option<f64>,
     /// Drainage path of the √t cv: half the specimen height at its d50, mm.
-    pub drainage_path_taylor_mm: Option<f64>,
+    pub(crate) drainage_path_taylor_mm: Option<f64>,
     /// Drainage path of the log-t cv: half the specimen height at its d50, mm.
-    pub drainage_path_casagrande_mm: Option<f64>,
+    pub(crate) drainage_path_casagrande_mm: Option<f64>,
     /// Cα(ε), strain per log cycle, over the height at the start of secondary compression.
-    pub c_alpha: Option<f64>,
+    pub(crate) c_alpha: Option<f64>,
     /// Cα on the void-ratio basis, Δe per log cycle.
-    pub c_alpha_void_ratio: Option<f64>,
+    pub(crate) c_alpha_void_ratio: Option<f64>,
     /// The time-curve file, as written in the test file.
-    pub readings: Option<String>,
+    pub(crate) readings: Option<String>,
     /// Remarks on this increment and its time curve.
-    pub flags: Vec<String>,
+    pub(crate) flags: Vec<String>,
     /// Their codes.
-    pub flag_codes: Vec<&'static str>,
+    pub(crate) flag_codes: Vec<&'static str>,
 }
 
 /// `analyze test`: the e–log σ′ reduction of a whole test. The first keys are the command's contract.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct TestReport {
     /// Height of solids Hs = Ms/(Gs·ρw·A), mm [ref: height-of-solids].
-    pub hs_mm: f64,
+    pub(crate) hs_mm: f64,
     /// e0 = (H0 − Hs)/Hs.
-    pub e0: f64,
+    pub(crate) e0: f64,
     /// Each increment, in the order applied.
-    pub increments: Vec<IncrementRow>,
+    pub(crate) increments: Vec<IncrementRow>,
     /// Cc on the virgin branch (the three highest loading stresses).
-    pub cc: Option<f64>,
+    pub(crate) cc: Option<f64>,
     /// Cr on the first unload–reload cycle; null without unloading.
-    pub cr: Option<f64>,
+    pub(crate) cr: Option<f64>,
     /// σ′p by Casagrande's construction, kPa.
-    pub sigma_p_kpa: Option<f64>,
+    pub(crate) sigma_p_kpa: Option<f64>,
     /// σ′p by the strain-energy (work) method, kPa [ref: preconsolidation-work].
-    pub sigma_p_work_kpa: Option<f64>,
+    pub(crate) sigma_p_work_kpa: Option<f64>,
     /// Test-level remarks (each increment's are in its own `flags`).
-    pub flags: Vec<String>,
+    pub(crate) flags: Vec<String>,
     /// Their codes.
-    pub flag_codes: Vec<&'static str>,
+    pub(crate) flag_codes: Vec<&'static str>,
     /// `end_of_primary` (where time curves give it) or `end_of_increment` (no time curves at all).
-    pub curve_basis: &'static str,
+    pub(crate) curve_basis: &'static str,
     /// Stresses of the points Cc was fitted to, kPa.
-    pub cc_stresses_kpa: Vec<f64>,
+    pub(crate) cc_stresses_kpa: Vec<f64>,
     /// Stresses of the points Cr was fitted to, kPa.
-    pub cr_stresses_kpa: Vec<f64>,
+    pub(crate) cr_stresses_kpa: Vec<f64>,
     /// CR = Cc/(1 + e0).
-    pub compression_ratio: Option<f64>,
+    pub(crate) compression_ratio: Option<f64>,
     /// OCR = σ′p (Casagrande)/σ′v0.
-    pub ocr: Option<f64>,
+    pub(crate) ocr: Option<f64>,
     /// OCR from the work σ′p.
-    pub ocr_work: Option<f64>,
+    pub(crate) ocr_work: Option<f64>,
     /// Stress at the point of maximum curvature of Casagrande's construction, kPa.
-    pub max_curvature_stress_kpa: Option<f64>,
+    pub(crate) max_curvature_stress_kpa: Option<f64>,
     /// Plotting ratio of Casagrande's construction: Δe per log cycle drawn equal.
-    pub e_per_log_cycle: Option<f64>,
+    pub(crate) e_per_log_cycle: Option<f64>,
     /// Ring area, mm².
-    pub area_mm2: f64,
+    pub(crate) area_mm2: f64,
     /// H0, mm.
-    pub initial_height_mm: f64,
+    pub(crate) initial_height_mm: f64,
     /// Seating stress, kPa.
-    pub seating_stress_kpa: f64,
+    pub(crate) seating_stress_kpa: f64,
     /// Initial water content (fraction), when given.
-    pub initial_water_content: Option<f64>,
+    pub(crate) initial_water_content: Option<f64>,
     /// S0 = w0·Gs/e0.
-    pub initial_saturation: Option<f64>,
+    pub(crate) initial_saturation: Option<f64>,
     /// e0 back-calculated from the final water content and final height, when given.
-    pub e0_from_final_water: Option<f64>,
+    pub(crate) e0_from_final_water: Option<f64>,
     /// The file reduced.
-    pub file: String,
+    pub(crate) file: String,
 }
 
 struct Checker<'a> {
@@ -756,14 +757,14 @@ impl Checker<'_> {
 }
 
 /// `oedolog analyze test FILE.toml`: reads (with `read`) the test file and each increment's time curve and
-/// reduces the test with the core's one reduction of a test ([`reduce_test`]).
+/// reduces the test with the core's one reduction of a test ([`reduce_test_with`](crate::analysis::reduce_test_with)).
 pub fn analyze_test(path: &Path, read: ReadFile<'_>) -> Result<TestReport, OfflineError> {
     let source = read_text(path, &mut *read)?;
     analyze_test_source(&source, path, read)
 }
 
 /// As [`analyze_test`], with the file's text already read; `readings` paths are relative to `path`'s folder.
-pub fn analyze_test_source(source: &str, path: &Path, read: ReadFile<'_>) -> Result<TestReport, OfflineError> {
+pub(crate) fn analyze_test_source(source: &str, path: &Path, read: ReadFile<'_>) -> Result<TestReport, OfflineError> {
     let file: TestFile = toml::from_str(source).map_err(|error| OfflineError::Toml {
         path: path.to_path_buf(),
         at: error.span().map(|s| line_column(source, s.start)),

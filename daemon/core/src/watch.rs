@@ -3,7 +3,6 @@
 //! actions in, notes out; no clock (times come with the samples), no I/O.
 
 use std::collections::VecDeque;
-use std::time::Duration;
 
 use serde::Serialize;
 
@@ -89,19 +88,6 @@ pub enum Phase {
     Ready,
 }
 
-impl Phase {
-    /// The state's name in the API and the store.
-    pub fn name(self) -> &'static str {
-        match self {
-            Phase::Idle => "idle",
-            Phase::Seating => "seating",
-            Phase::Armed => "armed",
-            Phase::Primary => "primary",
-            Phase::Ready => "ready",
-        }
-    }
-}
-
 /// How the onset was found.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "kebab-case")]
@@ -171,9 +157,9 @@ struct Sample {
 #[derive(Clone, Copy, Debug, PartialEq, Serialize)]
 pub struct Reseat {
     /// When the jump came, UTC µs.
-    pub at_us: i64,
+    pub(crate) at_us: i64,
     /// The jump, mm (negative: the reading went back).
-    pub jump_mm: f64,
+    pub(crate) jump_mm: f64,
 }
 
 /// The running increment.
@@ -181,7 +167,6 @@ pub struct Reseat {
 struct Live {
     seq: i64,
     stress_kpa: f64,
-    from_kpa: f64,
     onset_us: i64,
     curve: TimeCurve,
     params: IncrementParams,
@@ -205,7 +190,7 @@ pub struct WatchStatus {
     /// Increment number.
     pub seq: Option<i64>,
     /// Its target stress, kPa.
-    pub stress_kpa: Option<f64>,
+    pub(crate) stress_kpa: Option<f64>,
     /// t0, UTC µs.
     pub onset_us: Option<i64>,
     /// t50 (log-time construction), min.
@@ -217,9 +202,9 @@ pub struct WatchStatus {
     /// d100, mm (gauge reading).
     pub d100_mm: Option<f64>,
     /// cv by Taylor, mm²/min.
-    pub cv_taylor_mm2_per_min: Option<f64>,
+    pub(crate) cv_taylor_mm2_per_min: Option<f64>,
     /// cv by Casagrande, mm²/min.
-    pub cv_casagrande_mm2_per_min: Option<f64>,
+    pub(crate) cv_casagrande_mm2_per_min: Option<f64>,
     /// When the frame is expected to be ready, UTC µs.
     pub ready_eta_us: Option<i64>,
     /// When it became ready, UTC µs.
@@ -229,7 +214,7 @@ pub struct WatchStatus {
     /// The load check is failing.
     pub load_off: bool,
     /// Quality flags of the latest construction.
-    pub flags: Vec<String>,
+    pub(crate) flags: Vec<String>,
 }
 
 /// Why an operator action was refused.
@@ -316,11 +301,6 @@ impl FrameWatch {
     /// The phase.
     pub fn phase(&self) -> Phase {
         self.phase
-    }
-
-    /// The watch's parameters.
-    pub fn params(&self) -> &WatchParams {
-        &self.params
     }
 
     /// A test starts under its seating load.
@@ -425,7 +405,7 @@ impl FrameWatch {
     }
 
     /// The expected force on the specimen for a stress, kN (kPa × mm² × 1e-6).
-    pub fn expected_kn(&self, stress_kpa: f64) -> Option<f64> {
+    pub(crate) fn expected_kn(&self, stress_kpa: f64) -> Option<f64> {
         self.specimen.map(|s| stress_kpa * s.area_mm2 * 1e-6)
     }
 
@@ -551,7 +531,6 @@ impl FrameWatch {
         self.live = Some(Live {
             seq,
             stress_kpa,
-            from_kpa,
             onset_us,
             curve,
             params,
@@ -779,16 +758,6 @@ impl FrameWatch {
     /// The latest full reduction of the running increment (for the dashboard's constructions).
     pub fn reduction(&self) -> Option<&IncrementReduction> {
         self.live.as_ref()?.result.as_ref()
-    }
-
-    /// The stress before the running increment, kPa.
-    pub fn from_kpa(&self) -> Option<f64> {
-        self.live.as_ref().map(|l| l.from_kpa)
-    }
-
-    /// The steady poll period this watch assumes between readings (for documentation of onset accuracy).
-    pub fn onset_accuracy(poll: Duration) -> Duration {
-        poll
     }
 }
 

@@ -9,6 +9,7 @@ use tokio::io::{AsyncRead, AsyncWrite};
 use tokio::net::TcpStream;
 
 use crate::config::{Parity, SerialLine};
+use crate::store::EventKind;
 
 /// A connected byte stream to one or more devices.
 pub trait Link: AsyncRead + AsyncWrite + Unpin + Send {
@@ -136,13 +137,13 @@ impl Reconnect {
                 Ok(link) => {
                     self.backoff.reset();
                     self.down_reported = false;
-                    sinks.event(None, "bus-up", format!("bus {bus_id}: connected to {}", connector.describe()));
+                    sinks.event(None, EventKind::BusUp, format!("bus {bus_id}: connected to {}", connector.describe()));
                     return link;
                 }
                 Err(error) => {
                     if !self.down_reported {
                         let message = format!("bus {bus_id}: cannot open {}: {error}", connector.describe());
-                        sinks.event(None, "bus-down", message);
+                        sinks.event(None, EventKind::BusDown, message);
                         self.down_reported = true;
                     }
                     tokio::time::sleep(self.backoff.next_wait()).await;
@@ -154,7 +155,7 @@ impl Reconnect {
     /// A working link failed: journal it and wait before the next attempt.
     pub async fn lost<C: Connector>(&mut self, bus_id: &str, connector: &C, sinks: &super::Sinks, error: &io::Error) {
         let message = format!("bus {bus_id}: link to {} lost: {error}; reconnecting", connector.describe());
-        sinks.event(None, "bus-down", message);
+        sinks.event(None, EventKind::BusDown, message);
         self.down_reported = true;
         tokio::time::sleep(self.backoff.next_wait()).await;
     }

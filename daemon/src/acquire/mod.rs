@@ -19,7 +19,7 @@ use serde::Serialize;
 
 use crate::clock::Clock;
 use crate::config::{BusKind, Calibration, Channel, Config, Frame, PollSchedule};
-use crate::store::{ChannelKind, Event, Reading, Writer};
+use crate::store::{ChannelKind, Event, EventKind, Reading, Writer};
 
 /// Shortest real wait between two polls of one frame on a fast (demo) clock.
 pub const MIN_REAL_POLL: Duration = Duration::from_millis(20);
@@ -114,8 +114,8 @@ pub struct Sinks {
 
 impl Sinks {
     /// Journals an event (a stopped writer is logged, never fatal to acquisition).
-    pub fn event(&self, frame_key: Option<i64>, kind: &'static str, message: String) {
-        tracing::info!(kind, "{message}");
+    pub fn event(&self, frame_key: Option<i64>, kind: EventKind, message: String) {
+        tracing::info!(kind = kind.name(), "{message}");
         let event = Event { at_us: self.clock.now_us(), frame_key, kind, message, actor: None, data: None };
         if let Err(error) = self.writer.event(event) {
             tracing::error!("event not stored: {error}");
@@ -258,7 +258,7 @@ impl PolledFrame {
                     self.refused[ci] = Some((at_us, at_us, 1));
                     sinks.event(
                         Some(self.key),
-                        "value-refused",
+                        EventKind::ValueRefused,
                         format!(
                             "frame {}: {} value {value} (raw {raw}) outside {lo} … {hi}; not stored",
                             self.id,
@@ -272,7 +272,7 @@ impl PolledFrame {
                         *last_event = at_us;
                         sinks.event(
                             Some(self.key),
-                            "value-refused",
+                            EventKind::ValueRefused,
                             format!(
                                 "frame {}: {} still refused ({count} values so far; latest {value})",
                                 self.id,
@@ -288,7 +288,7 @@ impl PolledFrame {
             let minutes = (at_us - since) as f64 / 60e6;
             sinks.event(
                 Some(self.key),
-                "value-recovered",
+                EventKind::ValueRecovered,
                 format!(
                     "frame {}: {} valid again after {count} refused values over {minutes:.1} min",
                     self.id,

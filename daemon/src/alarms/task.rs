@@ -6,14 +6,13 @@
 use std::sync::Arc;
 use std::time::Duration;
 
-use rusqlite::{Connection, OptionalExtension, params};
-
 use super::{AlarmBoard, AlarmView};
 use crate::acquire::Live;
 use crate::clock::{Clock, rfc3339};
 use crate::config::Config;
 use crate::lab::Lab;
-use crate::store::{StoreError, Writer};
+use crate::store::alarms::{self as stored, Acknowledged, AlarmChange, AlarmStored};
+use crate::store::{Reader, StoreError, Writer};
 use crate::watch::Hub;
 use oedolog_core::alarms::{AlarmEngine, AlarmRules, BusInput, Code, FrameInput, Subject, Transition};
 
@@ -114,29 +113,11 @@ impl AlarmSources {
 }
 
 /// The open alarms stored by an earlier run, for the board and the engine.
-pub fn load_open(conn: &Connection, keys: &[i64]) -> Result<Vec<(Subject, Code, AlarmView)>, StoreError> {
-    let mut statement = conn.prepare(
-        "SELECT a.id, a.frame_key, f.id, a.bus, a.code, a.message, a.raised_us, a.acknowledged_us, a.acknowledged_by
-         FROM alarms a LEFT JOIN frames f ON f.key = a.frame_key WHERE a.cleared_us IS NULL ORDER BY a.id",
-    )?;
-    let rows = statement.query_map([], |r| {
-        Ok((
-            r.get::<_, i64>(0)?,
-            r.get::<_, Option<i64>>(1)?,
-            r.get::<_, Option<String>>(2)?,
-            r.get::<_, Option<String>>(3)?,
-            r.get::<_, String>(4)?,
-            r.get::<_, String>(5)?,
-            r.get::<_, i64>(6)?,
-            r.get::<_, Option<i64>>(7)?,
-            r.get::<_, Option<String>>(8)?,
-        ))
-    })?;
+pub fn load_open(conn: &Reader, keys: &[i64]) -> Result<Vec<(Subject, Code, AlarmView)>, StoreError> {
     let mut out = Vec::new();
-    for row in rows {
-        let (id, frame_key, frame, bus, code, message, raised_us, ack_us, ack_by) = row?;
-        let Some(code) = Code::from_name(&code) else { continue };
-        let subject = match (frame_key.and_then(|k| keys.iter().position(|&x| x == k)), &bus) {
+    for alarm in stored::open_alarms(conn)? {
+        let Some(code) = alarm.code else { continue };
+        let subject = match (alarm.frame_key.and_then(|k| keys.iter().position(|&x| x == k)), &alarm.bus) {
             (Some(index), _) => Subject::Frame(index),
             (None, Some(b)) => Subject::Bus(b.clone()),
             // A frame no longer configured: its alarm can never clear by itself; leave it out.
@@ -146,9 +127,9 @@ pub fn load_open(conn: &Connection, keys: &[i64]) -> Result<Vec<(Subject, Code, 
             subject,
             code,
             AlarmView {
-                acknowledged_by: ack_by,
-                acknowledged_at: ack_us.map(rfc3339),
-                ..AlarmView::raised(id, code, frame, bus, message, raised_us)
+                acknowledged_by: alarm.acknowledged_by,
+                acknowledged_at: alarm.acknowledged_us.map(rfc3339),
+                ..AlarmView::raised(alarm.id, code, alarm.frame, alarm.bus, alarm.message, alarm.raised_us)
             },
         ));
     }
@@ -245,62 +226,38 @@ fn apply(
     transitions: Vec<Transition>,
     known: &std::collections::BTreeMap<(Subject, Code), i64>,
 ) -> Result<Vec<Applied>, StoreError> {
-    let keys = keys.to_vec();
-    let known = known.clone();
-    writer.run(move |conn| {
-        let mut out = Vec::new();
-        for t in transitions {
-            match t {
-                Transition::Raise { subject, code, message, data } => {
-                    let (frame_key, bus) = match &subject {
-                        Subject::Frame(i) => (keys.get(*i).copied(), None),
-                        Subject::Bus(b) => (None, Some(b.clone())),
-                    };
-                    conn.execute(
-                        "INSERT INTO alarms (frame_key, bus, code, message, data, raised_us) VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
-                        params![frame_key, bus, code.name(), message, data.to_string(), now],
-                    )?;
-                    let id = conn.last_insert_rowid();
-                    let mut details = serde_json::json!({"alarm": code.name(), "alarm_id": id, "bus": bus});
-                    if let (Some(d), serde_json::Value::Object(extra)) = (details.as_object_mut(), data) {
-                        d.extend(extra);
-                    }
-                    conn.execute(
-                        "INSERT INTO events (at_us, frame_key, kind, message, data) VALUES (?1, ?2, 'alarm-raised', ?3, ?4)",
-                        params![now, frame_key, message, details.to_string()],
-                    )?;
-                    let frame: Option<String> = match frame_key {
-                        Some(k) => conn.query_row("SELECT id FROM frames WHERE key = ?1", [k], |r| r.get(0)).optional()?,
-                        None => None,
-                    };
-                    out.push(Applied::Raised(
-                        subject,
-                        code,
-                        AlarmView::raised(id, code, frame, bus, message, now),
-                    ));
-                }
-                Transition::Clear { subject, code, message } => {
-                    let Some(&id) = known.get(&(subject.clone(), code)) else { continue };
-                    let frame_key: Option<i64> = conn.query_row(
-                        "UPDATE alarms SET cleared_us = ?2 WHERE id = ?1 RETURNING frame_key",
-                        params![id, now],
-                        |r| r.get(0),
-                    )?;
-                    let details = serde_json::json!({"alarm": code.name(), "alarm_id": id});
-                    conn.execute(
-                        "INSERT INTO events (at_us, frame_key, kind, message, data) VALUES (?1, ?2, 'alarm-cleared', ?3, ?4)",
-                        params![now, frame_key, message, details.to_string()],
-                    )?;
-                    out.push(Applied::Cleared(subject, code));
-                }
+    // (subject, code, message and bus of a raise) per change, in the order of the changes.
+    let mut about = Vec::new();
+    let mut changes = Vec::new();
+    for t in transitions {
+        match t {
+            Transition::Raise { subject, code, message, data } => {
+                let (frame_key, bus) = match &subject {
+                    Subject::Frame(i) => (keys.get(*i).copied(), None),
+                    Subject::Bus(b) => (None, Some(b.clone())),
+                };
+                about.push((subject, code, Some((message.clone(), bus.clone()))));
+                changes.push(AlarmChange::Raise { frame_key, bus, code, message, data });
+            }
+            Transition::Clear { subject, code, message } => {
+                let Some(&id) = known.get(&(subject.clone(), code)) else { continue };
+                about.push((subject, code, None));
+                changes.push(AlarmChange::Clear { id, code, message });
             }
         }
-        Ok(out)
-    })
+    }
+    let results = stored::store_changes(writer, now, changes)?;
+    Ok(about
+        .into_iter()
+        .zip(results)
+        .map(|((subject, code, raised), result)| match (result, raised) {
+            (AlarmStored::Raised { id, frame }, Some((message, bus))) => {
+                Applied::Raised(subject, code, AlarmView::raised(id, code, frame, bus, message, now))
+            }
+            _ => Applied::Cleared(subject, code),
+        })
+        .collect())
 }
-
-/// (acknowledged µs, cleared µs, code, frame key) of a stored alarm.
-type AckRow = (Option<i64>, Option<i64>, String, Option<i64>);
 
 /// Why an acknowledgement was refused.
 #[derive(Debug, thiserror::Error)]
@@ -324,37 +281,12 @@ pub fn acknowledge(
     by: String,
     now_us: i64,
 ) -> Result<AlarmView, AckError> {
-    let name = by.clone();
-    let outcome = writer.run(move |conn| {
-        let row: Option<AckRow> = conn
-            .query_row("SELECT acknowledged_us, cleared_us, code, frame_key FROM alarms WHERE id = ?1", [id], |r| {
-                Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?))
-            })
-            .optional()?;
-        let Some((acked, cleared, code, frame_key)) = row else { return Ok(Err(AckError::NotFound(id))) };
-        if cleared.is_some() {
-            return Ok(Err(AckError::Closed(id, "already cleared")));
-        }
-        if acked.is_some() {
-            return Ok(Err(AckError::Closed(id, "already acknowledged")));
-        }
-        conn.execute(
-            "UPDATE alarms SET acknowledged_us = ?2, acknowledged_by = ?3 WHERE id = ?1",
-            params![id, now_us, name],
-        )?;
-        conn.execute(
-            "INSERT INTO events (at_us, frame_key, kind, message, actor, data) VALUES (?1, ?2, 'alarm-acknowledged', ?3, ?4, ?5)",
-            params![
-                now_us,
-                frame_key,
-                format!("alarm {id} ({code}) acknowledged by {name}"),
-                name,
-                serde_json::json!({"alarm": code, "alarm_id": id}).to_string()
-            ],
-        )?;
-        Ok(Ok(()))
-    })?;
-    outcome?;
+    match stored::acknowledge(writer, id, by.clone(), now_us)? {
+        Acknowledged::Done => {}
+        Acknowledged::NotFound => return Err(AckError::NotFound(id)),
+        Acknowledged::AlreadyCleared => return Err(AckError::Closed(id, "already cleared")),
+        Acknowledged::AlreadyAcknowledged => return Err(AckError::Closed(id, "already acknowledged")),
+    }
     let mut view = None;
     board.update(|open, _| {
         if let Some(a) = open.iter_mut().find(|a| a.id == id) {

@@ -21,6 +21,8 @@ use oedolog_protocol::registers::RegisterMap;
 use oedolog_protocol::rtu::silent_interval;
 use toml::Spanned;
 
+use crate::store::EventKind;
+
 use raw::{RawBus, RawBusKind, RawCalibration, RawChannel, RawConfig, RawDeflection, RawFrame};
 
 /// Baud rates a serial line may use.
@@ -394,19 +396,9 @@ impl NotifyEvent {
         }
     }
 
-    /// The journal kinds (`events.kind`) it stands for.
-    pub fn kinds(self) -> &'static [&'static str] {
-        match self {
-            NotifyEvent::Ready => &["ready"],
-            NotifyEvent::Alarm => &["alarm-raised", "alarm-acknowledged", "alarm-cleared"],
-            NotifyEvent::Onset => &["onset"],
-            NotifyEvent::Armed => &["armed"],
-            NotifyEvent::Test => &["test-started", "test-finished", "test-resumed"],
-            NotifyEvent::Bus => &["bus-down", "bus-up"],
-            NotifyEvent::Reseat => &["reseat-proposed", "reseat-resolved"],
-            NotifyEvent::Load => &["load-off", "load-back", "load-change-unarmed"],
-            NotifyEvent::Note => &["note"],
-        }
+    /// The journal kinds (`events.kind`) it stands for, derived from [`NotifyEvent::of_kind`].
+    pub fn kinds(self) -> Vec<EventKind> {
+        EventKind::ALL.iter().copied().filter(|&k| NotifyEvent::of_kind(k) == Some(self)).collect()
     }
 
     /// The event of a name in the file.
@@ -414,9 +406,29 @@ impl NotifyEvent {
         NotifyEvent::ALL.into_iter().find(|e| e.name() == name)
     }
 
-    /// The event a journal kind belongs to, if any.
-    pub fn of_kind(kind: &str) -> Option<NotifyEvent> {
-        NotifyEvent::ALL.into_iter().find(|e| e.kinds().contains(&kind))
+    /// The event a journal kind belongs to, if any: every kind is placed here, so a new kind cannot be
+    /// written without deciding whether (and under which name) a webhook may subscribe to it.
+    pub fn of_kind(kind: EventKind) -> Option<NotifyEvent> {
+        match kind {
+            EventKind::Ready => Some(NotifyEvent::Ready),
+            EventKind::AlarmRaised | EventKind::AlarmAcknowledged | EventKind::AlarmCleared => Some(NotifyEvent::Alarm),
+            EventKind::Onset => Some(NotifyEvent::Onset),
+            EventKind::Armed => Some(NotifyEvent::Armed),
+            EventKind::TestStarted | EventKind::TestFinished | EventKind::TestResumed => Some(NotifyEvent::Test),
+            EventKind::BusDown | EventKind::BusUp => Some(NotifyEvent::Bus),
+            EventKind::ReseatProposed | EventKind::ReseatResolved => Some(NotifyEvent::Reseat),
+            EventKind::LoadOff | EventKind::LoadBack | EventKind::LoadChangeUnarmed => Some(NotifyEvent::Load),
+            EventKind::Note => Some(NotifyEvent::Note),
+            // A failed notification must never cause another.
+            EventKind::NotifyFailed => None,
+            EventKind::DaemonStart
+            | EventKind::DaemonStop
+            | EventKind::ClockStep
+            | EventKind::ClockBehind
+            | EventKind::ValueRefused
+            | EventKind::ValueRecovered
+            | EventKind::LoadReported => None,
+        }
     }
 
     /// `ready, alarm, …` for messages.

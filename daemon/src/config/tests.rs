@@ -435,12 +435,31 @@ fn webhook_urls_default_to_port_80_and_path_slash_and_name_the_journal_kinds_of_
         assert!(WebhookUrl::parse(bad).is_err(), "{bad} accepted");
     }
     // Each journal kind belongs to at most one name, so a body's `event` is unambiguous.
-    let mut kinds: Vec<&str> = NotifyEvent::ALL.iter().flat_map(|e| e.kinds().iter().copied()).collect();
+    let mut kinds: Vec<&str> = NotifyEvent::ALL.iter().flat_map(|e| e.kinds()).map(EventKind::name).collect();
     let all = kinds.len();
     kinds.sort_unstable();
     kinds.dedup();
     assert_eq!(kinds.len(), all);
-    assert_eq!(NotifyEvent::of_kind("alarm-cleared"), Some(NotifyEvent::Alarm));
+    assert_eq!(NotifyEvent::of_kind(EventKind::AlarmCleared), Some(NotifyEvent::Alarm));
+    // The journal kinds behind each name, as webhooks have always been sent them.
+    let expected: [(NotifyEvent, &[&str]); 9] = [
+        (NotifyEvent::Ready, &["ready"]),
+        (NotifyEvent::Alarm, &["alarm-raised", "alarm-acknowledged", "alarm-cleared"]),
+        (NotifyEvent::Onset, &["onset"]),
+        (NotifyEvent::Armed, &["armed"]),
+        (NotifyEvent::Test, &["test-started", "test-finished", "test-resumed"]),
+        (NotifyEvent::Bus, &["bus-down", "bus-up"]),
+        (NotifyEvent::Reseat, &["reseat-proposed", "reseat-resolved"]),
+        (NotifyEvent::Load, &["load-off", "load-back", "load-change-unarmed"]),
+        (NotifyEvent::Note, &["note"]),
+    ];
+    for (event, names) in expected {
+        let mut got: Vec<&str> = event.kinds().into_iter().map(EventKind::name).collect();
+        let mut want = names.to_vec();
+        got.sort_unstable();
+        want.sort_unstable();
+        assert_eq!(got, want, "{}", event.name());
+    }
     assert!(NotifyEvent::ALL.iter().all(|e| NotifyEvent::from_name(e.name()) == Some(*e)));
 }
 

@@ -8,7 +8,6 @@ use axum::extract::{Path, Query, State};
 use axum::response::Json;
 use axum::routing::{get, post};
 use axum::{Extension, Router};
-use rusqlite::params;
 use serde::Serialize;
 
 use super::auth::{Caller, actor};
@@ -17,6 +16,7 @@ use super::{ApiError, AppState};
 use crate::alarms::AlarmView;
 use crate::alarms::task::{AckError, acknowledge};
 use crate::clock::rfc3339;
+use crate::store::alarms::history;
 
 /// One alarm of the store, open or closed.
 #[derive(Debug, Serialize)]
@@ -44,26 +44,19 @@ async fn list(
         Some("all") => {
             let rows = state
                 .read(move |conn| {
-                    let mut statement = conn.prepare_cached(
-                        "SELECT a.id, a.code, f.id, a.bus, a.message, a.raised_us, a.acknowledged_by, a.acknowledged_us, a.cleared_us
-                         FROM alarms a LEFT JOIN frames f ON f.key = a.frame_key ORDER BY a.id DESC LIMIT ?1",
-                    )?;
-                    let rows = statement.query_map(params![limit], |r| {
-                        let cleared: Option<i64> = r.get(8)?;
-                        Ok(StoredAlarm {
-                            id: r.get(0)?,
-                            code: r.get(1)?,
-                            frame: r.get(2)?,
-                            bus: r.get(3)?,
-                            message: r.get(4)?,
-                            raised_at: rfc3339(r.get(5)?),
-                            acknowledged_by: r.get(6)?,
-                            acknowledged_at: r.get::<_, Option<i64>>(7)?.map(rfc3339),
-                            cleared_at: cleared.map(rfc3339),
-                            open: cleared.is_none(),
-                        })
-                    })?;
-                    Ok(rows.collect::<Result<Vec<_>, _>>()?)
+                    let rows = history(conn, limit)?.into_iter().map(|a| StoredAlarm {
+                        id: a.id,
+                        code: a.code,
+                        frame: a.frame,
+                        bus: a.bus,
+                        message: a.message,
+                        raised_at: rfc3339(a.raised_us),
+                        acknowledged_by: a.acknowledged_by,
+                        acknowledged_at: a.acknowledged_us.map(rfc3339),
+                        cleared_at: a.cleared_us.map(rfc3339),
+                        open: a.cleared_us.is_none(),
+                    });
+                    Ok(rows.collect::<Vec<_>>())
                 })
                 .await?;
             Ok(Json(serde_json::to_value(rows).unwrap_or_default()))

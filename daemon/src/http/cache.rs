@@ -19,6 +19,7 @@ use axum::body::Bytes;
 
 use super::ApiError;
 use super::queries::{self, IncrementRow, Poll, TestRow};
+use crate::store::Reader;
 use oedolog_core::analysis::{AnalysisError, IncrementReduction};
 
 /// What a lookup found.
@@ -270,7 +271,7 @@ impl Caches {
     /// instead of being read again whole.
     pub(crate) fn increment_polls(
         &self,
-        conn: &rusqlite::Connection,
+        conn: &Reader,
         test: &TestRow,
         inc: &IncrementRow,
         stamp: &IncrementStamp,

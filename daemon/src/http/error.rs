@@ -117,12 +117,6 @@ impl From<StoreError> for ApiError {
     }
 }
 
-impl From<rusqlite::Error> for ApiError {
-    fn from(error: rusqlite::Error) -> Self {
-        ApiError::Internal(format!("database: {error}"))
-    }
-}
-
 impl From<HubError> for ApiError {
     fn from(error: HubError) -> Self {
         match error {

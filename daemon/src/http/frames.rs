@@ -57,7 +57,11 @@ pub struct FrameView {
 /// the running test's state, else `idle`.
 pub fn frame_state(live: &LiveFrame, test: Option<&RunningTest>, now_us: i64, stale_after: Duration) -> String {
     let fresh = live.last_reading_us().is_some_and(|at| now_us - at <= stale_after.as_micros() as i64);
-    if !fresh || !live.bus_up { "offline".into() } else { test.map_or_else(|| "idle".into(), |t| t.state.clone()) }
+    if !fresh || !live.bus_up {
+        "offline".into()
+    } else {
+        test.map_or_else(|| "idle".into(), |t| t.state.name().into())
+    }
 }
 
 pub(crate) fn views(state: &AppState) -> Vec<FrameView> {

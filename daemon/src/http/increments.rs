@@ -8,7 +8,6 @@ use axum::http::StatusCode;
 use axum::response::Json;
 use axum::routing::{get, post};
 use axum::{Extension, Router};
-use rusqlite::params;
 use serde::{Deserialize, Serialize};
 use std::collections::HashMap;
 
@@ -20,6 +19,8 @@ use super::queries::{self, IncrementRow, IncrementSummary, Poll, TestRow};
 use super::{ApiError, AppState};
 use crate::clock::rfc3339;
 use crate::config::Loading;
+use crate::store::lab_book::{self, Step};
+use crate::store::{Event, EventKind, Reader, journal};
 use axum::body::Bytes;
 use oedolog_core::analysis::IncrementReduction;
 
@@ -140,17 +141,9 @@ async fn applied(
                 return Err(ApiError::Conflict(format!("frame `{id}` has no armed increment: arm one first")));
             }
             let (test_id, seq) = (test.test_id, test.increment);
-            state.writer.run(move |conn| {
-                conn.execute(
-                    "UPDATE increments SET reported_us = ?3 WHERE test_id = ?1 AND seq = ?2",
-                    params![test_id, seq, now],
-                )?;
-                conn.execute(
-                    "INSERT INTO events (at_us, frame_key, kind, message, actor) VALUES (?1, ?2, 'load-reported', ?3, ?4)",
-                    params![now, key, format!("increment {seq}: the operator reports the load is on (t0 is still found from the readings)"), who],
-                )?;
-                Ok(())
-            })?;
+            let message =
+                format!("increment {seq}: the operator reports the load is on (t0 is still found from the readings)");
+            lab_book::report_load(&state.writer, Step { test_id, frame_key: key, seq }, now, who, message)?;
             Ok((test_id, seq))
         })
         .await?;
@@ -203,20 +196,22 @@ async fn note(
     let (frame, message, actor) = (id.clone(), text.clone(), who.clone());
     let event_id = state
         .blocking(move |state| {
-            Ok(state.writer.run(move |conn| {
-                conn.execute(
-                    "INSERT INTO events (at_us, frame_key, kind, message, actor) VALUES (?1, ?2, 'note', ?3, ?4)",
-                    params![now, key, text, who],
-                )?;
-                Ok(conn.last_insert_rowid())
-            })?)
+            let note = Event {
+                at_us: now,
+                frame_key: Some(key),
+                kind: EventKind::Note,
+                message: text,
+                actor: who,
+                data: None,
+            };
+            Ok(journal::append(&state.writer, note)?)
         })
         .await?;
     let view = queries::EventView {
         id: event_id,
         at: rfc3339(now),
         frame: Some(frame),
-        kind: "note".into(),
+        kind: EventKind::Note,
         message,
         actor,
         data: None,
@@ -284,7 +279,7 @@ pub(crate) fn log_time_bins(polls: &[TimedPoll], max_points: usize) -> Vec<BinPo
 }
 
 /// The test an increment route on a frame refers to: the running one, else the frame's latest.
-fn frame_test(conn: &rusqlite::Connection, key: i64, id: &str) -> Result<TestRow, ApiError> {
+fn frame_test(conn: &Reader, key: i64, id: &str) -> Result<TestRow, ApiError> {
     queries::latest_test(conn, key)?.ok_or_else(|| ApiError::NotFound(format!("frame `{id}` has had no test")))
 }
 
@@ -332,7 +327,7 @@ struct Readings {
 
 /// The increment's polls as (t_min since t0, d, load), from t0 to its end.
 pub(crate) fn increment_polls(
-    conn: &rusqlite::Connection,
+    conn: &Reader,
     test: &TestRow,
     inc: &IncrementRow,
     now_us: i64,

@@ -7,7 +7,6 @@ use axum::http::StatusCode;
 use axum::response::Json;
 use axum::routing::{get, post};
 use axum::{Extension, Router};
-use rusqlite::params;
 use serde::{Deserialize, Serialize};
 
 use super::auth::{Caller, actor};
@@ -15,6 +14,7 @@ use super::body::{JsonBody, OptionalJsonBody};
 use super::queries::{self, IncrementRow, TestRow};
 use super::{ApiError, AppState};
 use crate::lab::{RunningTest, Specimen};
+use crate::store::lab_book;
 
 /// `POST /api/frames/{id}/tests`.
 #[derive(Debug, Deserialize)]
@@ -141,13 +141,7 @@ async fn start(
             let test = state.hub.start_test(index, specimen, new.seating_kpa, who)?;
             let (w0, wf, test_id) = (new.initial_water_content, new.final_water_content, test.test_id);
             if w0.is_some() || wf.is_some() {
-                state.writer.run(move |conn| {
-                    conn.execute(
-                        "UPDATE tests SET initial_water_content = ?2, final_water_content = ?3 WHERE id = ?1",
-                        params![test_id, w0, wf],
-                    )?;
-                    Ok(())
-                })?;
+                lab_book::set_water_contents(&state.writer, test_id, w0, wf)?;
             }
             Ok(test)
         })
@@ -189,13 +183,7 @@ async fn finish(
             state.hub.finish_test(index, &why)?;
             // The lab book journals the finish without an actor; name the user on that entry.
             if let Some(who) = who {
-                state.writer.run(move |conn| {
-                    conn.execute(
-                        "UPDATE events SET actor = ?2 WHERE id = (SELECT max(id) FROM events WHERE frame_key = ?1 AND kind = 'test-finished')",
-                        params![key, who],
-                    )?;
-                    Ok(())
-                })?;
+                lab_book::name_finisher(&state.writer, key, who)?;
             }
             Ok(test.test_id)
         })

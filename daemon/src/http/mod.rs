@@ -38,7 +38,7 @@ use crate::acquire::Live;
 use crate::clock::{Clock, rfc3339};
 use crate::config::{Frame, User};
 use crate::lab::Lab;
-use crate::store::Writer;
+use crate::store::{Reader, Writer};
 use crate::watch::Hub;
 
 pub use auth::{Caller, constant_time_eq};
@@ -79,15 +79,12 @@ pub struct AppState {
 thread_local! {
     /// Each blocking-pool thread keeps its read-only connection (and its prepared statements) between
     /// requests: opening one costs more than most of the queries it runs.
-    static READER: std::cell::RefCell<Option<(PathBuf, rusqlite::Connection)>> = const { std::cell::RefCell::new(None) };
+    static READER: std::cell::RefCell<Option<(PathBuf, Reader)>> = const { std::cell::RefCell::new(None) };
 }
 
 /// Runs `job` on this thread's read-only connection to `path`, opening it first if needed; a connection
 /// whose job failed is closed rather than kept.
-fn with_reader<T>(
-    path: &std::path::Path,
-    job: impl FnOnce(&rusqlite::Connection) -> Result<T, ApiError>,
-) -> Result<T, ApiError> {
+fn with_reader<T>(path: &std::path::Path, job: impl FnOnce(&Reader) -> Result<T, ApiError>) -> Result<T, ApiError> {
     let held = READER.with(|cell| cell.borrow_mut().take()).filter(|(p, _)| p == path);
     let conn = match held {
         Some((_, conn)) => conn,
@@ -109,7 +106,7 @@ impl AppState {
     /// Runs `job` on a fresh read-only connection off the async runtime.
     pub(crate) async fn read<T: Send + 'static>(
         &self,
-        job: impl FnOnce(&rusqlite::Connection) -> Result<T, ApiError> + Send + 'static,
+        job: impl FnOnce(&Reader) -> Result<T, ApiError> + Send + 'static,
     ) -> Result<T, ApiError> {
         let path = self.store_path.clone();
         tokio::task::spawn_blocking(move || with_reader(&path, job))
@@ -204,5 +201,8 @@ pub fn router(state: AppState) -> Router {
         .fallback(web::fallback)
         .layer(axum::middleware::from_fn_with_state(state.clone(), auth::require_user))
         .layer(axum::middleware::from_fn_with_state(state.clone(), drop_snapshots_after_actions))
+        // gzip where the client asks for it (the page is ~116 KB); the default predicate leaves event streams,
+        // images and tiny answers alone, so SSE is never buffered.
+        .layer(tower_http::compression::CompressionLayer::new())
         .with_state(state)
 }

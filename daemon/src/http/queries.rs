@@ -1,16 +1,19 @@
-//! The read side of the API: tests, increments, readings and events from a read-only connection, and the
-//! reduction of a test's stored readings with the pure `analysis` functions. No writes, no HTTP types.
+//! The read side of the API: tests, increments, readings and events as the API shows them, read through
+//! the store's typed functions on a read-only connection, and the reduction of a test's stored readings
+//! with the pure `analysis` functions. No writes, no SQL, no HTTP types.
 
-use rusqlite::{Connection, OptionalExtension, params};
 use serde::Serialize;
 
 use super::ApiError;
 use crate::clock::rfc3339;
 use crate::config::Frame;
+use crate::store::read::{self, StoredIncrement, StoredTest};
+use crate::store::{EventKind, Reader, TestState, journal};
 use oedolog_core::analysis::{
     CompressionReduction, DeflectionCalibration, IncrementReduction, PhaseRelations, ReductionRules, StepInput,
     TestInput, TestSpecimen, reduce_increment, reduce_test_with,
 };
+use oedolog_core::watch::OnsetSource;
 use std::sync::Arc;
 
 use super::cache::{Caches, IncrementStamp};
@@ -44,7 +47,7 @@ pub(crate) struct TestRow {
     /// Seating stress, kPa.
     pub seating_kpa: Option<f64>,
     /// `seating`, `armed`, `primary`, `ready` or `finished`.
-    pub state: String,
+    pub state: TestState,
     /// Start, RFC 3339 UTC.
     pub started_at: String,
     /// Finish, RFC 3339 UTC.
@@ -54,54 +57,37 @@ pub(crate) struct TestRow {
     pub started_us: i64,
 }
 
-const TEST_COLUMNS: &str = "t.id, f.id, t.frame_key, t.specimen, t.description, t.height_mm, t.diameter_mm, t.dry_mass_g,
-    t.specific_gravity, t.initial_water_content, t.final_water_content, t.seating_kpa, t.state, t.started_us, t.finished_us";
-
-fn test_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<TestRow> {
-    let started_us: i64 = r.get(13)?;
-    Ok(TestRow {
-        id: r.get(0)?,
-        frame: r.get(1)?,
-        frame_key: r.get(2)?,
-        specimen: r.get(3)?,
-        description: r.get(4)?,
-        height_mm: r.get(5)?,
-        diameter_mm: r.get(6)?,
-        dry_mass_g: r.get(7)?,
-        specific_gravity: r.get(8)?,
-        initial_water_content: r.get(9)?,
-        final_water_content: r.get(10)?,
-        seating_kpa: r.get(11)?,
-        state: r.get(12)?,
-        started_at: rfc3339(started_us),
-        finished_at: r.get::<_, Option<i64>>(14)?.map(rfc3339),
-        started_us,
-    })
+impl From<StoredTest> for TestRow {
+    fn from(t: StoredTest) -> Self {
+        TestRow {
+            id: t.id,
+            frame: t.frame,
+            frame_key: t.frame_key,
+            specimen: t.specimen,
+            description: t.description,
+            height_mm: t.height_mm,
+            diameter_mm: t.diameter_mm,
+            dry_mass_g: t.dry_mass_g,
+            specific_gravity: t.specific_gravity,
+            initial_water_content: t.initial_water_content,
+            final_water_content: t.final_water_content,
+            seating_kpa: t.seating_kpa,
+            state: t.state,
+            started_at: rfc3339(t.started_us),
+            finished_at: t.finished_us.map(rfc3339),
+            started_us: t.started_us,
+        }
+    }
 }
 
 /// Test `id`, or 404.
-pub(crate) fn test(conn: &Connection, id: i64) -> Result<TestRow, ApiError> {
-    conn.query_row(
-        &format!("SELECT {TEST_COLUMNS} FROM tests t JOIN frames f ON f.key = t.frame_key WHERE t.id = ?1"),
-        [id],
-        test_row,
-    )
-    .optional()?
-    .ok_or_else(|| ApiError::NotFound(format!("no test {id}")))
+pub(crate) fn test(conn: &Reader, id: i64) -> Result<TestRow, ApiError> {
+    read::test(conn, id)?.map(TestRow::from).ok_or_else(|| ApiError::NotFound(format!("no test {id}")))
 }
 
 /// The running test of a frame, else its most recent one.
-pub(crate) fn latest_test(conn: &Connection, frame_key: i64) -> Result<Option<TestRow>, ApiError> {
-    Ok(conn
-        .query_row(
-            &format!(
-                "SELECT {TEST_COLUMNS} FROM tests t JOIN frames f ON f.key = t.frame_key WHERE t.frame_key = ?1
-                 ORDER BY (t.finished_us IS NULL) DESC, t.id DESC LIMIT 1"
-            ),
-            [frame_key],
-            test_row,
-        )
-        .optional()?)
+pub(crate) fn latest_test(conn: &Reader, frame_key: i64) -> Result<Option<TestRow>, ApiError> {
+    Ok(read::latest_test(conn, frame_key)?.map(TestRow::from))
 }
 
 /// One increment as stored.
@@ -120,7 +106,7 @@ pub(crate) struct IncrementRow {
     /// t0, found from the data.
     pub onset_at: Option<String>,
     /// `load-step` or `deformation`.
-    pub onset_source: Option<String>,
+    pub onset_source: Option<OnsetSource>,
     /// End of primary established.
     pub ready_at: Option<String>,
     /// When the next increment began or the test finished.
@@ -133,33 +119,31 @@ pub(crate) struct IncrementRow {
     pub ended_us: Option<i64>,
 }
 
+impl From<StoredIncrement> for IncrementRow {
+    fn from(i: StoredIncrement) -> Self {
+        IncrementRow {
+            seq: i.seq,
+            stress_kpa: i.stress_kpa,
+            from_kpa: i.from_kpa,
+            armed_at: i.armed_us.map(rfc3339),
+            reported_at: i.reported_us.map(rfc3339),
+            onset_at: i.onset_us.map(rfc3339),
+            onset_source: i.onset_source,
+            ready_at: i.ready_us.map(rfc3339),
+            ended_at: i.ended_us.map(rfc3339),
+            onset_us: i.onset_us,
+            ended_us: i.ended_us,
+        }
+    }
+}
+
 /// The increments of test `test_id` in order.
-pub(crate) fn increments(conn: &Connection, test_id: i64) -> Result<Vec<IncrementRow>, ApiError> {
-    let mut statement = conn.prepare_cached(
-        "SELECT seq, stress_kpa, from_kpa, armed_us, reported_us, onset_us, onset_source, ready_us, ended_us
-         FROM increments WHERE test_id = ?1 ORDER BY seq",
-    )?;
-    let rows = statement.query_map([test_id], |r| {
-        let at = |i: usize| r.get::<_, Option<i64>>(i).map(|v| v.map(rfc3339));
-        Ok(IncrementRow {
-            seq: r.get(0)?,
-            stress_kpa: r.get(1)?,
-            from_kpa: r.get(2)?,
-            armed_at: at(3)?,
-            reported_at: at(4)?,
-            onset_at: at(5)?,
-            onset_source: r.get(6)?,
-            ready_at: at(7)?,
-            ended_at: at(8)?,
-            onset_us: r.get(5)?,
-            ended_us: r.get(8)?,
-        })
-    })?;
-    Ok(rows.collect::<Result<_, _>>()?)
+pub(crate) fn increments(conn: &Reader, test_id: i64) -> Result<Vec<IncrementRow>, ApiError> {
+    Ok(read::increments(conn, test_id)?.into_iter().map(IncrementRow::from).collect())
 }
 
 /// Increment `seq` of a test, or 404.
-pub(crate) fn increment(conn: &Connection, test_id: i64, seq: i64) -> Result<IncrementRow, ApiError> {
+pub(crate) fn increment(conn: &Reader, test_id: i64, seq: i64) -> Result<IncrementRow, ApiError> {
     increments(conn, test_id)?
         .into_iter()
         .find(|i| i.seq == seq)
@@ -169,29 +153,13 @@ pub(crate) fn increment(conn: &Connection, test_id: i64, seq: i64) -> Result<Inc
 pub(crate) use crate::store::Poll;
 
 /// Displacement and load polls of a frame in `[from_us, to_us]`, in time order.
-pub(crate) fn polls(conn: &Connection, frame_key: i64, from_us: i64, to_us: i64) -> Result<Vec<Poll>, ApiError> {
-    Ok(crate::store::polls(conn, frame_key, from_us, to_us)?)
-}
-
-fn displacement_at_or_before(conn: &Connection, key: i64, at_us: i64) -> Result<Option<f64>, ApiError> {
-    Ok(conn
-        .query_row(
-            "SELECT value FROM readings WHERE frame_key = ?1 AND channel = 0 AND at_us <= ?2 ORDER BY at_us DESC LIMIT 1",
-            params![key, at_us],
-            |r| r.get(0),
-        )
-        .optional()?)
+pub(crate) fn polls(conn: &Reader, frame_key: i64, from_us: i64, to_us: i64) -> Result<Vec<Poll>, ApiError> {
+    Ok(read::polls(conn, frame_key, from_us, to_us)?)
 }
 
 /// The gauge reading at the test's zero: the first displacement at or after its start (as the hub does).
-fn zero_reading(conn: &Connection, test: &TestRow) -> Result<Option<f64>, ApiError> {
-    Ok(conn
-        .query_row(
-            "SELECT value FROM readings WHERE frame_key = ?1 AND channel = 0 AND at_us >= ?2 ORDER BY at_us LIMIT 1",
-            params![test.frame_key, test.started_us],
-            |r| r.get(0),
-        )
-        .optional()?)
+fn zero_reading(conn: &Reader, test: &TestRow) -> Result<Option<f64>, ApiError> {
+    Ok(read::displacement_from(conn, test.frame_key, test.started_us)?)
 }
 
 /// An increment's stored time curve, ready for the analysis: `(t_min, d_mm)` from t0.
@@ -201,8 +169,8 @@ pub(crate) struct StoredCurve {
 }
 
 /// The curve from t0 of polls stamped after `onset` (earlier ones are skipped).
-fn curve_of(conn: &Connection, test: &TestRow, onset: i64, polls: &[Poll]) -> Result<StoredCurve, ApiError> {
-    let d_onset = displacement_at_or_before(conn, test.frame_key, onset)?;
+fn curve_of(conn: &Reader, test: &TestRow, onset: i64, polls: &[Poll]) -> Result<StoredCurve, ApiError> {
+    let d_onset = read::displacement_at_or_before(conn, test.frame_key, onset)?;
     let mut readings: Vec<(f64, f64)> = d_onset.map(|d| (0.0, d)).into_iter().collect();
     for &(at, d, _) in polls.iter().filter(|p| p.0 > onset) {
         if let Some(d) = d {
@@ -215,7 +183,7 @@ fn curve_of(conn: &Connection, test: &TestRow, onset: i64, polls: &[Poll]) -> Re
 /// The stored time curve of an increment through the poll cache; `None` before its onset or with fewer
 /// than two readings.
 fn stored_curve(
-    conn: &Connection,
+    conn: &Reader,
     caches: &Caches,
     test: &TestRow,
     inc: &IncrementRow,
@@ -306,7 +274,7 @@ impl TestRow {
 /// `commits` read before the database, see `Writer::commits`), settlements from the test's zero reading,
 /// corrected for apparatus deflection when the test's frame in `frames` has a calibration.
 pub(crate) fn reduce_test(
-    conn: &Connection,
+    conn: &Reader,
     caches: &Caches,
     commits: u64,
     id: i64,
@@ -414,7 +382,7 @@ pub(crate) struct EventView {
     /// The frame's config id, if any.
     pub frame: Option<String>,
     /// Machine name.
-    pub kind: String,
+    pub kind: EventKind,
     /// What a person reads.
     pub message: String,
     /// Who, for operator actions.
@@ -423,60 +391,39 @@ pub(crate) struct EventView {
     pub data: Option<serde_json::Value>,
 }
 
+impl From<journal::JournalEntry> for EventView {
+    fn from(e: journal::JournalEntry) -> Self {
+        EventView {
+            id: e.id,
+            at: rfc3339(e.at_us),
+            frame: e.frame,
+            kind: e.kind,
+            message: e.message,
+            actor: e.actor,
+            data: e.data,
+        }
+    }
+}
+
 /// Events with id > `after`, oldest first, at most `limit`, optionally of one frame.
 pub(crate) fn events(
-    conn: &Connection,
+    conn: &Reader,
     after: i64,
     limit: i64,
     frame_key: Option<i64>,
 ) -> Result<Vec<EventView>, ApiError> {
-    let mut statement = conn.prepare_cached(
-        "SELECT e.id, e.at_us, f.id, e.kind, e.message, e.actor, e.data FROM events e LEFT JOIN frames f ON f.key = e.frame_key
-         WHERE e.id > ?1 AND (?2 IS NULL OR e.frame_key = ?2) ORDER BY e.id LIMIT ?3",
-    )?;
-    let rows = statement.query_map(params![after, frame_key, limit], event_view)?;
-    Ok(rows.collect::<Result<_, _>>()?)
+    Ok(journal::after(conn, after, limit, frame_key)?.into_iter().map(EventView::from).collect())
 }
 
 /// Which journal entries `GET /api/events` asks for.
-pub(crate) struct EventWindow {
-    /// Ids above this.
-    pub after: i64,
-    /// Ids below this.
-    pub before: i64,
-    /// At most this many.
-    pub limit: i64,
-    /// Only this frame's.
-    pub frame_key: Option<i64>,
-    /// The newest first (and the newest `limit` of the window), else the oldest first.
-    pub newest_first: bool,
-}
+pub(crate) use crate::store::journal::Window as EventWindow;
 
 /// The journal entries of `window`.
-pub(crate) fn events_in(conn: &Connection, window: &EventWindow) -> Result<Vec<EventView>, ApiError> {
-    let order = if window.newest_first { "DESC" } else { "ASC" };
-    let mut statement = conn.prepare_cached(&format!(
-        "SELECT e.id, e.at_us, f.id, e.kind, e.message, e.actor, e.data FROM events e LEFT JOIN frames f ON f.key = e.frame_key
-         WHERE e.id > ?1 AND e.id < ?2 AND (?3 IS NULL OR e.frame_key = ?3) ORDER BY e.id {order} LIMIT ?4"
-    ))?;
-    let rows = statement.query_map(params![window.after, window.before, window.frame_key, window.limit], event_view)?;
-    Ok(rows.collect::<Result<_, _>>()?)
-}
-
-fn event_view(r: &rusqlite::Row<'_>) -> rusqlite::Result<EventView> {
-    let data: Option<String> = r.get(6)?;
-    Ok(EventView {
-        id: r.get(0)?,
-        at: rfc3339(r.get(1)?),
-        frame: r.get(2)?,
-        kind: r.get(3)?,
-        message: r.get(4)?,
-        actor: r.get(5)?,
-        data: data.and_then(|d| serde_json::from_str(&d).ok()),
-    })
+pub(crate) fn events_in(conn: &Reader, window: &EventWindow) -> Result<Vec<EventView>, ApiError> {
+    Ok(journal::window(conn, window)?.into_iter().map(EventView::from).collect())
 }
 
 /// The newest event id (0 for none).
-pub(crate) fn last_event_id(conn: &Connection) -> Result<i64, ApiError> {
-    Ok(conn.query_row("SELECT coalesce(max(id), 0) FROM events", [], |r| r.get(0))?)
+pub(crate) fn last_event_id(conn: &Reader) -> Result<i64, ApiError> {
+    Ok(journal::newest_id(conn)?)
 }

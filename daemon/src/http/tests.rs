@@ -13,12 +13,13 @@ use tempfile::TempDir;
 use tower::ServiceExt;
 
 use super::*;
-use crate::acquire::{Live, LiveFrame};
+
+mod one_reduction;
 use crate::clock::ManualClock;
 use crate::config::{Config, Purpose};
-use crate::lab::Lab;
-use crate::store::{self, ChannelKind, Event, Reading, Writer, WriterPolicy, WriterThread};
-use crate::watch::{Hub, WatchParams};
+use crate::store::testing::{self, Table};
+use crate::store::{self, ChannelKind, Event, EventKind, Reading, WriterThread, journal};
+use oedolog_core::watch::OnsetSource;
 
 const OPERATOR_TOKEN: &str = "operator-token-0123456789";
 const VIEWER_TOKEN: &str = "viewer-token-0123456789";
@@ -79,44 +80,13 @@ register = { table = "input", address = 2, type = "i32" }
     text
 }
 
-/// A daemon without buses, built as `service::start` builds one.
+/// A daemon without buses, assembled as `oedolog run` assembles one (nothing started: no bus, no task).
 fn bench(users: bool) -> Bench {
     let dir = tempfile::tempdir().unwrap();
     let config = Config::parse(&config_text(dir.path(), users), Purpose::Run).unwrap_or_else(|e| panic!("{e}"));
-    let path = config.store.as_ref().unwrap().path.clone();
     let clock = Arc::new(ManualClock::new(START_US));
-    let conn = store::open(&path).unwrap();
-    let keys: Vec<i64> =
-        config.frames.iter().map(|f| store::frame_key(&conn, &f.id, &f.name, START_US).unwrap()).collect();
-    let writer_thread = Writer::spawn(conn, WriterPolicy::default(), |_| {});
-    let writer = writer_thread.writer();
-    let reader = store::reader(&path).unwrap();
-    let lab = Lab::resume(&reader, keys.clone(), writer.clone(), START_US).unwrap();
-    let areas = config.frames.iter().map(|f| f.ring_area_mm2).collect();
-    let hub = Hub::resume(&reader, lab.clone(), writer.clone(), clock.clone(), areas, WatchParams::default()).unwrap();
-    let live = Live::new(
-        config
-            .frames
-            .iter()
-            .zip(&keys)
-            .map(|(f, &key)| LiveFrame { id: f.id.clone(), name: f.name.clone(), key, ..Default::default() })
-            .collect(),
-    );
-    let state = AppState {
-        live,
-        lab,
-        hub,
-        clock: clock.clone(),
-        stale_after: vec![Duration::from_secs(30); 2],
-        started_us: START_US,
-        writer,
-        store_path: path,
-        frames: Arc::new(config.frames.clone()),
-        users: Arc::new(config.http.users.clone()),
-        caches: Default::default(),
-        alarms: Default::default(),
-    };
-    Bench { state, clock, _writer_thread: writer_thread, dir }
+    let assembled = crate::service::assemble(&config, clock.clone(), Default::default()).unwrap();
+    Bench { state: assembled.state, clock, _writer_thread: assembled.writer_thread, dir }
 }
 
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -177,9 +147,8 @@ fn settle(b: &Bench) {
 }
 
 /// Counts rows of `table` on a fresh reader.
-fn count(state: &AppState, table: &str) -> i64 {
-    let conn = store::reader(&state.store_path).unwrap();
-    conn.query_row(&format!("SELECT count(*) FROM {table}"), [], |r| r.get(0)).unwrap()
+fn count(state: &AppState, table: Table) -> i64 {
+    testing::count(&store::reader(&state.store_path).unwrap(), table)
 }
 
 /// Degree of consolidation U for time factor Tv, from Terzaghi's solution in the two-branch closed form
@@ -212,7 +181,7 @@ async fn test_with_curve(b: &Bench) -> i64 {
     let (status, armed) = call(&b.state, "POST", "/api/frames/F1/increments", Some(json!({"stress_kpa": 50.0}))).await;
     assert_eq!(status, StatusCode::CREATED, "{armed}");
     let onset_us = START_US + 600_000_000;
-    b.state.lab.set_onset(0, onset_us, "load-step", "increment 1: t0 (test)".into()).unwrap();
+    b.state.lab.set_onset(0, onset_us, OnsetSource::LoadStep, "increment 1: t0 (test)".into()).unwrap();
     let (cv, hdr, primary) = (1.0, 10.0, 0.5);
     b.state
         .writer
@@ -276,7 +245,7 @@ async fn bad_specimen_data_is_refused_naming_the_field_and_nothing_is_stored() {
         ("initial_water_content", json!(5.5), StatusCode::UNPROCESSABLE_ENTITY),
         ("colour", json!("grey"), StatusCode::UNPROCESSABLE_ENTITY),
     ];
-    let (tests_before, events_before) = (count(&b.state, "tests"), count(&b.state, "events"));
+    let (tests_before, events_before) = (count(&b.state, Table::Tests), count(&b.state, Table::Events));
     for (field, value, expected) in cases {
         let mut body = specimen();
         body[field] = value.clone();
@@ -309,7 +278,11 @@ async fn bad_specimen_data_is_refused_naming_the_field_and_nothing_is_stored() {
     .await;
     assert_eq!(status, StatusCode::UNSUPPORTED_MEDIA_TYPE);
     assert!(text.contains("application/json"), "{text}");
-    assert_eq!((count(&b.state, "tests"), count(&b.state, "events")), (tests_before, events_before), "nothing stored");
+    assert_eq!(
+        (count(&b.state, Table::Tests), count(&b.state, Table::Events)),
+        (tests_before, events_before),
+        "nothing stored"
+    );
     assert!(b.state.lab.snapshot()[0].is_none());
 }
 
@@ -350,7 +323,7 @@ async fn a_hanger_mass_arms_its_stress_and_only_on_a_lever_frame() {
         let (status, _) = call(&b.state, "POST", "/api/frames/F1/increments", Some(bad.clone())).await;
         assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY, "{bad}");
     }
-    assert_eq!(count(&b.state, "increments"), 0, "nothing stored");
+    assert_eq!(count(&b.state, Table::Increments), 0, "nothing stored");
     let (status, armed) =
         call(&b.state, "POST", "/api/frames/F1/increments", Some(json!({"hanger_mass_kg": 10.0}))).await;
     assert_eq!(status, StatusCode::CREATED, "{armed}");
@@ -359,12 +332,12 @@ async fn a_hanger_mass_arms_its_stress_and_only_on_a_lever_frame() {
     assert!((stress - 309.66).abs() < 0.01, "{stress}");
     assert_eq!(armed["seq"], 1);
     let conn = store::reader(&b.state.store_path).unwrap();
-    let stored: f64 = conn.query_row("SELECT stress_kpa FROM increments", [], |r| r.get(0)).unwrap();
-    assert_eq!(stored, stress);
+    let test_id = store::read::latest_test(&conn, b.state.lab.key(0)).unwrap().expect("F1's test").id;
+    let stored = || store::read::increments(&conn, test_id).unwrap();
+    assert_eq!(stored().iter().map(|i| i.stress_kpa).collect::<Vec<_>>(), [stress]);
     let (status, _) = call(&b.state, "POST", "/api/frames/F1/increments/current/applied", None).await;
     assert_eq!(status, StatusCode::OK);
-    let reported: Option<i64> = conn.query_row("SELECT reported_us FROM increments", [], |r| r.get(0)).unwrap();
-    assert_eq!(reported, Some(START_US));
+    assert_eq!(stored()[0].reported_us, Some(START_US));
     let (status, _) = call(&b.state, "POST", "/api/frames/F1/reseat", Some(json!({"accept": true}))).await;
     assert_eq!(status, StatusCode::CONFLICT, "no re-seat is proposed");
     let (status, error) = call(&b.state, "POST", "/api/frames/F1/reseat", Some(json!({"accept": "yes"}))).await;
@@ -374,12 +347,12 @@ async fn a_hanger_mass_arms_its_stress_and_only_on_a_lever_frame() {
 #[tokio::test]
 async fn notes_go_into_the_frame_journal_within_their_limits() {
     let b = bench(false);
-    let events_before = count(&b.state, "events");
+    let events_before = count(&b.state, Table::Events);
     for text in [json!(""), json!("  "), json!("x".repeat(2001)), json!(5)] {
         let (status, error) = call(&b.state, "POST", "/api/frames/F1/notes", Some(json!({ "text": text }))).await;
         assert_eq!((status, error["field"].as_str()), (StatusCode::UNPROCESSABLE_ENTITY, Some("text")), "{error}");
     }
-    assert_eq!(count(&b.state, "events"), events_before);
+    assert_eq!(count(&b.state, Table::Events), events_before);
     let (status, note) =
         call(&b.state, "POST", "/api/frames/F1/notes", Some(json!({"text": "gauge touched at 14:10"}))).await;
     assert_eq!(status, StatusCode::CREATED);
@@ -583,17 +556,9 @@ async fn the_stream_resumes_after_last_event_id_without_a_gap() {
     let mut ids = Vec::new();
     for i in 0..5 {
         let message = format!("event {i}");
-        let id = b
-            .state
-            .writer
-            .run(move |conn| {
-                conn.execute(
-                    "INSERT INTO events (at_us, kind, message) VALUES (?1, 'note', ?2)",
-                    rusqlite::params![START_US + i, message],
-                )?;
-                Ok(conn.last_insert_rowid())
-            })
-            .unwrap();
+        let note =
+            Event { at_us: START_US + i, frame_key: None, kind: EventKind::Note, message, actor: None, data: None };
+        let id = journal::append(&b.state.writer, note).unwrap();
         ids.push(id);
     }
     let resume_after = ids[1];
@@ -612,7 +577,7 @@ async fn the_stream_resumes_after_last_event_id_without_a_gap() {
         .event(Event {
             at_us: START_US,
             frame_key: None,
-            kind: "note",
+            kind: EventKind::Note,
             message: "late".into(),
             actor: None,
             data: None,
@@ -692,15 +657,14 @@ async fn every_route_by_every_kind_of_caller() {
         assert_eq!(send(&b.state, req).await.0, StatusCode::UNAUTHORIZED, "{auth}");
     }
     // The operator's actions carry the user's name in the journal; the viewer's attempts left nothing.
-    let conn = store::reader(&b.state.store_path).unwrap();
-    let actors: Vec<(String, Option<String>)> = conn
-        .prepare("SELECT kind, actor FROM events WHERE kind IN ('test-started', 'armed', 'load-reported', 'note', 'test-finished') ORDER BY id")
-        .unwrap()
-        .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))
-        .unwrap()
-        .collect::<Result<_, _>>()
-        .unwrap();
-    let kinds: Vec<&str> = actors.iter().map(|(k, _)| k.as_str()).collect();
+    let acts =
+        [EventKind::TestStarted, EventKind::Armed, EventKind::LoadReported, EventKind::Note, EventKind::TestFinished];
+    let actors: Vec<(EventKind, Option<String>)> = testing::journal(&store::reader(&b.state.store_path).unwrap())
+        .into_iter()
+        .filter(|e| acts.contains(&e.kind))
+        .map(|e| (e.kind, e.actor))
+        .collect();
+    let kinds: Vec<&str> = actors.iter().map(|(k, _)| k.name()).collect();
     assert_eq!(kinds, ["test-started", "armed", "load-reported", "note", "test-finished"]);
     assert!(actors.iter().all(|(_, a)| a.as_deref() == Some("olga")), "{actors:?}");
 }
@@ -923,21 +887,41 @@ async fn an_alarm_is_raised_acknowledged_by_name_and_cleared_with_every_step_jou
     assert_eq!((all[0]["open"].clone(), all[0]["acknowledged_by"].clone()), (json!(false), json!("olga")), "{all}");
     assert!(all[0]["cleared_at"].is_string());
     assert_eq!(send(s, get("/api/alarms?state=shut")).await.0, StatusCode::BAD_REQUEST);
-    let conn = store::reader(&s.store_path).unwrap();
-    let steps: Vec<(String, Option<String>, String)> = conn
-        .prepare("SELECT kind, actor, data FROM events WHERE kind LIKE 'alarm-%' ORDER BY id")
-        .unwrap()
-        .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))
-        .unwrap()
-        .collect::<Result<_, _>>()
-        .unwrap();
-    let kinds: Vec<&str> = steps.iter().map(|(k, _, _)| k.as_str()).collect();
+    let steps: Vec<(EventKind, Option<String>, Option<Value>)> =
+        testing::journal(&store::reader(&s.store_path).unwrap())
+            .into_iter()
+            .filter(|e| e.kind.name().starts_with("alarm-"))
+            .map(|e| (e.kind, e.actor, e.data))
+            .collect();
+    let kinds: Vec<&str> = steps.iter().map(|(k, _, _)| k.name()).collect();
     assert_eq!(kinds, ["alarm-raised", "alarm-acknowledged", "alarm-cleared"]);
     assert_eq!(steps[1].1.as_deref(), Some("olga"));
     for (_, _, data) in &steps {
-        let data: Value = serde_json::from_str(data).unwrap();
+        let data = data.as_ref().expect("alarm details");
         assert_eq!((data["alarm"].as_str(), data["alarm_id"].as_i64()), (Some("stale"), Some(id)), "{data}");
     }
     let (_, _, metrics) = send(s, get("/metrics")).await;
     assert!(metrics.contains("oedolog_alarms_cleared_total{code=\"stale\"} 1"), "{metrics}");
+}
+
+#[tokio::test]
+async fn the_page_and_json_are_gzipped_for_a_client_that_asks_and_event_streams_never_are() {
+    use std::io::Read as _;
+    let b = bench(false);
+    let plain = send(&b.state, request("GET", "/frame.js", None, Who::Nobody)).await;
+    assert_eq!(plain.0, StatusCode::OK);
+    assert!(plain.1.get(header::CONTENT_ENCODING).is_none(), "no Accept-Encoding: sent as it is");
+    let gzip = |path: &str| Request::get(path).header(header::ACCEPT_ENCODING, "gzip").body(Body::empty()).unwrap();
+    let response = router(b.state.clone()).oneshot(gzip("/frame.js")).await.unwrap();
+    assert_eq!(response.headers()[header::CONTENT_ENCODING], "gzip");
+    let packed = axum::body::to_bytes(response.into_body(), 16 << 20).await.unwrap();
+    let mut unpacked = String::new();
+    flate2::read::GzDecoder::new(&packed[..]).read_to_string(&mut unpacked).unwrap();
+    assert_eq!(unpacked, plain.2, "the gzipped script is the script");
+    assert!(packed.len() * 3 < plain.2.len(), "{} bytes packed of {}", packed.len(), plain.2.len());
+    let response = router(b.state.clone()).oneshot(gzip("/api/frames")).await.unwrap();
+    assert_eq!(response.headers()[header::CONTENT_ENCODING], "gzip");
+    let response = router(b.state.clone()).oneshot(gzip("/api/stream")).await.unwrap();
+    assert_eq!(response.headers()[header::CONTENT_TYPE], "text/event-stream");
+    assert!(response.headers().get(header::CONTENT_ENCODING).is_none(), "an event stream is never buffered");
 }

@@ -18,19 +18,18 @@ use hyper::body::Bytes;
 use hyper::header::{CONNECTION, CONTENT_TYPE, HOST, USER_AGENT};
 use hyper::{Request, StatusCode};
 use hyper_util::rt::TokioIo;
-use rusqlite::{Connection, OptionalExtension, params};
 use tokio::task::{JoinHandle, JoinSet};
 
 use crate::acquire::backoff::Backoff;
 use crate::clock::{Clock, rfc3339};
 use crate::config::{NotifyEvent, Webhook};
-use crate::store::{self, StoreError, Writer};
+use crate::store::{self, Event, EventKind, Reader, StoreError, Writer, journal};
 
 /// The header that carries the journal id of the event, the same on every retry, so a receiver can drop
 /// a duplicate (one delivered but whose answer was lost).
 pub const EVENT_ID_HEADER: &str = "x-oedolog-event";
 /// The journal kind of a notification refused for good.
-pub const FAILED_KIND: &str = "notify-failed";
+pub const FAILED_KIND: EventKind = EventKind::NotifyFailed;
 /// Events read per query while catching up.
 const BATCH: i64 = 200;
 /// A cursor moved only past unsubscribed events is saved at most this often (a restart re-reads at most
@@ -74,7 +73,7 @@ pub fn start(
         let cursor = first_cursor(&conn, writer, hook, clock.now_us())?;
         let task = HookTask {
             hook: hook.clone(),
-            kinds: serde_json::json!(hook.events.iter().flat_map(|e| e.kinds()).collect::<Vec<_>>()).to_string(),
+            kinds: hook.events.iter().flat_map(|e| e.kinds()).collect(),
             store_path: store_path.to_path_buf(),
             writer: writer.clone(),
             clock: clock.clone(),
@@ -97,28 +96,19 @@ pub fn start(
 }
 
 /// The persisted cursor of a webhook, or for a new one the newest event id, saved at once.
-fn first_cursor(conn: &Connection, writer: &Writer, hook: &Webhook, now_us: i64) -> Result<i64, StoreError> {
+fn first_cursor(conn: &Reader, writer: &Writer, hook: &Webhook, now_us: i64) -> Result<i64, StoreError> {
     let url = hook.url.as_str().to_string();
-    let saved: Option<i64> =
-        conn.query_row("SELECT last_event_id FROM notify_cursors WHERE url = ?1", [&url], |r| r.get(0)).optional()?;
-    if let Some(id) = saved {
+    if let Some(id) = store::notify::cursor(conn, &url)? {
         return Ok(id);
     }
-    writer.run(move |conn| {
-        let newest: i64 = conn.query_row("SELECT coalesce(max(id), 0) FROM events", [], |r| r.get(0))?;
-        conn.execute(
-            "INSERT INTO notify_cursors (url, last_event_id, updated_us) VALUES (?1, ?2, ?3)",
-            params![url, newest, now_us],
-        )?;
-        Ok(newest)
-    })
+    store::notify::start_cursor(writer, url, now_us)
 }
 
 /// A subscribed journal event waiting to be posted.
 #[derive(Clone, Debug)]
 struct Pending {
     id: i64,
-    kind: String,
+    kind: EventKind,
     body: Bytes,
 }
 
@@ -135,8 +125,8 @@ enum Attempt {
 
 struct HookTask {
     hook: Webhook,
-    /// The journal kinds subscribed, as a JSON array for `json_each`.
-    kinds: String,
+    /// The journal kinds subscribed.
+    kinds: Vec<EventKind>,
     store_path: PathBuf,
     writer: Writer,
     clock: Arc<dyn Clock>,
@@ -149,7 +139,7 @@ struct HookTask {
 
 impl HookTask {
     async fn run(mut self) {
-        let mut conn: Option<Connection> = None;
+        let mut conn: Option<Reader> = None;
         let mut last_save = Instant::now();
         let mut ticker = tokio::time::interval(self.policy.poll);
         ticker.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
@@ -183,7 +173,7 @@ impl HookTask {
     }
 
     /// Subscribed events after the cursor, oldest first, and the id up to which the journal was read.
-    async fn fetch(&self, conn: &mut Option<Connection>) -> Result<(Vec<Pending>, i64), String> {
+    async fn fetch(&self, conn: &mut Option<Reader>) -> Result<(Vec<Pending>, i64), String> {
         let (path, kinds, after) = (self.store_path.clone(), self.kinds.clone(), self.cursor);
         let simulated = self.clock.is_simulated();
         let taken = conn.take();
@@ -236,32 +226,22 @@ impl HookTask {
         let shown = self.hook.url.redacted();
         let (cursor, now_us) = (self.cursor, self.clock.now_us());
         let writer = self.writer.clone();
-        let job = move |conn: &Connection| -> Result<(), StoreError> {
-            conn.execute(
-                "INSERT INTO notify_cursors (url, last_event_id, updated_us) VALUES (?1, ?2, ?3)
-                 ON CONFLICT(url) DO UPDATE SET last_event_id = excluded.last_event_id, updated_us = excluded.updated_us",
-                params![url, cursor, now_us],
-            )?;
-            if let Some((event, status)) = refused {
-                let message = format!(
-                    "webhook {shown} refused event {} ({}) with HTTP {status}; it is not sent again",
-                    event.id, event.kind
-                );
-                let data = serde_json::json!({
-                    "webhook": shown,
-                    "event_id": event.id,
-                    "kind": event.kind,
-                    "status": status.as_u16(),
-                });
-                conn.execute(
-                    "INSERT INTO events (at_us, kind, message, data) VALUES (?1, ?2, ?3, ?4)",
-                    params![now_us, FAILED_KIND, message, data.to_string()],
-                )?;
-                tracing::error!("{message}");
-            }
-            Ok(())
-        };
-        match tokio::task::spawn_blocking(move || writer.run(job)).await {
+        let failed = refused.map(|(event, status)| {
+            let message = format!(
+                "webhook {shown} refused event {} ({}) with HTTP {status}; it is not sent again",
+                event.id, event.kind
+            );
+            let data = serde_json::json!({
+                "webhook": shown,
+                "event_id": event.id,
+                "kind": event.kind,
+                "status": status.as_u16(),
+            });
+            tracing::error!("{message}");
+            Event { at_us: now_us, frame_key: None, kind: FAILED_KIND, message, actor: None, data: Some(data) }
+        });
+        let job = move || store::notify::save_cursor(&writer, url, cursor, now_us, failed);
+        match tokio::task::spawn_blocking(job).await {
             Ok(Ok(())) => {
                 self.saved = cursor;
                 true
@@ -283,43 +263,33 @@ impl HookTask {
 /// The subscribed events with `id > after` (at most [`BATCH`]) and how far the journal was read: to the
 /// newest event, or to the last one returned when the batch is full.
 fn pending_after(
-    conn: &Connection,
+    conn: &Reader,
     after: i64,
-    kinds: &str,
+    kinds: &[EventKind],
     simulated: bool,
 ) -> Result<(Vec<Pending>, i64), StoreError> {
-    let newest: i64 = conn.query_row("SELECT coalesce(max(id), 0) FROM events", [], |r| r.get(0))?;
+    let newest = journal::newest_id(conn)?;
     if newest <= after {
         return Ok((Vec::new(), after));
     }
-    let mut statement = conn.prepare_cached(
-        "SELECT e.id, e.at_us, e.kind, e.message, e.actor, e.data, f.id, f.name
-         FROM events e LEFT JOIN frames f ON f.key = e.frame_key
-         WHERE e.id > ?1 AND e.id <= ?2 AND e.kind IN (SELECT value FROM json_each(?3))
-         ORDER BY e.id LIMIT ?4",
-    )?;
-    let rows = statement.query_map(params![after, newest, kinds, BATCH], |r| {
-        let id: i64 = r.get(0)?;
-        let kind: String = r.get(2)?;
-        let data: Option<String> = r.get(5)?;
-        let details = data
-            .and_then(|d| serde_json::from_str::<serde_json::Value>(&d).ok())
-            .unwrap_or_else(|| serde_json::json!({}));
-        let body = serde_json::json!({
-            "event": NotifyEvent::of_kind(&kind).map(NotifyEvent::name),
-            "kind": kind,
-            "frame": r.get::<_, Option<String>>(6)?,
-            "frame_name": r.get::<_, Option<String>>(7)?,
-            "at": rfc3339(r.get(1)?),
-            "message": r.get::<_, String>(3)?,
-            "actor": r.get::<_, Option<String>>(4)?,
-            "event_id": id,
-            "details": details,
-            "simulated_time": simulated,
-        });
-        Ok(Pending { id, kind, body: Bytes::from(body.to_string()) })
-    })?;
-    let pending: Vec<Pending> = rows.collect::<Result<_, _>>()?;
+    let pending: Vec<Pending> = journal::of_kinds(conn, after, newest, kinds, BATCH)?
+        .into_iter()
+        .map(|e| {
+            let body = serde_json::json!({
+                "event": NotifyEvent::of_kind(e.kind).map(NotifyEvent::name),
+                "kind": e.kind,
+                "frame": e.frame,
+                "frame_name": e.frame_name,
+                "at": rfc3339(e.at_us),
+                "message": e.message,
+                "actor": e.actor,
+                "event_id": e.id,
+                "details": e.data.unwrap_or_else(|| serde_json::json!({})),
+                "simulated_time": simulated,
+            });
+            Pending { id: e.id, kind: e.kind, body: Bytes::from(body.to_string()) }
+        })
+        .collect();
     let scanned_to = if pending.len() as i64 == BATCH { pending.last().map_or(after, |p| p.id) } else { newest };
     Ok((pending, scanned_to))
 }

@@ -15,6 +15,7 @@ use tokio::io::AsyncReadExt;
 use super::*;
 use crate::clock::ManualClock;
 use crate::config::{NotifyEvent, Webhook, WebhookUrl};
+use crate::store::testing::{self, Table};
 use crate::store::{ChannelKind, Reading, WriterPolicy, WriterThread};
 
 /// 2026-01-01T00:00:00.25Z (`date -u -d @1767225600` prints Thu Jan 1 00:00:00 UTC 2026).
@@ -54,37 +55,36 @@ impl Bench {
     }
 
     /// Commits a journal entry of frame F1 and returns its id.
-    async fn journal(&self, kind: &'static str, data: Option<serde_json::Value>) -> i64 {
+    async fn journal(&self, kind: EventKind, data: Option<serde_json::Value>) -> i64 {
         let (writer, key, at_us) = (self.writer.clone(), self.frame_key, self.clock.now_us());
         self.clock.advance_us(1_000_000);
-        tokio::task::spawn_blocking(move || {
-            writer.run(move |conn| {
-                conn.execute(
-                    "INSERT INTO events (at_us, frame_key, kind, message, actor, data) VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
-                    params![at_us, key, kind, format!("{kind} on F1"), "olga", data.map(|d| d.to_string())],
-                )?;
-                Ok(conn.last_insert_rowid())
-            })
-        })
-        .await
-        .unwrap()
-        .unwrap()
+        let event = Event {
+            at_us,
+            frame_key: Some(key),
+            kind,
+            message: format!("{kind} on F1"),
+            actor: Some("olga".into()),
+            data,
+        };
+        tokio::task::spawn_blocking(move || journal::append(&writer, event)).await.unwrap().unwrap()
     }
 
     fn start(&self, webhooks: &[Webhook]) -> JoinHandle<()> {
         start(webhooks, &self.path, &self.writer, self.clock.clone(), quick()).unwrap()
     }
 
-    fn query<T: rusqlite::types::FromSql>(&self, sql: &str) -> T {
-        store::reader(&self.path).unwrap().query_row(sql, [], |r| r.get(0)).unwrap()
+    fn count(&self, table: Table) -> i64 {
+        testing::count(&store::reader(&self.path).unwrap(), table)
+    }
+
+    /// The `notify-failed` entries, oldest first.
+    fn failures(&self) -> Vec<journal::JournalEntry> {
+        let reader = store::reader(&self.path).unwrap();
+        testing::journal(&reader).into_iter().filter(|e| e.kind == FAILED_KIND).collect()
     }
 
     fn cursor(&self, url: &WebhookUrl) -> Option<i64> {
-        store::reader(&self.path)
-            .unwrap()
-            .query_row("SELECT last_event_id FROM notify_cursors WHERE url = ?1", [url.as_str()], |r| r.get(0))
-            .optional()
-            .unwrap()
+        store::notify::cursor(&store::reader(&self.path).unwrap(), url.as_str()).unwrap()
     }
 }
 
@@ -216,11 +216,11 @@ async fn a_subscribed_ready_event_reaches_the_receiver_with_event_frame_at_and_d
     let bench = Bench::new();
     let (addr, receiver) = Receiver::start(&[]).await;
     let _notifier = bench.start(&[webhook(addr, "/hook?token=s3cret", &[NotifyEvent::Ready])]);
-    let onset = bench.journal("onset", None).await;
+    let onset = bench.journal(EventKind::Onset, None).await;
     let details = serde_json::json!({ "stress_kpa": 200.0, "t90_min": 12.5 });
-    let first = bench.journal("ready", Some(details.clone())).await;
-    let note = bench.journal("note", None).await;
-    let second = bench.journal("ready", None).await;
+    let first = bench.journal(EventKind::Ready, Some(details.clone())).await;
+    let note = bench.journal(EventKind::Note, None).await;
+    let second = bench.journal(EventKind::Ready, None).await;
     assert!(onset < first && first < note && note < second);
 
     let got = receiver.wait_delivered(second).await;
@@ -251,14 +251,14 @@ async fn server_errors_and_429_are_retried_and_the_event_then_arrives_once_in_jo
     let bench = Bench::new();
     let (addr, receiver) = Receiver::start(&[500, 429, 503]).await;
     let _notifier = bench.start(&[webhook(addr, "/hook", &[NotifyEvent::Ready])]);
-    let a = bench.journal("ready", None).await;
-    let b = bench.journal("ready", None).await;
+    let a = bench.journal(EventKind::Ready, None).await;
+    let b = bench.journal(EventKind::Ready, None).await;
     let got = receiver.wait_delivered(b).await;
     let tries: Vec<(i64, u16)> = got.iter().map(|r| (r.event_id(), r.answered)).collect();
     assert_eq!(tries, vec![(a, 500), (a, 429), (a, 503), (a, 200), (b, 200)]);
     assert!(got[..4].iter().all(|r| r.event_header == got[0].event_header), "a retry carries the same event id");
     assert_eq!(receiver.delivered(), vec![a, b], "each delivered once");
-    assert_eq!(bench.query::<i64>("SELECT count(*) FROM events WHERE kind = 'notify-failed'"), 0);
+    assert_eq!(bench.failures().len(), 0);
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
@@ -267,29 +267,28 @@ async fn a_client_error_is_journalled_once_as_notify_failed_and_the_next_event_s
     let (addr, receiver) = Receiver::start(&[400]).await;
     // Subscribed to every name: a `notify-failed` entry must still never be posted.
     let _notifier = bench.start(&[webhook(addr, "/hook?key=s3cret", &NotifyEvent::ALL)]);
-    let a = bench.journal("ready", None).await;
-    let b = bench.journal("armed", None).await;
+    let a = bench.journal(EventKind::Ready, None).await;
+    let b = bench.journal(EventKind::Armed, None).await;
     let got = receiver.wait_delivered(b).await;
     let tries: Vec<(i64, u16)> = got.iter().map(|r| (r.event_id(), r.answered)).collect();
     assert_eq!(tries, vec![(a, 400), (b, 200)], "a 400 is not retried");
 
-    let failed: Vec<(i64, String, String)> = {
-        let conn = store::reader(&bench.path).unwrap();
-        let mut statement =
-            conn.prepare("SELECT id, message, data FROM events WHERE kind = 'notify-failed' ORDER BY id").unwrap();
-        statement.query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?))).unwrap().map(Result::unwrap).collect()
-    };
+    let failed = bench.failures();
     assert_eq!(failed.len(), 1, "{failed:?}");
-    let data: serde_json::Value = serde_json::from_str(&failed[0].2).unwrap();
+    let data = failed[0].data.clone().expect("details");
     assert_eq!((data["event_id"].as_i64(), data["status"].as_u64()), (Some(a), Some(400)));
     assert_eq!(data["webhook"], format!("http://{addr}/hook"));
-    assert!(!failed[0].1.contains("s3cret") && !failed[0].2.contains("s3cret"), "the query is not journalled");
+    assert_eq!(data["kind"], "ready");
+    assert!(
+        !failed[0].message.contains("s3cret") && !data.to_string().contains("s3cret"),
+        "the query is not journalled"
+    );
 
-    let c = bench.journal("note", None).await;
+    let c = bench.journal(EventKind::Note, None).await;
     let got = receiver.wait_delivered(c).await;
-    assert!(got.iter().all(|r| r.body["kind"] != FAILED_KIND), "notify-failed posted: {got:#?}");
-    assert!(failed[0].0 < c, "journalled before `c`, so it would have been posted before it");
-    assert_eq!(bench.query::<i64>("SELECT count(*) FROM events WHERE kind = 'notify-failed'"), 1);
+    assert!(got.iter().all(|r| r.body["kind"] != FAILED_KIND.name()), "notify-failed posted: {got:#?}");
+    assert!(failed[0].id < c, "journalled before `c`, so it would have been posted before it");
+    assert_eq!(bench.failures().len(), 1);
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
@@ -300,18 +299,18 @@ async fn a_restarted_notifier_resumes_from_its_saved_cursor_and_a_new_webhook_st
     let hook1 = webhook(addr1, "/one", &[NotifyEvent::Ready]);
     let hook2 = webhook(addr2, "/two", &[NotifyEvent::Ready]);
 
-    let before = bench.journal("ready", None).await;
+    let before = bench.journal(EventKind::Ready, None).await;
     let notifier = bench.start(std::slice::from_ref(&hook1));
     assert_eq!(bench.cursor(&hook1.url), Some(before), "a new webhook starts after the newest event");
-    let b = bench.journal("ready", None).await;
+    let b = bench.journal(EventKind::Ready, None).await;
     first_receiver.wait_delivered(b).await;
     wait_for(|| bench.cursor(&hook1.url) == Some(b), "the cursor saved").await;
     notifier.abort();
     assert!(notifier.await.unwrap_err().is_cancelled());
 
-    let while_stopped = bench.journal("ready", None).await;
+    let while_stopped = bench.journal(EventKind::Ready, None).await;
     let _notifier = bench.start(&[hook1.clone(), hook2.clone()]);
-    let d = bench.journal("ready", None).await;
+    let d = bench.journal(EventKind::Ready, None).await;
     let got = first_receiver.wait_delivered(d).await;
     let ids: Vec<i64> = got.iter().map(Received::event_id).collect();
     assert_eq!(ids, vec![b, while_stopped, d], "no repeat of {b}, nothing lost while stopped, {before} never sent");
@@ -326,7 +325,7 @@ async fn a_receiver_that_never_answers_does_not_delay_the_writer() {
     let mut hook = webhook(addr, "/hook", &[NotifyEvent::Ready]);
     hook.timeout = Duration::from_secs(60);
     let _notifier = bench.start(std::slice::from_ref(&hook));
-    let ready = bench.journal("ready", None).await;
+    let ready = bench.journal(EventKind::Ready, None).await;
     wait_for(|| silent.requests().first().is_some_and(|r| r.contains("\r\n\r\n{")), "the request sent").await;
 
     // While that request hangs, the store keeps committing readings at its usual pace.
@@ -347,7 +346,7 @@ async fn a_receiver_that_never_answers_does_not_delay_the_writer() {
     });
     tokio::time::timeout(Duration::from_secs(5), committed).await.expect("the writer was held up").unwrap().unwrap();
     let took = started.elapsed();
-    assert_eq!(bench.query::<i64>("SELECT count(*) FROM readings"), 2000);
+    assert_eq!(bench.count(Table::Readings), 2000);
     assert_eq!(silent.requests().len(), 1, "still the one request, unanswered");
     assert_eq!(silent.closed.load(Ordering::SeqCst), 0, "the notifier is still waiting");
     assert!(bench.cursor(&hook.url).unwrap() < ready, "not counted as delivered");
@@ -361,7 +360,7 @@ async fn a_request_without_an_answer_times_out_closes_its_connection_and_is_trie
     let mut hook = webhook(addr, "/hook", &[NotifyEvent::Ready]);
     hook.timeout = Duration::from_millis(200);
     let _notifier = bench.start(&[hook]);
-    let ready = bench.journal("ready", None).await;
+    let ready = bench.journal(EventKind::Ready, None).await;
     wait_for(|| silent.requests().len() >= 2, "a second try").await;
     wait_for(|| silent.closed.load(Ordering::SeqCst) >= 1, "the first connection closed").await;
     let requests = silent.requests();
@@ -373,5 +372,6 @@ async fn a_request_without_an_answer_times_out_closes_its_connection_and_is_trie
 #[test]
 fn no_event_name_stands_for_notify_failed() {
     assert!(NotifyEvent::ALL.iter().all(|e| !e.kinds().contains(&FAILED_KIND)));
+    assert_eq!(FAILED_KIND.name(), "notify-failed");
     assert_eq!(NotifyEvent::of_kind(FAILED_KIND), None);
 }

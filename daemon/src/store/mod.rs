@@ -4,8 +4,29 @@
 //! One writer thread owns the only writing connection and batches readings into transactions at most
 //! `flush` apart; everything else reads on its own short-lived connections. The store knows nothing of
 //! buses or HTTP.
+//!
+//! The store owns the SQL: every statement lives in this module tree, behind typed functions grouped by
+//! what they keep — [`lab_book`] (frames, tests, increments), [`journal`] (events), [`alarms`],
+//! [`notify`] (webhook cursors) and [`read`] (what the API reads). Each write is one writer job: what it
+//! changes commits in one transaction, and it returns only once that is durable. The names kept as text
+//! are enums ([`EventKind`], [`TestState`], onset sources, alarm codes) read back with `FromSql`, which
+//! refuses a name this oedolog does not know. Outside the store a connection is only a [`Reader`] (or
+//! the [`Database`] before the writer takes it): nothing else can write.
 
+pub mod alarms;
+pub mod journal;
+pub mod lab_book;
 pub mod migrations;
+mod names;
+pub mod notify;
+pub mod read;
+#[cfg(test)]
+pub(crate) mod testing;
+
+pub use journal::{Event, EventKind};
+pub use lab_book::{TestState, frame_key};
+pub use names::UnknownName;
+pub use read::{Poll, latest_reading, polls};
 
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
@@ -13,7 +34,7 @@ use std::sync::atomic::{AtomicU64, Ordering};
 use std::sync::mpsc::{Receiver, RecvTimeoutError, Sender, channel};
 use std::time::{Duration, Instant};
 
-use rusqlite::{Connection, OpenFlags, OptionalExtension, params};
+use rusqlite::{Connection, OpenFlags, params};
 
 /// A store failure.
 #[derive(Debug, thiserror::Error)]
@@ -104,23 +125,6 @@ pub struct Reading {
     pub value: f64,
 }
 
-/// A journal entry.
-#[derive(Clone, Debug, PartialEq)]
-pub struct Event {
-    /// UTC µs.
-    pub at_us: i64,
-    /// The frame concerned, if any.
-    pub frame_key: Option<i64>,
-    /// Machine name: `daemon-start`, `bus-down`, `value-refused`, …
-    pub kind: &'static str,
-    /// What a person reads.
-    pub message: String,
-    /// Who, for operator actions.
-    pub actor: Option<String>,
-    /// Details.
-    pub data: Option<serde_json::Value>,
-}
-
 /// What one commit wrote; sent to the commit observer after the transaction is durable.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub struct CommitReport {
@@ -151,8 +155,31 @@ enum Op {
     Close,
 }
 
+/// A connection the store's typed read functions read through: a read-only one from [`reader`], or the
+/// [`Database`] before the writer takes it. Opaque outside the store.
+pub struct Reader(Connection);
+
+impl Reader {
+    pub(in crate::store) fn conn(&self) -> &Connection {
+        &self.0
+    }
+}
+
+/// The database as [`open`] leaves it: the only connection that writes. Until [`Writer::spawn`] takes it
+/// over, the typed read functions read through it (it derefs to a [`Reader`]) and [`frame_key`] writes
+/// through it.
+pub struct Database(Reader);
+
+impl std::ops::Deref for Database {
+    type Target = Reader;
+
+    fn deref(&self) -> &Reader {
+        &self.0
+    }
+}
+
 /// Opens (creating if needed) the database for writing: pragmas, integrity check, migrations.
-pub fn open(path: &Path) -> Result<Connection, StoreError> {
+pub fn open(path: &Path) -> Result<Database, StoreError> {
     if let Some(folder) = path.parent().filter(|p| !p.as_os_str().is_empty()) {
         std::fs::create_dir_all(folder).map_err(|source| StoreError::Folder { path: folder.into(), source })?;
     }
@@ -167,90 +194,22 @@ pub fn open(path: &Path) -> Result<Connection, StoreError> {
         return Err(StoreError::Damaged(check));
     }
     migrations::migrate(&mut conn)?;
-    Ok(conn)
+    Ok(Database(Reader(conn)))
 }
 
 /// A read-only connection for queries (the dashboard, backups). Keep its transactions short: a long
 /// reader holds WAL checkpoints back.
-pub fn reader(path: &Path) -> Result<Connection, StoreError> {
+pub fn reader(path: &Path) -> Result<Reader, StoreError> {
     let conn = Connection::open_with_flags(path, OpenFlags::SQLITE_OPEN_READ_ONLY | OpenFlags::SQLITE_OPEN_NO_MUTEX)?;
     conn.busy_timeout(Duration::from_secs(5))?;
-    Ok(conn)
-}
-
-/// The frame's compact key, creating the row (or refreshing its name) if needed.
-pub fn frame_key(conn: &Connection, id: &str, name: &str, now_us: i64) -> Result<i64, StoreError> {
-    conn.execute(
-        "INSERT INTO frames (id, name, created_us) VALUES (?1, ?2, ?3) ON CONFLICT(id) DO UPDATE SET name = excluded.name",
-        params![id, name, now_us],
-    )?;
-    Ok(conn.query_row("SELECT key FROM frames WHERE id = ?1", [id], |r| r.get(0))?)
-}
-
-/// The newest stored reading of a frame's channel: (at_us, value).
-pub fn latest_reading(
-    conn: &Connection,
-    frame_key: i64,
-    channel: ChannelKind,
-) -> Result<Option<(i64, f64)>, StoreError> {
-    Ok(conn
-        .query_row(
-            "SELECT at_us, value FROM readings WHERE frame_key = ?1 AND channel = ?2 ORDER BY at_us DESC LIMIT 1",
-            params![frame_key, channel.code()],
-            |r| Ok((r.get(0)?, r.get(1)?)),
-        )
-        .optional()?)
-}
-
-/// One poll as stored: (at_us, displacement mm, load kN).
-pub type Poll = (i64, Option<f64>, Option<f64>);
-
-/// A frame's displacement and load readings with `from_us ≤ at_us ≤ to_us`, joined by instant, in time
-/// order. Two range scans in key order (frame, channel, at_us) merged here: no temporary sort in SQLite.
-pub fn polls(conn: &Connection, frame_key: i64, from_us: i64, to_us: i64) -> Result<Vec<Poll>, StoreError> {
-    let channel = |kind: ChannelKind| -> Result<Vec<(i64, f64)>, StoreError> {
-        let mut statement = conn.prepare_cached(
-            "SELECT at_us, value FROM readings WHERE frame_key = ?1 AND channel = ?2 AND at_us BETWEEN ?3 AND ?4 ORDER BY at_us",
-        )?;
-        let rows =
-            statement.query_map(params![frame_key, kind.code(), from_us, to_us], |r| Ok((r.get(0)?, r.get(1)?)))?;
-        Ok(rows.collect::<Result<_, _>>()?)
-    };
-    let displacement = channel(ChannelKind::Displacement)?;
-    let load = channel(ChannelKind::Load)?;
-    let mut out = Vec::with_capacity(displacement.len().max(load.len()));
-    let (mut d, mut l) = (displacement.into_iter().peekable(), load.into_iter().peekable());
-    loop {
-        let poll = match (d.peek().copied(), l.peek().copied()) {
-            (None, None) => break,
-            (Some((at, v)), Some((lat, lv))) if at == lat => {
-                d.next();
-                l.next();
-                (at, Some(v), Some(lv))
-            }
-            (Some((at, v)), Some((lat, _))) if at < lat => {
-                d.next();
-                (at, Some(v), None)
-            }
-            (Some((at, v)), None) => {
-                d.next();
-                (at, Some(v), None)
-            }
-            (_, Some((lat, lv))) => {
-                l.next();
-                (lat, None, Some(lv))
-            }
-        };
-        out.push(poll);
-    }
-    Ok(out)
+    Ok(Reader(conn))
 }
 
 /// Copies the database to `dest` with SQLite's online backup API: consistent even while the daemon writes.
 pub fn backup(source: &Path, dest: &Path) -> Result<(), StoreError> {
     let from = reader(source)?;
     let mut to = Connection::open(dest)?;
-    let backup = rusqlite::backup::Backup::new(&from, &mut to)?;
+    let backup = rusqlite::backup::Backup::new(from.conn(), &mut to)?;
     backup.run_to_completion(256, Duration::from_millis(5), None)?;
     drop(backup);
     let check: String = to.query_row("PRAGMA quick_check", [], |r| r.get(0))?;
@@ -289,12 +248,14 @@ pub struct WriterThread {
 }
 
 impl Writer {
-    /// Starts the writer thread on `conn`. `on_commit` runs on the writer thread after each durable commit.
+    /// Starts the writer thread on the database `db`. `on_commit` runs on the writer thread after each
+    /// durable commit.
     pub fn spawn(
-        conn: Connection,
+        db: Database,
         policy: WriterPolicy,
         on_commit: impl FnMut(CommitReport) + Send + 'static,
     ) -> WriterThread {
+        let Database(Reader(conn)) = db;
         let (tx, rx) = channel();
         let queued = Arc::new(AtomicU64::new(0));
         let commits = Arc::new(AtomicU64::new(0));
@@ -317,8 +278,9 @@ impl Writer {
         self.tx.send(Op::Event(event)).map_err(|_| StoreError::WriterGone)
     }
 
-    /// Runs `job` on the writer's connection, inside a transaction committed at once; returns its result.
-    pub fn run<T: Send + 'static>(
+    /// Runs `job` on the writer's connection, inside a transaction committed at once; returns its result
+    /// once the commit is durable. Private to the store: every write job is a typed function of its modules.
+    pub(in crate::store) fn run<T: Send + 'static>(
         &self,
         job: impl FnOnce(&Connection) -> Result<T, StoreError> + Send + 'static,
     ) -> Result<T, StoreError> {
@@ -499,19 +461,9 @@ fn commit_inner(
         for r in &batch.readings {
             readings += insert.execute(params![r.frame_key, r.channel.code(), r.at_us, r.raw, r.value])? as u64;
         }
-        let mut insert = tx.prepare_cached(
-            "INSERT INTO events (at_us, frame_key, kind, message, actor, data) VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
-        )?;
-        for e in &batch.events {
-            insert.execute(params![
-                e.at_us,
-                e.frame_key,
-                e.kind,
-                e.message,
-                e.actor,
-                e.data.as_ref().map(|d| d.to_string())
-            ])?;
-        }
+    }
+    for e in &batch.events {
+        journal::insert(&tx, e)?;
     }
     let mut tx = tx;
     for job in batch.jobs.drain(..) {

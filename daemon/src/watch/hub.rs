@@ -7,11 +7,9 @@ use std::sync::mpsc::{Receiver, RecvTimeoutError};
 use std::sync::{Arc, Mutex};
 use std::time::Duration;
 
-use rusqlite::{Connection, params};
-
 use crate::clock::Clock;
 use crate::lab::{self, Lab};
-use crate::store::{ChannelKind, Event, Reading, StoreError, Writer};
+use crate::store::{ChannelKind, Event, EventKind, Reader, Reading, StoreError, Writer, read};
 use oedolog_core::watch::{FrameWatch, Note, OnsetSource, Phase, Specimen, WatchError, WatchParams, WatchStatus};
 
 /// Why an operator action through the hub failed.
@@ -48,7 +46,7 @@ impl Hub {
     /// A hub for the configured frames (`areas_mm2[i]` = ring area of frame i), resuming every running
     /// test from the lab book and the readings since its increment's onset.
     pub fn resume(
-        conn: &Connection,
+        conn: &Reader,
         lab: Lab,
         writer: Writer,
         clock: Arc<dyn Clock>,
@@ -61,13 +59,8 @@ impl Hub {
             let mut watch = FrameWatch::new(params.clone());
             if let Some(t) = test {
                 let specimen = Specimen { area_mm2: areas_mm2[i], height_mm: t.height_mm };
-                let zero = conn
-                    .query_row(
-                        "SELECT value FROM readings WHERE frame_key = ?1 AND channel = 0 AND at_us >= ?2 ORDER BY at_us LIMIT 1",
-                        params![lab.key(i), t.started_us],
-                        |r| r.get::<_, f64>(0),
-                    )
-                    .ok();
+                // The zero reading: the first displacement from the start (none if it cannot be read).
+                let zero = read::displacement_from(conn, lab.key(i), t.started_us).ok().flatten();
                 // From just before t0; for an increment still armed, from the onset look-back before
                 // it was armed (its load may have gone on meanwhile, perhaps while the daemon was down).
                 let since = match (t.onset_us, t.armed_us) {
@@ -76,7 +69,7 @@ impl Hub {
                     (None, None) => None,
                 };
                 let readings = match since {
-                    Some(since) => crate::store::polls(conn, lab.key(i), since, i64::MAX)?,
+                    Some(since) => read::polls(conn, lab.key(i), since, i64::MAX)?,
                     None => Vec::new(),
                 };
                 if t.increment == 0 {
@@ -165,30 +158,26 @@ impl Hub {
         for note in notes {
             let result = match note {
                 Note::Onset { seq, onset_us, source } => {
-                    let source_name = match source {
-                        OnsetSource::LoadStep => "load-step",
-                        OnsetSource::Deformation => "deformation",
-                    };
                     let how = if source == OnsetSource::LoadStep { "the load-cell step" } else { "the first sharp deformation" };
-                    self.lab.set_onset(index, onset_us, source_name, format!("increment {seq}: load on at t0 found from {how}"))
+                    self.lab.set_onset(index, onset_us, source, format!("increment {seq}: load on at t0 found from {how}"))
                 }
                 Note::Ready { seq, at_us, how } => {
                     self.lab.set_ready(index, at_us, format!("increment {seq}: end of primary — ready for the next load ({how})"))
                 }
                 Note::LoadOff { measured_kn, expected_kn } => self.event(
                     key,
-                    "load-off",
+                    EventKind::LoadOff,
                     format!("load {measured_kn:.4} kN differs from the expected {expected_kn:.4} kN by more than ±0.5 %"),
                 ),
-                Note::LoadBack => self.event(key, "load-back", "load back within ±0.5 % of the expected force".into()),
+                Note::LoadBack => self.event(key, EventKind::LoadBack, "load back within ±0.5 % of the expected force".into()),
                 Note::ReseatProposed { at_us, jump_mm } => self.event(
                     key,
-                    "reseat-proposed",
+                    EventKind::ReseatProposed,
                     format!("gauge jumped {jump_mm:+.3} mm at {}: a re-seat? Confirm to stitch the curve; nothing is reduced across it until then", crate::clock::rfc3339(at_us)),
                 ),
                 Note::UnarmedLoadChange { from_kn, to_kn, .. } => self.event(
                     key,
-                    "load-change-unarmed",
+                    EventKind::LoadChangeUnarmed,
                     format!("load changed from {from_kn:.4} to {to_kn:.4} kN with no increment armed"),
                 ),
             };
@@ -198,8 +187,8 @@ impl Hub {
         }
     }
 
-    fn event(&self, key: i64, kind: &'static str, message: String) -> Result<(), StoreError> {
-        tracing::info!(kind, "{message}");
+    fn event(&self, key: i64, kind: EventKind, message: String) -> Result<(), StoreError> {
+        tracing::info!(kind = kind.name(), "{message}");
         self.writer.event(Event {
             at_us: self.clock.now_us(),
             frame_key: Some(key),
@@ -257,7 +246,7 @@ impl Hub {
         self.writer.event(Event {
             at_us: self.clock.now_us(),
             frame_key: Some(self.lab.key(index)),
-            kind: "reseat-resolved",
+            kind: EventKind::ReseatResolved,
             message: format!("gauge re-seat {what}"),
             actor,
             data: None,

@@ -5,7 +5,7 @@ use std::sync::Arc;
 use super::{Hub, WatchParams};
 use crate::clock::{Clock, ManualClock};
 use crate::lab::{Lab, Specimen};
-use crate::store::{self, ChannelKind, Reading, Writer, WriterPolicy};
+use crate::store::{self, ChannelKind, Reading, TestState, Writer, WriterPolicy};
 
 const T0: i64 = 1_790_000_000_000_000;
 const S: i64 = 1_000_000;
@@ -56,7 +56,7 @@ fn an_increment_armed_when_the_daemon_stopped_finds_its_onset_from_the_stored_re
     }
     // Only the store saw those readings (the watch never did): the daemon stopped here.
     writer.sync().unwrap();
-    assert_eq!(lab.snapshot()[0].as_ref().unwrap().state, "armed");
+    assert_eq!(lab.snapshot()[0].as_ref().unwrap().state, TestState::Armed);
     drop(hub);
 
     clock.advance_us(300 * S);
@@ -66,12 +66,12 @@ fn an_increment_armed_when_the_daemon_stopped_finds_its_onset_from_the_stored_re
         Hub::resume(&reader, lab.clone(), writer.clone(), clock, vec![AREA_MM2], WatchParams::default()).unwrap();
     writer.sync().unwrap();
     let test = lab.snapshot()[0].clone().unwrap();
-    assert_eq!(test.state, "primary", "{test:?}");
+    assert_eq!(test.state, TestState::Primary, "{test:?}");
     let onset = test.onset_us.expect("an onset");
     // The step lies between the last seating reading (+590 s) and the first loaded one (+635 s).
     assert!((T0 + 590 * S..=T0 + 635 * S).contains(&onset), "onset {} s", (onset - T0) / S);
     let reader = store::reader(&path).unwrap();
-    let stored: Option<i64> =
-        reader.query_row("SELECT onset_us FROM increments WHERE seq = 1", [], |r| r.get(0)).unwrap();
-    assert_eq!(stored, Some(onset), "the onset is stored, as live");
+    let stored = store::read::increments(&reader, test.test_id).unwrap();
+    assert_eq!(stored[0].seq, 1);
+    assert_eq!(stored[0].onset_us, Some(onset), "the onset is stored, as live");
 }

@@ -77,3 +77,22 @@ fn version_and_help_answer() {
         assert!(h.stdout.contains(sub), "{}", h.stdout);
     }
 }
+
+#[test]
+fn log_lines_on_a_pipe_carry_no_colour_codes() {
+    let dir = temp_dir();
+    let sim = Simulator::start_tcp(&["--frames", "1", "--schedule", "manual"]).unwrap();
+    let mut text = config_head(dir.path());
+    text += &format!("[[bus]]\nid = \"tcp\"\nkind = \"modbus-tcp\"\naddress = \"{}\"\n", sim.tcp_addr().unwrap());
+    text += &sim_frame("F1", "tcp", 1, 10);
+    let config = write_config(dir.path(), &text);
+    let mut daemon = Daemon::start(&config, &[]).unwrap();
+    // The bus coming up is logged at info on stderr, which is a pipe here (as under systemd or `2> file`).
+    let line = daemon
+        .process
+        .wait_for_line(oedolog_tests::Stream::Stderr, Duration::from_secs(20), |l| l.contains("bus"))
+        .unwrap();
+    let log = daemon.process.output_log();
+    assert!(!log.contains('\u{1b}'), "an escape code in piped log output: {line:?}\n{log}");
+    assert!(line.contains("INFO"), "the level is still written out: {line:?}");
+}

@@ -17,18 +17,18 @@ const OFFSET_SQRT_FRACTION: f64 = 0.75;
 
 /// Choices of the log-t construction.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct CasagrandeParams {
+pub(crate) struct CasagrandeParams {
     /// At most this many t1 values for the 1:4 offset, spread over the parabolic start and averaged
     /// (Casagrande's practice [ref: casagrande-log-time, common practice]).
-    pub offset_pairs: usize,
+    pub(crate) offset_pairs: usize,
     /// Fewest late nodes on the secondary line: ≥ 3 collinear readings [ref: casagrande-log-time, common practice].
-    pub secondary_min_points: usize,
+    pub(crate) secondary_min_points: usize,
     /// Least span of the secondary line in log cycles: 0.3 [ref: eop-detection, common practice].
-    pub secondary_min_decades: f64,
+    pub(crate) secondary_min_decades: f64,
     /// The secondary line must be flatter than this fraction of the inflection tangent. On the ideal curve
     /// the log-t slope has fallen to 0.49 of its maximum by T = 1.10, where the tangent meets U = 1
     /// [ref: casagrande-log-time, computed], so a straight tail steeper than half the tangent is still primary.
-    pub max_secondary_slope_ratio: f64,
+    pub(crate) max_secondary_slope_ratio: f64,
 }
 
 impl Default for CasagrandeParams {
@@ -44,7 +44,7 @@ impl Default for CasagrandeParams {
 
 impl CasagrandeParams {
     /// Refuses parameters outside their sensible ranges.
-    pub fn check(&self) -> Result<(), AnalysisError> {
+    pub(crate) fn check(&self) -> Result<(), AnalysisError> {
         check_range("casagrande.offset_pairs", self.offset_pairs as f64, 1.0, 100.0, "1 to 100")?;
         check_range("casagrande.secondary_min_points", self.secondary_min_points as f64, 3.0, 1000.0, "3 to 1000")?;
         check_range("casagrande.secondary_min_decades", self.secondary_min_decades, 0.05, 5.0, "0.05 to 5 log cycles")?;
@@ -65,16 +65,16 @@ pub struct OffsetPair {
     /// Curve value at 4·t1.
     pub d2_mm: f64,
     /// The d0 this pair gives.
-    pub d0_mm: f64,
+    pub(crate) d0_mm: f64,
 }
 
 /// The tangent at the inflection (steepest point on d vs log10 t).
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct InflectionTangent {
     /// Time of the steepest point.
-    pub t_min: f64,
+    pub(crate) t_min: f64,
     /// Curve value there.
-    pub d_mm: f64,
+    pub(crate) d_mm: f64,
     /// The tangent, in (log10 t [log10 min], d [mm]); its slope is mm per log cycle.
     pub line: Line,
 }
@@ -83,15 +83,15 @@ pub struct InflectionTangent {
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct SecondaryLine {
     /// First node on it (index into the curve's nodes).
-    pub first_node: usize,
+    pub(crate) first_node: usize,
     /// Last node on it.
-    pub last_node: usize,
+    pub(crate) last_node: usize,
     /// Time window start.
-    pub t_start_min: f64,
+    pub(crate) t_start_min: f64,
     /// Time window end.
-    pub t_end_min: f64,
+    pub(crate) t_end_min: f64,
     /// Nodes fitted.
-    pub points: usize,
+    pub(crate) points: usize,
     /// The line; its slope is mm per log cycle.
     pub line: Line,
 }
@@ -116,7 +116,7 @@ pub struct CasagrandeResult {
     /// Time the curve reaches d50.
     pub t50_min: Option<f64>,
     /// Quality remarks.
-    pub flags: Vec<Flag>,
+    pub(crate) flags: Vec<Flag>,
 }
 
 impl CasagrandeResult {
@@ -138,7 +138,7 @@ impl CasagrandeResult {
 /// Runs the log-t construction. `parabolic` is the √t-straight start found by [`super::taylor()`]: the 1:4
 /// rule is exact wherever d is linear in √t, so t1 and 4·t1 are taken inside it. `Err` only for
 /// parameters out of range.
-pub fn casagrande(
+pub(crate) fn casagrande(
     curve: &PreparedCurve,
     parabolic: Option<&StraightFit>,
     params: &CasagrandeParams,

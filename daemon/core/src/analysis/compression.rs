@@ -12,27 +12,27 @@ use super::interp::Pchip;
 use super::{AnalysisError, check_positive, check_range};
 
 /// Unit weight of water γw, kN/m³, for k = cv·mv·γw [ref: permeability, common practice].
-pub const UNIT_WEIGHT_WATER_KN_PER_M3: f64 = 9.81;
+pub(crate) const UNIT_WEIGHT_WATER_KN_PER_M3: f64 = 9.81;
 /// Samples per interval when searching the smooth curve for its maximum curvature.
 const CURVATURE_SAMPLES: usize = 32;
 
 /// One increment as the e–log σ′ reduction needs it.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct CompressionPoint {
+pub(crate) struct CompressionPoint {
     /// Effective vertical stress σ′ of the increment, kPa.
-    pub stress_kpa: f64,
+    pub(crate) stress_kpa: f64,
     /// Cumulative compression from the initial height at the end of the increment, apparatus-corrected, mm.
-    pub settlement_mm: f64,
+    pub(crate) settlement_mm: f64,
     /// The same at the end of primary (d100), when a time curve gave it.
-    pub settlement_eop_mm: Option<f64>,
+    pub(crate) settlement_eop_mm: Option<f64>,
     /// cv measured on the increment, mm²/min, for k.
-    pub cv_mm2_per_min: Option<f64>,
+    pub(crate) cv_mm2_per_min: Option<f64>,
 }
 
 /// Which height ends an increment on the curve [ref: test-methods].
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "snake_case")]
-pub enum CurveBasis {
+pub(crate) enum CurveBasis {
     /// End of primary where known (Method B curve); end of increment, flagged, elsewhere.
     EndOfPrimary,
     /// End of increment (Method A curve) everywhere.
@@ -43,17 +43,17 @@ pub enum CurveBasis {
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct CompressionParams {
     /// Which height ends an increment.
-    pub basis: CurveBasis,
+    pub(crate) basis: CurveBasis,
     /// Cc is fitted to this many loading points at the highest stresses (≥ 2; 3 preferred) [ref: compression-index].
-    pub virgin_points: usize,
+    pub(crate) virgin_points: usize,
     /// Plotting ratio for Casagrande's construction: Δe drawn as long as one log cycle of σ′. Curvature and
     /// the bisector depend on it [ref: preconsolidation-casagrande]. `None`: the e range of the loading branch
     /// over its log cycles, i.e. the curve drawn in a square frame (common practice).
-    pub e_per_log_cycle: Option<f64>,
+    pub(crate) e_per_log_cycle: Option<f64>,
     /// γw, kN/m³.
-    pub unit_weight_water_kn_per_m3: f64,
+    pub(crate) unit_weight_water_kn_per_m3: f64,
     /// In-situ vertical effective stress σ′v0, kPa, for OCR.
-    pub sigma_v0_kpa: Option<f64>,
+    pub(crate) sigma_v0_kpa: Option<f64>,
 }
 
 impl Default for CompressionParams {
@@ -70,15 +70,15 @@ impl Default for CompressionParams {
 
 /// The test as the reduction needs it.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct CompressionInput<'a> {
+pub(crate) struct CompressionInput<'a> {
     /// Initial height H0, mm.
-    pub initial_height_mm: f64,
+    pub(crate) initial_height_mm: f64,
     /// Height of solids Hs, mm (from `phase`).
-    pub solids_height_mm: f64,
+    pub(crate) solids_height_mm: f64,
     /// Seating stress under which H0 was zeroed, kPa (0 allowed).
-    pub seating_stress_kpa: f64,
+    pub(crate) seating_stress_kpa: f64,
     /// Increments in the order applied.
-    pub points: &'a [CompressionPoint],
+    pub(crate) points: &'a [CompressionPoint],
 }
 
 /// Where an increment lies on the stress path.
@@ -117,16 +117,16 @@ pub struct StatePoint {
     /// k = cv·mv·γw, m/s [ref: permeability], when cv is given.
     pub k_m_per_s: Option<f64>,
     /// Quality remarks on the increment.
-    pub flags: Vec<Flag>,
+    pub(crate) flags: Vec<Flag>,
 }
 
 /// A straight line on e–log10 σ′ and the points (indices into `points`) it was fitted to.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct IndexLine {
     /// Increments used.
-    pub points: Vec<usize>,
+    pub(crate) points: Vec<usize>,
     /// e = intercept + slope·log10 σ′.
-    pub line: Line,
+    pub(crate) line: Line,
     /// −slope: Cc or Cr.
     pub index: f64,
 }
@@ -137,39 +137,39 @@ pub struct CasagrandePreconsolidation {
     /// σ′p, kPa.
     pub sigma_p_kpa: f64,
     /// Stress at the point of maximum curvature.
-    pub max_curvature_stress_kpa: f64,
+    pub(crate) max_curvature_stress_kpa: f64,
     /// e there.
-    pub max_curvature_e: f64,
+    pub(crate) max_curvature_e: f64,
     /// Tangent there, e vs log10 σ′.
-    pub tangent: Line,
+    pub(crate) tangent: Line,
     /// Bisector of the angle between the horizontal and the tangent (angle taken on the plot).
-    pub bisector: Line,
+    pub(crate) bisector: Line,
     /// The virgin line (Cc fit).
-    pub virgin: Line,
+    pub(crate) virgin: Line,
     /// Plotting ratio used: Δe per log cycle of equal drawn length.
-    pub e_per_log_cycle: f64,
+    pub(crate) e_per_log_cycle: f64,
     /// Loading-branch increments the smooth curve passes through.
-    pub curve_points: Vec<usize>,
+    pub(crate) curve_points: Vec<usize>,
 }
 
 /// One point of the work curve.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct WorkPoint {
+pub(crate) struct WorkPoint {
     /// σ′, kPa.
-    pub stress_kpa: f64,
+    pub(crate) stress_kpa: f64,
     /// Cumulative work per unit volume W, kJ/m³ (kPa × strain).
-    pub work_kj_per_m3: f64,
+    pub(crate) work_kj_per_m3: f64,
     /// The increment, or `None` for the seating state.
-    pub increment: Option<usize>,
+    pub(crate) increment: Option<usize>,
 }
 
 /// A straight line on W–σ′ and the work points (indices into `points`) it was fitted to.
 #[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct WorkLine {
+pub(crate) struct WorkLine {
     /// Work points used.
-    pub points: Vec<usize>,
+    pub(crate) points: Vec<usize>,
     /// W = intercept + slope·σ′.
-    pub line: Line,
+    pub(crate) line: Line,
 }
 
 /// σ′p by the strain-energy (work) method of Becker et al. (1987) [ref: preconsolidation-work].
@@ -178,11 +178,11 @@ pub struct WorkPreconsolidation {
     /// σ′p, kPa: where the two lines meet.
     pub sigma_p_kpa: f64,
     /// Seating state and loading-branch increments with their cumulative work.
-    pub points: Vec<WorkPoint>,
+    pub(crate) points: Vec<WorkPoint>,
     /// Line through the early (pre-yield) points.
-    pub early: WorkLine,
+    pub(crate) early: WorkLine,
     /// Line through the high-stress points.
-    pub late: WorkLine,
+    pub(crate) late: WorkLine,
 }
 
 /// The whole e–log σ′ reduction.
@@ -195,7 +195,7 @@ pub struct CompressionReduction {
     /// Cc on the virgin branch.
     pub cc: Option<IndexLine>,
     /// Compression ratio CR = Cc/(1 + e0) [ref: compression-index, common practice].
-    pub compression_ratio: Option<f64>,
+    pub(crate) compression_ratio: Option<f64>,
     /// Cr on the first unload–reload cycle.
     pub cr: Option<IndexLine>,
     /// σ′p by Casagrande's construction.
@@ -203,46 +203,48 @@ pub struct CompressionReduction {
     /// σ′p by the work method.
     pub sigma_p_work: Option<WorkPreconsolidation>,
     /// OCR = σ′p/σ′v0 (Casagrande σ′p) [ref: ocr].
-    pub ocr_casagrande: Option<f64>,
+    pub(crate) ocr_casagrande: Option<f64>,
     /// OCR from the work σ′p.
-    pub ocr_work: Option<f64>,
+    pub(crate) ocr_work: Option<f64>,
     /// Test-level quality remarks.
     pub flags: Vec<Flag>,
 }
 
 /// LIR = (σ′ − σ′before)/σ′before [ref: load-increment-ratio]; `None` when σ′before is not positive.
-pub fn load_increment_ratio(previous_kpa: f64, stress_kpa: f64) -> Option<f64> {
+pub(crate) fn load_increment_ratio(previous_kpa: f64, stress_kpa: f64) -> Option<f64> {
     (previous_kpa > 0.0).then(|| (stress_kpa - previous_kpa) / previous_kpa)
 }
 
 /// av = −Δe/Δσ′, 1/kPa [ref: av-mv]; `None` for Δσ′ = 0.
-pub fn av_per_kpa(e_before: f64, e_after: f64, stress_before_kpa: f64, stress_after_kpa: f64) -> Option<f64> {
+pub(crate) fn av_per_kpa(e_before: f64, e_after: f64, stress_before_kpa: f64, stress_after_kpa: f64) -> Option<f64> {
     let dsigma = stress_after_kpa - stress_before_kpa;
     (dsigma != 0.0).then(|| -(e_after - e_before) / dsigma)
 }
 
 /// mv = av/(1 + e before the increment), 1/kPa = m²/kN [ref: av-mv].
-pub fn mv_per_kpa(av_per_kpa: f64, e_before: f64) -> f64 {
+pub(crate) fn mv_per_kpa(av_per_kpa: f64, e_before: f64) -> f64 {
     av_per_kpa / (1.0 + e_before)
 }
 
 /// Cc (or Cr) between two points: −Δe/Δlog10 σ′ [ref: compression-index].
-pub fn compression_index(stress_1_kpa: f64, e_1: f64, stress_2_kpa: f64, e_2: f64) -> f64 {
+#[cfg(test)]
+pub(crate) fn compression_index(stress_1_kpa: f64, e_1: f64, stress_2_kpa: f64, e_2: f64) -> f64 {
     -(e_2 - e_1) / (stress_2_kpa / stress_1_kpa).log10()
 }
 
 /// k = cv·mv·γw, m/s [ref: permeability]: cv in mm²/min, mv in 1/kPa (m²/kN), γw in kN/m³.
-pub fn permeability_m_per_s(cv_mm2_per_min: f64, mv_per_kpa: f64, unit_weight_water_kn_per_m3: f64) -> f64 {
+pub(crate) fn permeability_m_per_s(cv_mm2_per_min: f64, mv_per_kpa: f64, unit_weight_water_kn_per_m3: f64) -> f64 {
     cv_mm2_per_min * M2_PER_S_PER_MM2_PER_MIN * mv_per_kpa * unit_weight_water_kn_per_m3
 }
 
 /// Final consolidation settlement ρ∞ = mv·H·Δσ′ (mm for H in mm) [ref: final-settlement].
-pub fn final_settlement_mm(mv_per_kpa: f64, height_mm: f64, stress_change_kpa: f64) -> f64 {
+#[cfg(test)]
+pub(crate) fn final_settlement_mm(mv_per_kpa: f64, height_mm: f64, stress_change_kpa: f64) -> f64 {
     mv_per_kpa * height_mm * stress_change_kpa
 }
 
 /// Reduces a test to its e–log σ′ curve and parameters. `Err` for inputs out of range, naming the field.
-pub fn reduce_compression(
+pub(crate) fn reduce_compression(
     input: &CompressionInput<'_>,
     params: &CompressionParams,
 ) -> Result<CompressionReduction, AnalysisError> {

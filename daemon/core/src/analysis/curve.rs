@@ -9,11 +9,11 @@ use super::AnalysisError;
 
 /// Default bin density: 40 per decade of time keeps ≈ 250 nodes over a 24 h increment, finer than any
 /// standard reading schedule (≈ 3 per decade [ref: reading-schedule]).
-pub const DEFAULT_BINS_PER_DECADE: f64 = 40.0;
+pub(crate) const DEFAULT_BINS_PER_DECADE: f64 = 40.0;
 /// Larger times are not readings of a laboratory increment (≈ 1900 years).
-pub const MAX_TIME_MIN: f64 = 1e9;
+pub(crate) const MAX_TIME_MIN: f64 = 1e9;
 /// Larger displacements are not readings of a laboratory specimen.
-pub const MAX_DISPLACEMENT_MM: f64 = 1e6;
+pub(crate) const MAX_DISPLACEMENT_MM: f64 = 1e6;
 /// A reading this close (relative) to the bin's mean time stays in that bin even past its edge, so node
 /// times always differ enough for √t and log t to keep them apart.
 const SAME_TIME_RELATIVE: f64 = 1e-9;
@@ -32,9 +32,9 @@ pub struct CurveNode {
     /// Mean displacement of the bin's readings, mm, compression positive.
     pub d_mm: f64,
     /// How many readings the node stands for.
-    pub readings: usize,
+    pub(crate) readings: usize,
     /// 0-based position of its first reading in the input.
-    pub first_reading: usize,
+    pub(crate) first_reading: usize,
 }
 
 /// Running sums of one bin, shifted by its first reading.
@@ -105,7 +105,7 @@ pub struct TimeCurve {
 
 impl TimeCurve {
     /// An empty curve with `bins_per_decade` log-time bins per decade (1…1000).
-    pub fn new(bins_per_decade: f64) -> Result<Self, AnalysisError> {
+    pub(crate) fn new(bins_per_decade: f64) -> Result<Self, AnalysisError> {
         super::check_range("bins_per_decade", bins_per_decade, 1.0, 1000.0, "1 to 1000")?;
         Ok(TimeCurve {
             bins_per_decade,
@@ -126,7 +126,7 @@ impl TimeCurve {
     }
 
     /// Appends readings in time order; stops at the first bad one (earlier ones stay in).
-    pub fn extend(&mut self, readings: &[(f64, f64)]) -> Result<(), AnalysisError> {
+    pub(crate) fn extend(&mut self, readings: &[(f64, f64)]) -> Result<(), AnalysisError> {
         for &(t, d) in readings {
             self.push(t, d)?;
         }
@@ -135,7 +135,7 @@ impl TimeCurve {
 
     /// Appends one reading. Refuses NaN, negative or decreasing time, and absurd magnitudes; a refused
     /// reading leaves the curve as it was.
-    pub fn push(&mut self, t_min: f64, d_mm: f64) -> Result<(), AnalysisError> {
+    pub(crate) fn push(&mut self, t_min: f64, d_mm: f64) -> Result<(), AnalysisError> {
         let index = self.count;
         if !t_min.is_finite() {
             return Err(AnalysisError::NonFinite { index, field: "time_min" });
@@ -194,32 +194,22 @@ impl TimeCurve {
     }
 
     /// Readings accepted so far.
-    pub fn reading_count(&self) -> usize {
+    pub(crate) fn reading_count(&self) -> usize {
         self.count
     }
 
-    /// Bins per decade.
-    pub fn bins_per_decade(&self) -> f64 {
-        self.bins_per_decade
-    }
-
     /// Mean of the readings taken at t = 0, if any.
-    pub fn zero_reading_mm(&self) -> Option<f64> {
+    pub(crate) fn zero_reading_mm(&self) -> Option<f64> {
         (self.zero_count > 0).then(|| self.zero_sum_mm / self.zero_count as f64)
     }
 
-    /// Time of the last reading.
-    pub fn last_time_min(&self) -> Option<f64> {
-        (self.count > 0).then_some(self.last_t_min)
-    }
-
     /// The nodes (t > 0), one per occupied bin, in time order.
-    pub fn nodes(&self) -> Vec<CurveNode> {
+    pub(crate) fn nodes(&self) -> Vec<CurveNode> {
         self.bins.iter().map(Bin::node).collect()
     }
 
     /// Nodes plus the per-node straight-line tolerances the constructions use.
-    pub fn prepare(&self, gauge_resolution_mm: f64) -> Result<PreparedCurve, AnalysisError> {
+    pub(crate) fn prepare(&self, gauge_resolution_mm: f64) -> Result<PreparedCurve, AnalysisError> {
         super::check_positive("gauge_resolution_mm", gauge_resolution_mm)?;
         let nodes = self.nodes();
         let mut running_noise_mm = Vec::with_capacity(nodes.len());
@@ -253,34 +243,24 @@ fn bin_mean_time(bin: &Bin) -> f64 {
 /// A curve ready for the constructions: nodes in √t and log10 t, and how far a node may stray from a
 /// straight line before it counts as off it.
 #[derive(Debug, Clone)]
-pub struct PreparedCurve {
+pub(crate) struct PreparedCurve {
     /// Nodes with t > 0, in time order.
-    pub nodes: Vec<CurveNode>,
+    pub(crate) nodes: Vec<CurveNode>,
     /// Mean reading at t = 0, if any.
-    pub zero_reading_mm: Option<f64>,
+    pub(crate) zero_reading_mm: Option<f64>,
     /// Readings behind the nodes (including those at t = 0).
-    pub reading_count: usize,
+    pub(crate) reading_count: usize,
     /// Reading noise (standard deviation, mm) pooled from the scatter inside bins; `None` while too few
     /// bins hold three or more readings.
-    pub noise_mm: Option<f64>,
+    pub(crate) noise_mm: Option<f64>,
     /// Gauge resolution the tolerances start from.
-    pub gauge_resolution_mm: f64,
+    pub(crate) gauge_resolution_mm: f64,
     running_noise_mm: Vec<Option<f64>>,
     pub(crate) sqrt_t: Vec<f64>,
     pub(crate) log_t: Vec<f64>,
 }
 
 impl PreparedCurve {
-    /// Number of nodes.
-    pub fn len(&self) -> usize {
-        self.nodes.len()
-    }
-
-    /// True without nodes.
-    pub fn is_empty(&self) -> bool {
-        self.nodes.is_empty()
-    }
-
     fn tolerance_with(&self, index: usize, noise_mm: Option<f64>) -> f64 {
         let floor = RESOLUTION_MULTIPLE * self.gauge_resolution_mm;
         match noise_mm {
@@ -291,12 +271,12 @@ impl PreparedCurve {
 
     /// Tolerance of node `index` using only the noise seen up to that node, so a forward scan never
     /// depends on later readings.
-    pub fn tolerance_causal_mm(&self, index: usize) -> f64 {
+    pub(crate) fn tolerance_causal_mm(&self, index: usize) -> f64 {
         self.tolerance_with(index, self.running_noise_mm[index])
     }
 
     /// Tolerance of node `index` using the noise of the whole curve.
-    pub fn tolerance_mm(&self, index: usize) -> f64 {
+    pub(crate) fn tolerance_mm(&self, index: usize) -> f64 {
         self.tolerance_with(index, self.noise_mm)
     }
 }

@@ -8,11 +8,12 @@ use super::interp::Pchip;
 use super::{AnalysisError, check_positive};
 
 /// cv [m²/yr] = cv [mm²/min] × this: 1e-6 m²/mm² × 525 960 min per 365.25-day year [ref: cv-units, computed].
-pub const M2_PER_YEAR_PER_MM2_PER_MIN: f64 = 0.52596;
+pub(crate) const M2_PER_YEAR_PER_MM2_PER_MIN: f64 = 0.52596;
 /// cv [cm²/s] = cv [mm²/min] × this [ref: cv-units, computed].
-pub const CM2_PER_S_PER_MM2_PER_MIN: f64 = 0.01 / 60.0;
+#[cfg(test)]
+pub(crate) const CM2_PER_S_PER_MM2_PER_MIN: f64 = 0.01 / 60.0;
 /// cv [m²/s] = cv [mm²/min] × this [ref: cv-units, computed].
-pub const M2_PER_S_PER_MM2_PER_MIN: f64 = 1e-6 / 60.0;
+pub(crate) const M2_PER_S_PER_MM2_PER_MIN: f64 = 1e-6 / 60.0;
 
 /// Which faces of the specimen drain.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
@@ -26,7 +27,7 @@ pub enum Drainage {
 
 impl Drainage {
     /// Longest drainage path for a specimen of height `height_mm` [ref: drainage-path].
-    pub fn path_mm(self, height_mm: f64) -> f64 {
+    pub(crate) fn path_mm(self, height_mm: f64) -> f64 {
         match self {
             Drainage::Double => 0.5 * height_mm,
             Drainage::Single => height_mm,
@@ -37,20 +38,16 @@ impl Drainage {
 /// Which specimen height stands for "the height during the increment" [ref: drainage-path].
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "snake_case")]
-pub enum HeightBasis {
+pub(crate) enum HeightBasis {
     /// The height at 50 % consolidation, H0 − ΔH(d50), each method at its own d50 — ASTM D2435 practice
     /// [ref: drainage-path, from memory]. The default.
     AtHalfConsolidation,
-    /// The mean of the heights at the start (reading at t = 0, else the first) and the end (the last node,
-    /// i.e. the mean of the last log-time bin's readings) of the increment — the "mean height" of BS 1377-6
-    /// forms [ref: drainage-path]. Moves while the increment runs.
-    MeanOfIncrement,
 }
 
 /// Where the drainage path comes from.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 #[serde(rename_all = "snake_case")]
-pub enum DrainagePath {
+pub(crate) enum DrainagePath {
     /// Given directly, mm (e.g. `--drainage-path-mm` on the command line).
     Fixed {
         /// The drainage path.
@@ -69,16 +66,16 @@ pub enum DrainagePath {
 /// gauge read `at_reading_mm`, so H = height_mm − (d − at_reading_mm), compression positive
 /// [ref: drainage-path, common practice].
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct SpecimenState {
+pub(crate) struct SpecimenState {
     /// Specimen height, mm.
-    pub height_mm: f64,
+    pub(crate) height_mm: f64,
     /// The reading at which it had that height, mm.
-    pub at_reading_mm: f64,
+    pub(crate) at_reading_mm: f64,
 }
 
 impl SpecimenState {
     /// Specimen height when the gauge reads `reading_mm`.
-    pub fn height_at_mm(&self, reading_mm: f64) -> f64 {
+    pub(crate) fn height_at_mm(&self, reading_mm: f64) -> f64 {
         self.height_mm - (reading_mm - self.at_reading_mm)
     }
 }
@@ -86,7 +83,7 @@ impl SpecimenState {
 /// Which construction a cv comes from.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "snake_case")]
-pub enum Method {
+pub(crate) enum Method {
     /// √t, from t90.
     Taylor,
     /// log t, from t50.
@@ -97,25 +94,25 @@ pub enum Method {
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct CvEstimate {
     /// The construction.
-    pub method: Method,
+    pub(crate) method: Method,
     /// cv, mm²/min, at the test temperature.
     pub cv_mm2_per_min: f64,
     /// The same in m²/yr.
-    pub cv_m2_per_year: f64,
+    pub(crate) cv_m2_per_year: f64,
     /// Time factor used (0.848 with t90, 0.197 with t50).
-    pub time_factor: f64,
+    pub(crate) time_factor: f64,
     /// t90 or t50, min.
-    pub time_min: f64,
+    pub(crate) time_min: f64,
     /// Drainage path Hdr, mm.
-    pub drainage_path_mm: f64,
+    pub(crate) drainage_path_mm: f64,
     /// Specimen height Hdr came from, mm (`None` for a fixed path).
-    pub height_mm: Option<f64>,
+    pub(crate) height_mm: Option<f64>,
     /// cv corrected to 20 °C by the viscosity ratio, mm²/min, when a temperature was given.
-    pub cv_20c_mm2_per_min: Option<f64>,
+    pub(crate) cv_20c_mm2_per_min: Option<f64>,
 }
 
 /// cv = T·Hdr²/t [ref: cv-formula]: mm²/min from a time factor, a drainage path in mm and a time in min.
-pub fn cv_mm2_per_min(time_factor: f64, drainage_path_mm: f64, time_min: f64) -> Result<f64, AnalysisError> {
+pub(crate) fn cv_mm2_per_min(time_factor: f64, drainage_path_mm: f64, time_min: f64) -> Result<f64, AnalysisError> {
     check_positive("time_factor", time_factor)?;
     check_positive("drainage_path_mm", drainage_path_mm)?;
     check_positive("time_min", time_min)?;
@@ -123,22 +120,25 @@ pub fn cv_mm2_per_min(time_factor: f64, drainage_path_mm: f64, time_min: f64) ->
 }
 
 /// mm²/min → m²/yr.
-pub fn to_m2_per_year(cv_mm2_per_min: f64) -> f64 {
+pub(crate) fn to_m2_per_year(cv_mm2_per_min: f64) -> f64 {
     cv_mm2_per_min * M2_PER_YEAR_PER_MM2_PER_MIN
 }
 
 /// m²/yr → mm²/min.
-pub fn from_m2_per_year(cv_m2_per_year: f64) -> f64 {
+#[cfg(test)]
+pub(crate) fn from_m2_per_year(cv_m2_per_year: f64) -> f64 {
     cv_m2_per_year / M2_PER_YEAR_PER_MM2_PER_MIN
 }
 
 /// mm²/min → cm²/s.
-pub fn to_cm2_per_s(cv_mm2_per_min: f64) -> f64 {
+#[cfg(test)]
+pub(crate) fn to_cm2_per_s(cv_mm2_per_min: f64) -> f64 {
     cv_mm2_per_min * CM2_PER_S_PER_MM2_PER_MIN
 }
 
 /// mm²/min → m²/s.
-pub fn to_m2_per_s(cv_mm2_per_min: f64) -> f64 {
+#[cfg(test)]
+pub(crate) fn to_m2_per_s(cv_mm2_per_min: f64) -> f64 {
     cv_mm2_per_min * M2_PER_S_PER_MM2_PER_MIN
 }
 
@@ -181,7 +181,7 @@ const WATER_VISCOSITY_MPA_S: [(f64, f64); 31] = [
 
 /// Viscosity of water at `temperature_c` (0–60 °C), mPa·s, by monotone interpolation of the table above;
 /// `None` outside it.
-pub fn water_viscosity_mpa_s(temperature_c: f64) -> Option<f64> {
+pub(crate) fn water_viscosity_mpa_s(temperature_c: f64) -> Option<f64> {
     let (low, high) = (WATER_VISCOSITY_MPA_S[0].0, WATER_VISCOSITY_MPA_S[WATER_VISCOSITY_MPA_S.len() - 1].0);
     if !(low..=high).contains(&temperature_c) {
         return None;
@@ -191,7 +191,7 @@ pub fn water_viscosity_mpa_s(temperature_c: f64) -> Option<f64> {
 }
 
 /// μ(T)/μ(20 °C): cv,20 = cv,T · μT/μ20 [ref: viscosity-correction, from memory]. `None` outside 0–60 °C.
-pub fn viscosity_ratio_to_20c(temperature_c: f64) -> Option<f64> {
+pub(crate) fn viscosity_ratio_to_20c(temperature_c: f64) -> Option<f64> {
     Some(water_viscosity_mpa_s(temperature_c)? / water_viscosity_mpa_s(20.0)?)
 }
 

@@ -12,7 +12,7 @@ use super::interp::Pchip;
 /// Which way the stress last moved.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "snake_case")]
-pub enum LoadBranch {
+pub(crate) enum LoadBranch {
     /// Stress rising (first loading and reloading: one table [ref: apparatus-deflection, common practice]).
     Loading,
     /// Stress falling.
@@ -58,13 +58,13 @@ pub struct DeflectionCalibration {
 
 /// The deflection at one stress, or why there is none.
 #[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct Deflection {
+pub(crate) struct Deflection {
     /// Apparatus deflection y, mm; `None` outside the calibrated range.
-    pub deflection_mm: Option<f64>,
+    pub(crate) deflection_mm: Option<f64>,
     /// The branch actually used.
-    pub branch: LoadBranch,
+    pub(crate) branch: LoadBranch,
     /// `DeflectionOutsideCalibration`, `UnloadingBranchMissing`.
-    pub flags: Vec<Flag>,
+    pub(crate) flags: Vec<Flag>,
 }
 
 impl DeflectionCalibration {
@@ -80,7 +80,7 @@ impl DeflectionCalibration {
 
     /// Deflection y at `stress_kpa` on `branch` [ref: apparatus-deflection, common practice]. Falls back on
     /// the loading branch (flagged) when no unloading branch was calibrated.
-    pub fn deflection_at(&self, stress_kpa: f64, branch: LoadBranch) -> Deflection {
+    pub(crate) fn deflection_at(&self, stress_kpa: f64, branch: LoadBranch) -> Deflection {
         let mut flags = Vec::new();
         let (table, used) = match (branch, &self.unloading) {
             (LoadBranch::Unloading, Some(u)) => (u, LoadBranch::Unloading),
@@ -103,7 +103,7 @@ impl DeflectionCalibration {
 }
 
 /// Corrected compression: ΔH_corr = ΔH_meas − y [ref: apparatus-deflection].
-pub fn corrected_mm(measured_mm: f64, deflection_mm: f64) -> f64 {
+pub(crate) fn corrected_mm(measured_mm: f64, deflection_mm: f64) -> f64 {
     measured_mm - deflection_mm
 }
 

@@ -7,14 +7,14 @@ use serde::Serialize;
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct Line {
     /// dy/dx.
-    pub slope: f64,
+    pub(crate) slope: f64,
     /// y at x = 0.
-    pub intercept: f64,
+    pub(crate) intercept: f64,
 }
 
 impl Line {
     /// The line through (x, y) with the given slope.
-    pub fn through(x: f64, y: f64, slope: f64) -> Line {
+    pub(crate) fn through(x: f64, y: f64, slope: f64) -> Line {
         Line { slope, intercept: y - slope * x }
     }
 
@@ -24,7 +24,7 @@ impl Line {
     }
 
     /// The point where two lines cross; `None` when they are (numerically) parallel.
-    pub fn intersection(&self, other: &Line) -> Option<(f64, f64)> {
+    pub(crate) fn intersection(&self, other: &Line) -> Option<(f64, f64)> {
         let dslope = self.slope - other.slope;
         let scale = self.slope.abs().max(other.slope.abs());
         if dslope.is_nan() || dslope.abs() <= 1e-12 * scale {
@@ -39,7 +39,7 @@ impl Line {
 /// Running sums for a least-squares line, shifted by the first point so large offsets (a gauge reading of
 /// 12.345 mm) do not eat the precision of small changes.
 #[derive(Debug, Clone, Copy, Default)]
-pub struct LineAccumulator {
+pub(crate) struct LineAccumulator {
     n: usize,
     x0: f64,
     y0: f64,
@@ -51,12 +51,12 @@ pub struct LineAccumulator {
 
 impl LineAccumulator {
     /// An empty accumulator.
-    pub fn new() -> Self {
+    pub(crate) fn new() -> Self {
         Self::default()
     }
 
     /// Adds one point.
-    pub fn push(&mut self, x: f64, y: f64) {
+    pub(crate) fn push(&mut self, x: f64, y: f64) {
         if self.n == 0 {
             self.x0 = x;
             self.y0 = y;
@@ -71,18 +71,13 @@ impl LineAccumulator {
     }
 
     /// Points added so far.
-    pub fn len(&self) -> usize {
+    pub(crate) fn len(&self) -> usize {
         self.n
-    }
-
-    /// True when no point has been added.
-    pub fn is_empty(&self) -> bool {
-        self.n == 0
     }
 
     /// Leverage of a new abscissa on the fitted line, 1/n + (x − x̄)²/Sxx: the variance of the line's
     /// prediction at x in units of one point's variance (standard regression result [ref: least-squares]).
-    pub fn leverage(&self, x: f64) -> f64 {
+    pub(crate) fn leverage(&self, x: f64) -> f64 {
         if self.n < 2 {
             return f64::INFINITY;
         }
@@ -94,7 +89,7 @@ impl LineAccumulator {
     }
 
     /// The least-squares line; `None` with fewer than two distinct abscissae.
-    pub fn line(&self) -> Option<Line> {
+    pub(crate) fn line(&self) -> Option<Line> {
         if self.n < 2 {
             return None;
         }
@@ -113,7 +108,7 @@ impl LineAccumulator {
 }
 
 /// Least-squares line through the points; `None` with fewer than two distinct abscissae.
-pub fn fit_line(points: impl IntoIterator<Item = (f64, f64)>) -> Option<Line> {
+pub(crate) fn fit_line(points: impl IntoIterator<Item = (f64, f64)>) -> Option<Line> {
     let mut acc = LineAccumulator::new();
     for (x, y) in points {
         acc.push(x, y);
@@ -122,12 +117,12 @@ pub fn fit_line(points: impl IntoIterator<Item = (f64, f64)>) -> Option<Line> {
 }
 
 /// Largest |y − line(x)| over the points (0 for none).
-pub fn max_abs_residual(line: &Line, points: impl IntoIterator<Item = (f64, f64)>) -> f64 {
+pub(crate) fn max_abs_residual(line: &Line, points: impl IntoIterator<Item = (f64, f64)>) -> f64 {
     points.into_iter().map(|(x, y)| (y - line.at(x)).abs()).fold(0.0, f64::max)
 }
 
 /// Residual sum of squares of the points about the line.
-pub fn residual_sum_of_squares(line: &Line, points: impl IntoIterator<Item = (f64, f64)>) -> f64 {
+pub(crate) fn residual_sum_of_squares(line: &Line, points: impl IntoIterator<Item = (f64, f64)>) -> f64 {
     points.into_iter().map(|(x, y)| (y - line.at(x)).powi(2)).sum()
 }
 

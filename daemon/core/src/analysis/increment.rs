@@ -21,27 +21,27 @@ use super::{AnalysisError, check_positive, check_range};
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct IncrementParams {
     /// Gauge resolution, mm; straight-line tolerances start at twice this [ref: straight-run-rule, common practice].
-    pub gauge_resolution_mm: f64,
+    pub(crate) gauge_resolution_mm: f64,
     /// Log-time bins per decade for thinning.
     pub bins_per_decade: f64,
     /// Where the drainage path comes from.
-    pub drainage: DrainagePath,
+    pub(crate) drainage: DrainagePath,
     /// Height of the specimen at a known reading; needed for `DrainagePath::FromHeight` and for Cα.
-    pub specimen: Option<SpecimenState>,
+    pub(crate) specimen: Option<SpecimenState>,
     /// Height of solids Hs, mm; adds Cα on the void-ratio basis.
-    pub solids_height_mm: Option<f64>,
+    pub(crate) solids_height_mm: Option<f64>,
     /// √t construction choices.
-    pub taylor: TaylorParams,
+    pub(crate) taylor: TaylorParams,
     /// log-t construction choices.
-    pub casagrande: CasagrandeParams,
+    pub(crate) casagrande: CasagrandeParams,
     /// Time factor used with t90: 0.848 as printed [ref: terzaghi-time-factors].
-    pub time_factor_90: f64,
+    pub(crate) time_factor_90: f64,
     /// Time factor used with t50: 0.197 as printed [ref: terzaghi-time-factors].
-    pub time_factor_50: f64,
+    pub(crate) time_factor_50: f64,
     /// Load increment ratio Δσ/σ of this increment, if known; under 0.7 flags cv [ref: load-increment-ratio].
-    pub load_increment_ratio: Option<f64>,
+    pub(crate) load_increment_ratio: Option<f64>,
     /// Mean temperature of the increment, °C; adds cv corrected to 20 °C.
-    pub temperature_c: Option<f64>,
+    pub(crate) temperature_c: Option<f64>,
 }
 
 impl IncrementParams {
@@ -64,7 +64,7 @@ impl IncrementParams {
 
     /// Defaults with the drainage path from the specimen height at 50 % consolidation (D2435 practice):
     /// the specimen was `height_mm` high when the gauge read `at_reading_mm`.
-    pub fn with_specimen(height_mm: f64, at_reading_mm: f64, drainage: Drainage) -> Self {
+    pub(crate) fn with_specimen(height_mm: f64, at_reading_mm: f64, drainage: Drainage) -> Self {
         IncrementParams {
             drainage: DrainagePath::FromHeight { drainage, basis: HeightBasis::AtHalfConsolidation },
             specimen: Some(SpecimenState { height_mm, at_reading_mm }),
@@ -73,7 +73,7 @@ impl IncrementParams {
     }
 
     /// Refuses parameters outside their sensible ranges, naming the field.
-    pub fn check(&self) -> Result<(), AnalysisError> {
+    pub(crate) fn check(&self) -> Result<(), AnalysisError> {
         check_positive("gauge_resolution_mm", self.gauge_resolution_mm)?;
         check_range("bins_per_decade", self.bins_per_decade, 1.0, 1000.0, "1 to 1000")?;
         match self.drainage {
@@ -111,11 +111,11 @@ impl IncrementParams {
 
 /// The increment's end of primary consolidation, for the e–log σ′ curve.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct EndOfPrimary {
+pub(crate) struct EndOfPrimary {
     /// d100, mm.
-    pub d100_mm: f64,
+    pub(crate) d100_mm: f64,
     /// Which construction gave it: log t when it has a secondary branch, else √t.
-    pub method: Method,
+    pub(crate) method: Method,
 }
 
 /// The reduced increment.
@@ -124,11 +124,11 @@ pub struct IncrementReduction {
     /// The thinned curve the constructions ran on; node indices in the results point here.
     pub nodes: Vec<CurveNode>,
     /// Mean reading at t = 0, if any.
-    pub zero_reading_mm: Option<f64>,
+    pub(crate) zero_reading_mm: Option<f64>,
     /// Readings reduced.
     pub reading_count: usize,
     /// Reading noise estimated from the scatter inside bins, mm.
-    pub noise_mm: Option<f64>,
+    pub(crate) noise_mm: Option<f64>,
     /// √t construction.
     pub taylor: TaylorResult,
     /// log-t construction.
@@ -138,7 +138,7 @@ pub struct IncrementReduction {
     /// cv from t50.
     pub cv_casagrande: Option<CvEstimate>,
     /// d100 for the end-of-primary curve.
-    pub end_of_primary: Option<EndOfPrimary>,
+    pub(crate) end_of_primary: Option<EndOfPrimary>,
     /// Cα from the secondary line.
     pub secondary: Option<SecondaryCompression>,
     /// Every flag of the increment and of both constructions, once each.
@@ -175,7 +175,6 @@ pub fn reduce_curve(curve: &TimeCurve, params: &IncrementParams) -> Result<Incre
     let mut flags = Vec::new();
     let nodes = &prepared.nodes;
     let start_mm = prepared.zero_reading_mm.or(nodes.first().map(|n| n.d_mm));
-    let end_mm = nodes.last().map(|n| n.d_mm);
     // Swelling judged on the median of the later half of the nodes, so one wild reading cannot flip it.
     let later_median = median(nodes[nodes.len() / 2..].iter().map(|n| n.d_mm).collect());
     let swelling = matches!((start_mm, later_median), (Some(a), Some(b)) if b <= a) && nodes.len() > 1;
@@ -190,10 +189,6 @@ pub fn reduce_curve(curve: &TimeCurve, params: &IncrementParams) -> Result<Incre
     };
 
     let height_at = |reading_mm: f64| params.specimen.map(|s| s.height_at_mm(reading_mm));
-    let mean_reading = match (start_mm, end_mm) {
-        (Some(a), Some(b)) => Some(0.5 * (a + b)),
-        _ => None,
-    };
     let estimate = |method: Method, time_factor: f64, time_min: Option<f64>, d50_mm: Option<f64>| {
         let time_min = time_min?;
         let (path_mm, height_mm) = match params.drainage {
@@ -201,7 +196,6 @@ pub fn reduce_curve(curve: &TimeCurve, params: &IncrementParams) -> Result<Incre
             DrainagePath::FromHeight { drainage, basis } => {
                 let reading = match basis {
                     HeightBasis::AtHalfConsolidation => d50_mm?,
-                    HeightBasis::MeanOfIncrement => mean_reading?,
                 };
                 let h = height_at(reading)?;
                 (drainage.path_mm(h), Some(h))
@@ -326,12 +320,6 @@ mod tests {
         assert_eq!(cv.height_mm, Some(h50));
         assert!((cv.drainage_path_mm - h50 / 2.0).abs() < 1e-12);
         assert!((cv.cv_mm2_per_min - 0.197 * cv.drainage_path_mm.powi(2) / cv.time_min).abs() < 1e-12);
-        // BS-style mean height: the reading at t = 0 and the last node (mean of the last bin's readings).
-        params.drainage = DrainagePath::FromHeight { drainage: Drainage::Single, basis: HeightBasis::MeanOfIncrement };
-        let r = reduce_increment(&readings, &params).unwrap();
-        let last = r.nodes.last().unwrap().d_mm;
-        let mean_height = 20.0 - (0.5 * (m.start_mm + last) - m.start_mm);
-        assert!((r.cv_taylor.unwrap().drainage_path_mm - mean_height).abs() < 1e-12);
         // The drainage path from a height needs the height.
         params.specimen = None;
         assert!(matches!(

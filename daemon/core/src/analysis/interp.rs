@@ -9,7 +9,7 @@ use super::fit::Line;
 
 /// A PCHIP interpolant through strictly increasing nodes.
 #[derive(Debug, Clone)]
-pub struct Pchip {
+pub(crate) struct Pchip {
     x: Vec<f64>,
     y: Vec<f64>,
     slope: Vec<f64>,
@@ -41,7 +41,7 @@ fn end_slope(h0: f64, h1: f64, delta0: f64, delta1: f64) -> f64 {
 
 impl Pchip {
     /// Builds the interpolant. Needs ≥ 2 nodes, finite values, strictly increasing `x`.
-    pub fn new(x: Vec<f64>, y: Vec<f64>) -> Result<Self, AnalysisError> {
+    pub(crate) fn new(x: Vec<f64>, y: Vec<f64>) -> Result<Self, AnalysisError> {
         if x.len() != y.len() || x.len() < 2 {
             return Err(AnalysisError::TooFewPoints {
                 what: "interpolation nodes",
@@ -81,16 +81,6 @@ impl Pchip {
         Ok(Pchip { x, y, slope })
     }
 
-    /// Node abscissae.
-    pub fn x(&self) -> &[f64] {
-        &self.x
-    }
-
-    /// Node ordinates.
-    pub fn y(&self) -> &[f64] {
-        &self.y
-    }
-
     /// Interval index k with x[k] ≤ x ≤ x[k+1], clamped to the ends.
     fn segment(&self, x: f64) -> usize {
         let k = self.x.partition_point(|&xi| xi <= x);
@@ -113,7 +103,7 @@ impl Pchip {
     }
 
     /// The interpolated value; outside the nodes, the end value.
-    pub fn eval(&self, x: f64) -> f64 {
+    pub(crate) fn eval(&self, x: f64) -> f64 {
         let (k, s, h) = self.local(x);
         let s2 = s * s;
         let s3 = s2 * s;
@@ -125,27 +115,21 @@ impl Pchip {
     }
 
     /// dy/dx (inside the nodes; clamped like `eval`).
-    pub fn derivative(&self, x: f64) -> f64 {
+    #[cfg(test)]
+    pub(crate) fn derivative(&self, x: f64) -> f64 {
         let (k, s, _) = self.local(x);
         let (a, b, c) = self.derivative_quadratic(k);
         (a * s + b) * s + c
     }
 
-    /// d²y/dx² (inside an interval; at a node, the value of the interval to its right).
-    pub fn second_derivative(&self, x: f64) -> f64 {
-        let (k, s, h) = self.local(x);
-        let (a, b, _) = self.derivative_quadratic(k);
-        (2.0 * a * s + b) / h
-    }
-
     /// Number of intervals.
-    pub fn intervals(&self) -> usize {
+    pub(crate) fn intervals(&self) -> usize {
         self.x.len() - 1
     }
 
     /// (x, dy/dx, d²y/dx²) at fraction `s` ∈ [0, 1] of interval `k`, using that interval's cubic even at its
     /// ends, so both one-sided second derivatives at a node can be read.
-    pub fn local_derivatives(&self, k: usize, s: f64) -> (f64, f64, f64) {
+    pub(crate) fn local_derivatives(&self, k: usize, s: f64) -> (f64, f64, f64) {
         let k = k.min(self.x.len() - 2);
         let h = self.x[k + 1] - self.x[k];
         let (a, b, c) = self.derivative_quadratic(k);
@@ -154,7 +138,7 @@ impl Pchip {
 
     /// The steepest point of the curve: (x, dy/dx) at the global maximum of the derivative, found
     /// analytically on each interval (the derivative is a quadratic there).
-    pub fn max_slope(&self) -> (f64, f64) {
+    pub(crate) fn max_slope(&self) -> (f64, f64) {
         let mut best = (self.x[0], self.slope[0]);
         for k in 0..self.x.len() - 1 {
             let h = self.x[k + 1] - self.x[k];
@@ -178,7 +162,7 @@ impl Pchip {
     /// First x ≥ `from_x` where the curve crosses `line`: where y − line changes from its sign at `from_x`
     /// (or touches it). `None` when it never does within the nodes. Exact up to bisection precision: each
     /// interval is split at the curve's tangency points so every piece is monotone in y − line.
-    pub fn first_crossing(&self, line: &Line, from_x: f64) -> Option<f64> {
+    pub(crate) fn first_crossing(&self, line: &Line, from_x: f64) -> Option<f64> {
         let last = self.x.len() - 1;
         if from_x.is_nan() || from_x > self.x[last] {
             return None;

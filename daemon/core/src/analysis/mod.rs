@@ -10,40 +10,49 @@
 //! stress in kPa. Method facts cite `daemon/core/REFERENCES.md` by anchor, `[ref: <anchor>, <mark>]`, the
 //! mark being read, computed, from memory or common practice.
 
-pub mod casagrande;
-pub mod compression;
-pub mod curve;
-pub mod cv;
-pub mod deflection;
-pub mod fit;
-pub mod flags;
-pub mod increment;
-pub mod interp;
-pub mod phase;
-pub mod reduction;
-pub mod secondary;
-pub mod taylor;
-pub mod terzaghi;
+pub(crate) mod casagrande;
+pub(crate) mod compression;
+pub(crate) mod curve;
+pub(crate) mod cv;
+pub(crate) mod deflection;
+pub(crate) mod fit;
+pub(crate) mod flags;
+pub(crate) mod increment;
+pub(crate) mod interp;
+pub(crate) mod phase;
+pub(crate) mod reduction;
+pub(crate) mod secondary;
+pub(crate) mod taylor;
+pub(crate) mod terzaghi;
 
 #[cfg(test)]
 mod synthetic;
 
-pub use casagrande::{CasagrandeParams, CasagrandeResult, casagrande};
+// What other crates name, and the types they reach through it (fields they read, results they match on).
+pub use casagrande::{CasagrandeResult, InflectionTangent, OffsetPair, SecondaryLine};
 pub use compression::{
-    CompressionInput, CompressionParams, CompressionPoint, CompressionReduction, reduce_compression,
+    Branch, CasagrandePreconsolidation, CompressionParams, CompressionReduction, IndexLine, StatePoint,
+    WorkPreconsolidation,
 };
-pub use curve::{CurveNode, PreparedCurve, TimeCurve};
-pub use cv::{CvEstimate, Drainage, DrainagePath, HeightBasis, SpecimenState};
-pub use deflection::{DeflectionCalibration, LoadBranch};
+pub use curve::{CurveNode, TimeCurve};
+pub use cv::{CvEstimate, Drainage};
+pub use deflection::DeflectionCalibration;
 pub use fit::Line;
 pub use flags::Flag;
 pub use increment::{IncrementParams, IncrementReduction, reduce_curve, reduce_increment};
-pub use phase::{PhaseRelations, SpecimenMeasurements, phase_relations};
+pub use phase::PhaseRelations;
 pub use reduction::{
-    CurveUnavailable, ReductionRules, StepInput, StepReduction, TestInput, TestReduction, TestSpecimen, reduce_test,
+    CurveUnavailable, ReductionRules, StepInput, StepReduction, TestInput, TestReduction, TestSpecimen,
     reduce_test_with,
 };
-pub use taylor::{TaylorParams, TaylorResult, taylor};
+pub use secondary::SecondaryCompression;
+pub use taylor::{StraightFit, TaylorResult};
+pub use terzaghi::degree_of_consolidation;
+
+pub(crate) use compression::reduce_compression;
+pub(crate) use cv::SpecimenState;
+pub(crate) use phase::{SpecimenMeasurements, phase_relations};
+pub(crate) use reduction::reduce_test;
 
 /// Why an analysis could not even start: bad input or a parameter outside what is allowed.
 /// A construction that runs but cannot find something returns `None` values and a [`Flag`] instead.

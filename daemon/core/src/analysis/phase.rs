@@ -11,7 +11,7 @@ use super::{AnalysisError, check_positive, check_range};
 
 /// e from the dry mass and e back-calculated from the final water content may differ by this much before
 /// the check is flagged [ref: final-water-check, common practice].
-pub const VOID_RATIO_DISCREPANCY_LIMIT: f64 = 0.02;
+pub(crate) const VOID_RATIO_DISCREPANCY_LIMIT: f64 = 0.02;
 /// Degree of saturation below this flags cv: time-curve theory assumes saturation [ref: saturation-check]
 /// (95 %, common practice).
 const PARTLY_SATURATED_BELOW: f64 = 0.95;
@@ -21,26 +21,26 @@ const OVERSATURATED_ABOVE: f64 = 1.05;
 
 /// What was measured on the specimen before the test.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct SpecimenMeasurements {
+pub(crate) struct SpecimenMeasurements {
     /// Ring (specimen) diameter, mm.
-    pub diameter_mm: f64,
+    pub(crate) diameter_mm: f64,
     /// Initial height H0, mm.
-    pub height_mm: f64,
+    pub(crate) height_mm: f64,
     /// Dry mass Ms, g (after oven-drying at the end of the test).
-    pub dry_mass_g: f64,
+    pub(crate) dry_mass_g: f64,
     /// Specific gravity of the solids Gs, measured or assumed.
-    pub specific_gravity: f64,
+    pub(crate) specific_gravity: f64,
     /// Initial mass of the specimen, g; gives w0 = (M0 − Ms)/Ms.
-    pub initial_mass_g: Option<f64>,
+    pub(crate) initial_mass_g: Option<f64>,
     /// Initial water content from trimmings (fraction); used when `initial_mass_g` is absent.
-    pub initial_water_content: Option<f64>,
+    pub(crate) initial_water_content: Option<f64>,
     /// Density of water ρw, g/cm³ (Mg/m³); 1.0 by common practice [ref: height-of-solids].
-    pub water_density_g_per_cm3: f64,
+    pub(crate) water_density_g_per_cm3: f64,
 }
 
 impl SpecimenMeasurements {
     /// Measurements with ρw = 1.0 g/cm³ and no initial water content.
-    pub fn new(diameter_mm: f64, height_mm: f64, dry_mass_g: f64, specific_gravity: f64) -> Self {
+    pub(crate) fn new(diameter_mm: f64, height_mm: f64, dry_mass_g: f64, specific_gravity: f64) -> Self {
         SpecimenMeasurements {
             diameter_mm,
             height_mm,
@@ -57,36 +57,36 @@ impl SpecimenMeasurements {
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct PhaseRelations {
     /// Plan area A = π·D²/4, mm².
-    pub area_mm2: f64,
+    pub(crate) area_mm2: f64,
     /// Initial height H0, mm.
-    pub height_mm: f64,
+    pub(crate) height_mm: f64,
     /// Height of solids Hs = Ms/(Gs·ρw·A), mm [ref: height-of-solids].
     pub solids_height_mm: f64,
     /// e0 = (H0 − Hs)/Hs [ref: height-of-solids].
     pub e0: f64,
     /// Specific gravity used.
-    pub specific_gravity: f64,
+    pub(crate) specific_gravity: f64,
     /// Dry density Ms/(A·H0), Mg/m³.
     pub dry_density_mg_per_m3: f64,
     /// Bulk density M0/(A·H0), Mg/m³, when the initial mass is given.
-    pub bulk_density_mg_per_m3: Option<f64>,
+    pub(crate) bulk_density_mg_per_m3: Option<f64>,
     /// Initial water content w0 (fraction).
-    pub initial_water_content: Option<f64>,
+    pub(crate) initial_water_content: Option<f64>,
     /// S0 = w0·Gs/e0 (Sr = w·Gs/e) [ref: saturation-check, common practice].
-    pub initial_saturation: Option<f64>,
+    pub(crate) initial_saturation: Option<f64>,
     /// Quality remarks.
-    pub flags: Vec<Flag>,
+    pub(crate) flags: Vec<Flag>,
 }
 
 impl PhaseRelations {
     /// Void ratio when the specimen is `height_mm` high: e = (H − Hs)/Hs [ref: height-of-solids].
-    pub fn void_ratio_at(&self, height_mm: f64) -> f64 {
+    pub(crate) fn void_ratio_at(&self, height_mm: f64) -> f64 {
         (height_mm - self.solids_height_mm) / self.solids_height_mm
     }
 }
 
 /// Computes the initial phase relations. `Err` names the first measurement out of range.
-pub fn phase_relations(m: &SpecimenMeasurements) -> Result<PhaseRelations, AnalysisError> {
+pub(crate) fn phase_relations(m: &SpecimenMeasurements) -> Result<PhaseRelations, AnalysisError> {
     check_range("diameter_mm", m.diameter_mm, 1.0, 1000.0, "1 to 1000 mm")?;
     check_range("height_mm", m.height_mm, 0.5, 1000.0, "0.5 to 1000 mm")?;
     check_positive("dry_mass_g", m.dry_mass_g)?;
@@ -138,22 +138,22 @@ pub fn phase_relations(m: &SpecimenMeasurements) -> Result<PhaseRelations, Analy
 
 /// Cross-check of e from the final water content of the (saturated) specimen.
 #[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct FinalWaterCheck {
+pub(crate) struct FinalWaterCheck {
     /// e at the end from the dry mass: (Hf − Hs)/Hs.
-    pub e_final_from_dry_mass: f64,
+    pub(crate) e_final_from_dry_mass: f64,
     /// e at the end from the water content, saturated: ef = wf·Gs [ref: final-water-check, common practice].
-    pub e_final_from_water: f64,
+    pub(crate) e_final_from_water: f64,
     /// e0 back-calculated from ef: 1 + e0 = (1 + ef)·H0/Hf (v/h constant) [ref: final-water-check, common practice].
-    pub e0_from_final_water: f64,
+    pub(crate) e0_from_final_water: f64,
     /// e0 (dry mass) − e0 (final water).
-    pub discrepancy: f64,
+    pub(crate) discrepancy: f64,
     /// `VoidRatioMismatch` when |discrepancy| > 0.02.
-    pub flags: Vec<Flag>,
+    pub(crate) flags: Vec<Flag>,
 }
 
 /// Compares e0 from the dry mass with e0 back-calculated from the final water content and the final height
 /// `final_height_mm` (both apparatus-corrected), as BS 1377 Form 5A computes e0 both ways [ref: final-water-check].
-pub fn final_water_check(
+pub(crate) fn final_water_check(
     phase: &PhaseRelations,
     final_height_mm: f64,
     final_water_content: f64,

@@ -29,7 +29,7 @@ pub struct ReductionRules {
     pub max_secondary_slope_ratio: f64,
     /// Drainage faces of the specimen (double: top and bottom porous stones) [ref: drainage-path].
     pub drainage: Drainage,
-    /// The e–log σ′ construction choices (the basis is decided per test, see [`reduce_test`]).
+    /// The e–log σ′ construction choices (the basis is decided per test, see [`reduce_test_with`]).
     pub compression: CompressionParams,
 }
 
@@ -49,7 +49,7 @@ impl ReductionRules {
     /// The parameters of one load step's time-curve reduction: the drainage path from the specimen height at
     /// 50 % consolidation, tied to the gauge by `specimen` (the height at a known reading) [ref: drainage-path];
     /// Hs for Cα on the void-ratio basis when known; the load increment ratio from the stress before.
-    pub fn increment_params(
+    pub(crate) fn increment_params(
         &self,
         specimen: SpecimenState,
         previous_kpa: f64,
@@ -68,7 +68,7 @@ impl ReductionRules {
 
 /// The cv a load step's k is computed with: that of the construction that gave its end of primary (log t
 /// where a secondary line was found, else √t); none without an end of primary [ref: permeability].
-pub fn cv_behind_k(reduction: &IncrementReduction) -> Option<CvEstimate> {
+pub(crate) fn cv_behind_k(reduction: &IncrementReduction) -> Option<CvEstimate> {
     match reduction.end_of_primary?.method {
         Method::Casagrande => reduction.cv_casagrande,
         Method::Taylor => reduction.cv_taylor,
@@ -124,12 +124,12 @@ pub struct TestInput<'a> {
 
 impl TestInput<'_> {
     /// The stress before step `index`: the previous step's, or the seating stress.
-    pub fn previous_kpa(&self, index: usize) -> f64 {
+    pub(crate) fn previous_kpa(&self, index: usize) -> f64 {
         index.checked_sub(1).map_or(self.specimen.seating_stress_kpa, |i| self.steps[i].stress_kpa)
     }
 
     /// The phase relations, when the dry mass and Gs are known (`Some(Err)` when they are refused).
-    pub fn phase(&self) -> Option<Result<PhaseRelations, AnalysisError>> {
+    pub(crate) fn phase(&self) -> Option<Result<PhaseRelations, AnalysisError>> {
         let s = &self.specimen;
         let (dry_mass_g, specific_gravity) = (s.dry_mass_g?, s.specific_gravity?);
         let mut measurements = SpecimenMeasurements::new(s.diameter_mm, s.height_mm, dry_mass_g, specific_gravity);
@@ -155,7 +155,7 @@ impl TestInput<'_> {
 
     /// The time-curve parameters of step `index` (`None` without readings): the gauge tied to the height
     /// H0 − settlement at the step's last reading, settlement apparatus-corrected where the table covers it.
-    pub fn step_params(&self, index: usize, solids_height_mm: Option<f64>) -> Option<IncrementParams> {
+    pub(crate) fn step_params(&self, index: usize, solids_height_mm: Option<f64>) -> Option<IncrementParams> {
         let step = &self.steps[index];
         let (_, last_mm) = *step.readings?.last()?;
         let settlement = self.corrected_settlement(index).unwrap_or(0.0);
@@ -176,9 +176,9 @@ impl TestInput<'_> {
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct StepReduction {
     /// σ′, kPa.
-    pub stress_kpa: f64,
+    pub(crate) stress_kpa: f64,
     /// The stress before it, kPa.
-    pub previous_kpa: f64,
+    pub(crate) previous_kpa: f64,
     /// Cumulative compression at the end of the step, corrected for apparatus deflection where the table
     /// covers both its stress and the seating stress, mm.
     pub settlement_mm: Option<f64>,
@@ -193,7 +193,8 @@ pub struct StepReduction {
     /// Why the time curve could not be reduced, when it was refused.
     #[serde(skip)]
     pub curve_refused: Option<AnalysisError>,
-    /// The cv behind k ([`cv_behind_k`]).
+    /// The cv behind k: that of the construction that gave the end of primary (log t where a secondary line
+    /// was found, else √t); none without an end of primary.
     pub cv_for_k: Option<CvEstimate>,
     /// Remarks of the deflection lookup at the step's stress.
     pub deflection_flags: Vec<Flag>,
@@ -227,26 +228,26 @@ pub struct TestReduction {
     pub steps: Vec<StepReduction>,
     /// For each point of the compression curve, the step it comes from (steps without a settlement are
     /// not on the curve).
-    pub curve_steps: Vec<usize>,
+    pub(crate) curve_steps: Vec<usize>,
     /// End of primary where any step has a time curve (a Method B curve), else end of step (Method A)
     /// [ref: test-methods].
-    pub basis: CurveBasis,
+    pub(crate) basis: CurveBasis,
     /// The e–log σ′ reduction.
     pub compression: Result<CompressionReduction, CurveUnavailable>,
     /// Whether every step with a settlement was corrected for apparatus deflection.
     pub apparatus_corrected: bool,
     /// The cross-check of e0 from the final water content, when given.
-    pub final_water: Option<Result<FinalWaterCheck, AnalysisError>>,
+    pub(crate) final_water: Option<Result<FinalWaterCheck, AnalysisError>>,
 }
 
 /// Reduces a test, each time curve with [`reduce_increment`].
-pub fn reduce_test(input: &TestInput<'_>) -> TestReduction {
+pub(crate) fn reduce_test(input: &TestInput<'_>) -> TestReduction {
     reduce_test_with(input, |_, readings, params| reduce_increment(readings, params))
 }
 
-/// As [`reduce_test`], with the time curves reduced by `reduce(index, readings, params)`: a caller that
-/// keeps finished steps' reductions (the HTTP read model) returns them from there. `reduce` must give what
-/// [`reduce_increment`] gives for the same readings and parameters.
+/// Reduces a test, each time curve by `reduce(index, readings, params)`: a caller that keeps finished steps'
+/// reductions (the HTTP read model) returns them from there. `reduce` must give what [`reduce_increment`] gives
+/// for the same readings and parameters.
 pub fn reduce_test_with(
     input: &TestInput<'_>,
     mut reduce: impl FnMut(usize, &[(f64, f64)], &IncrementParams) -> Result<IncrementReduction, AnalysisError>,

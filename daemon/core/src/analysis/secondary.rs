@@ -14,22 +14,22 @@ pub struct SecondaryCompression {
     /// Cα(ε) = Δε/Δlog10 t, ε over `height_mm` [ref: secondary-compression].
     pub c_alpha_strain: f64,
     /// Cα,e = Δe/Δlog10 t = Cα(ε)·(1 + e_p) [ref: secondary-compression]; needs Hs.
-    pub c_alpha_void_ratio: Option<f64>,
+    pub(crate) c_alpha_void_ratio: Option<f64>,
     /// Slope of the secondary line, mm per log cycle.
-    pub slope_mm_per_log_cycle: f64,
+    pub(crate) slope_mm_per_log_cycle: f64,
     /// The height the strain is taken over: the specimen height at the start of secondary compression
     /// (at d100 of the log-t construction) — so 1 + e_p = height/Hs [ref: secondary-compression, common practice].
-    pub height_mm: f64,
+    pub(crate) height_mm: f64,
     /// Fitted window start, min.
-    pub t_start_min: f64,
+    pub(crate) t_start_min: f64,
     /// Fitted window end, min.
-    pub t_end_min: f64,
+    pub(crate) t_end_min: f64,
 }
 
 /// Cα from a secondary line. `height_mm` is the specimen height at the start of secondary compression;
 /// `solids_height_mm` (Hs) adds the void-ratio basis. The flag list gets `SecondarySlopeNegative` when the
 /// line slopes towards swelling.
-pub fn secondary_compression(
+pub(crate) fn secondary_compression(
     line: &SecondaryLine,
     height_mm: f64,
     solids_height_mm: Option<f64>,

@@ -12,7 +12,7 @@ use super::interp::Pchip;
 use super::{AnalysisError, check_range};
 
 /// Constructions need at least this many nodes after the load went on.
-pub const MIN_NODES: usize = 4;
+pub(crate) const MIN_NODES: usize = 4;
 /// A straight fit through fewer points than this is flagged as weak.
 const WEAK_FIT_POINTS: usize = 4;
 /// Primary compression under this many gauge resolutions is flagged: on synthetic curves quantised to the
@@ -22,17 +22,17 @@ pub(crate) const SMALL_PRIMARY_RESOLUTIONS: f64 = 50.0;
 
 /// Choices of the √t construction.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct TaylorParams {
+pub(crate) struct TaylorParams {
     /// Abscissa ratio of the construction line, OC = 1.15·OB [ref: taylor-root-time]. The exact-theory value
     /// is 1.1546, and 1.15 biases cv by +1.5 % [ref: taylor-root-time, computed]; exposed so a lab can choose.
-    pub factor: f64,
+    pub(crate) factor: f64,
     /// The straight fit stops before nodes beyond this degree of consolidation, the end of the √T-linear
     /// range (U ≲ 60 % [ref: terzaghi-approximations, computed]).
-    pub max_fit_degree: f64,
+    pub(crate) max_fit_degree: f64,
     /// Fewest nodes in the straight fit (they seed it).
-    pub min_fit_points: usize,
+    pub(crate) min_fit_points: usize,
     /// Nodes before this time (min) are left out of the straight fit, e.g. to skip bedding on load-on.
-    pub fit_from_min: f64,
+    pub(crate) fit_from_min: f64,
 }
 
 impl Default for TaylorParams {
@@ -43,7 +43,7 @@ impl Default for TaylorParams {
 
 impl TaylorParams {
     /// Refuses parameters outside their sensible ranges.
-    pub fn check(&self) -> Result<(), AnalysisError> {
+    pub(crate) fn check(&self) -> Result<(), AnalysisError> {
         check_range("taylor.factor", self.factor, 1.0, 2.0, "1.0 to 2.0 (standard 1.15)")?;
         check_range("taylor.max_fit_degree", self.max_fit_degree, 0.1, 0.9, "0.1 to 0.9 (standard 0.6)")?;
         check_range("taylor.min_fit_points", self.min_fit_points as f64, 3.0, 1000.0, "3 to 1000")?;
@@ -56,26 +56,26 @@ impl TaylorParams {
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct StraightFit {
     /// First node in the fit (index into the curve's nodes).
-    pub first_node: usize,
+    pub(crate) first_node: usize,
     /// Last node in the fit.
-    pub last_node: usize,
+    pub(crate) last_node: usize,
     /// Time of the first node.
-    pub t_start_min: f64,
+    pub(crate) t_start_min: f64,
     /// Time of the last node.
-    pub t_end_min: f64,
+    pub(crate) t_end_min: f64,
     /// Nodes fitted (a single stray node inside the span is left out).
-    pub points: usize,
+    pub(crate) points: usize,
     /// The line, in (√t [√min], d [mm]).
     pub line: Line,
     /// True when the U ≤ `max_fit_degree` limit, not the residual rule, ended the fit.
-    pub capped_by_degree: bool,
+    pub(crate) capped_by_degree: bool,
 }
 
 /// Result of the √t construction. Values that cannot be determined are `None`, with a flag saying why.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct TaylorResult {
     /// The factor used.
-    pub factor: f64,
+    pub(crate) factor: f64,
     /// The straight early part.
     pub straight: Option<StraightFit>,
     /// Corrected zero, mm.
@@ -93,7 +93,7 @@ pub struct TaylorResult {
     /// Time the curve reaches d50.
     pub t50_min: Option<f64>,
     /// Quality remarks.
-    pub flags: Vec<Flag>,
+    pub(crate) flags: Vec<Flag>,
 }
 
 impl TaylorResult {
@@ -114,7 +114,7 @@ impl TaylorResult {
 }
 
 /// Runs the √t construction on a prepared curve. `Err` only for parameters out of range.
-pub fn taylor(curve: &PreparedCurve, params: &TaylorParams) -> Result<TaylorResult, AnalysisError> {
+pub(crate) fn taylor(curve: &PreparedCurve, params: &TaylorParams) -> Result<TaylorResult, AnalysisError> {
     params.check()?;
     let mut result = TaylorResult::empty(params.factor);
     let nodes = &curve.nodes;

@@ -5,9 +5,9 @@
 use std::f64::consts::{FRAC_PI_2, PI};
 
 /// Published time factor for U = 50 %, used with t50 (Casagrande; Taylor 1948) [ref: terzaghi-time-factors].
-pub const T50_PUBLISHED: f64 = 0.197;
+pub(crate) const T50_PUBLISHED: f64 = 0.197;
 /// Published time factor for U = 90 %, used with t90 (Taylor 1948) [ref: terzaghi-time-factors].
-pub const T90_PUBLISHED: f64 = 0.848;
+pub(crate) const T90_PUBLISHED: f64 = 0.848;
 
 /// Below this time factor the short-time form U = 2·√(T/π) is exact to machine precision: the image terms
 /// it leaves out are of order exp(−1/T) < 1e-21 [ref: terzaghi-series, computed].
@@ -51,7 +51,8 @@ fn series_degree(time_factor: f64) -> f64 {
 
 /// Time factor T at which the average degree of consolidation reaches `degree` (0 ≤ U < 1), by bisection on
 /// the exact series; `None` for U outside [0, 1) or NaN.
-pub fn time_factor(degree: f64) -> Option<f64> {
+#[cfg(test)]
+pub(crate) fn time_factor(degree: f64) -> Option<f64> {
     if !(0.0..1.0).contains(&degree) {
         return None;
     }
