@@ -4,7 +4,7 @@
 
 use std::time::Instant;
 
-use oedolog::watch::{FrameWatch, Specimen, WatchParams};
+use oedolog::watch::{FrameWatch, SpecimenSize, WatchParams};
 use oedolog_sim::device::SimFrame;
 
 fn main() {
@@ -21,7 +21,7 @@ fn main() {
         .collect();
     let mut watch = FrameWatch::new(WatchParams::default());
     watch.sample(samples[0].0, Some(samples[0].1), Some(samples[0].2));
-    watch.start_test(Specimen { area_mm2: specimen.area_mm2(), height_mm: specimen.height_mm }, 6.25);
+    watch.start_test(SpecimenSize { area_mm2: specimen.area_mm2(), height_mm: specimen.height_mm }, 6.25);
     watch.arm(50.0, 500_000).expect("arm");
     let started = Instant::now();
     let mut primary = None;

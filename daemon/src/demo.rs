@@ -17,7 +17,7 @@ use crate::clock::{Clock, ScaledClock, SystemClock};
 use crate::config::{
     Bus, BusKind, Calibration, Channel, Config, Frame, Loading, LogConfig, PollSchedule, StoreConfig, TcpLink,
 };
-use crate::lab::Specimen;
+use crate::lab::SpecimenRecord;
 use crate::service::{self, Options, Running, StartError};
 use crate::watch::HubError;
 
@@ -166,12 +166,12 @@ pub async fn start(options: DemoOptions) -> Result<(Running, Arc<dyn Clock>), De
     let scaled = Arc::new(ScaledClock::new(start_us, options.speed));
     let clock: Arc<dyn Clock> = scaled.clone();
     let sim = Simulation::demo(usize::from(options.frames), 0.0, true, 1)?;
-    let specimens: Vec<Specimen> = sim
+    let specimens: Vec<SpecimenRecord> = sim
         .frames()
         .iter()
         .map(|f| {
             let s = f.model().specimen();
-            Specimen {
+            SpecimenRecord {
                 specimen: s.id.clone(),
                 description: format!("{}, {:.1} m (demo scenario)", s.description, s.depth_m),
                 height_mm: s.height_mm,

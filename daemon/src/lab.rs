@@ -12,10 +12,10 @@ use crate::store::lab_book::{self, NewTest, Step};
 use crate::store::{ChannelKind, Event, EventKind, Reader, StoreError, TestState, Writer, latest_reading};
 use oedolog_core::watch::OnsetSource;
 
-/// Specimen data of a new test.
+/// SpecimenRecord data of a new test.
 #[derive(Clone, Debug, PartialEq, Serialize)]
-pub struct Specimen {
-    /// Specimen / sample reference.
+pub struct SpecimenRecord {
+    /// SpecimenRecord / sample reference.
     pub specimen: String,
     /// Soil description, borehole, depth.
     pub description: String,
@@ -123,7 +123,7 @@ impl Lab {
     pub fn start_test(
         &self,
         index: usize,
-        specimen: Specimen,
+        specimen: SpecimenRecord,
         seating_kpa: f64,
         now_us: i64,
         actor: Option<String>,

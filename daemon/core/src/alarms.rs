@@ -2,9 +2,9 @@
 //! when the condition is gone.
 //!
 //! [`AlarmEngine`] is pure: it takes what acquisition and the watch know now ([`FrameInput`],
-//! [`BusInput`]) and returns the transitions (raise or clear). The task in [`task`] feeds it every few
-//! seconds, stores each transition with its journal entry through the writer, and publishes the open
-//! alarms on the [`AlarmBoard`] for the API, the dashboard and `/metrics`. Conditions:
+//! [`BusInput`]) and returns the transitions (raise or clear). The daemon's alarm task feeds it every few
+//! seconds, stores each transition with its journal entry, and publishes the open alarms on its board for
+//! the API, the dashboard and `/metrics`. Conditions:
 //!
 //! - `stale`: a frame with a running test had no valid reading for its stale time;
 //! - `gauge-travel`: the displacement reading is within the margin of an end of the gauge's travel;

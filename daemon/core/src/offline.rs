@@ -607,7 +607,7 @@ pub(crate) struct IncrementEntry {
 
 /// One increment of `analyze test`.
 #[derive(Debug, Clone, PartialEq, Serialize)]
-pub(crate) struct IncrementRow {
+pub(crate) struct ReportStep {
     /// σ′, kPa.
     pub(crate) stress_kpa: f64,
     /// e on the curve's basis: end of primary where a time curve gives it, else end of increment.
@@ -664,7 +664,7 @@ pub struct TestReport {
     /// e0 = (H0 − Hs)/Hs.
     pub(crate) e0: f64,
     /// Each increment, in the order applied.
-    pub(crate) increments: Vec<IncrementRow>,
+    pub(crate) increments: Vec<ReportStep>,
     /// Cc on the virgin branch (the three highest loading stresses).
     pub(crate) cc: Option<f64>,
     /// Cr on the first unload–reload cycle; null without unloading.
@@ -969,7 +969,7 @@ pub(crate) fn analyze_test_source(source: &str, path: &Path, read: ReadFile<'_>)
     })
 }
 
-fn increment_row(state: &StatePoint, step: &StepReduction, entry: &IncrementEntry) -> IncrementRow {
+fn increment_row(state: &StatePoint, step: &StepReduction, entry: &IncrementEntry) -> ReportStep {
     let curve = step.curve.as_ref();
     let mut remarks: Vec<Remark> = state.flags.iter().map(Remark::from).collect();
     if let Some(c) = curve {
@@ -980,7 +980,7 @@ fn increment_row(state: &StatePoint, step: &StepReduction, entry: &IncrementEntr
         }
     }
     let (flags, flag_codes) = split_remarks(&remarks);
-    IncrementRow {
+    ReportStep {
         stress_kpa: state.stress_kpa,
         e: state.e,
         mv_per_kpa: state.mv_per_kpa,

@@ -100,7 +100,7 @@ pub enum OnsetSource {
 
 /// What the watch tells the daemon (each becomes a journal event; some change stored state).
 #[derive(Clone, Debug, PartialEq)]
-pub enum Note {
+pub enum Finding {
     /// The increment's load went on at `onset_us`.
     Onset {
         /// Increment number.
@@ -164,7 +164,7 @@ pub struct Reseat {
 
 /// The running increment.
 #[derive(Clone, Debug)]
-struct Live {
+struct RunningStep {
     seq: i64,
     stress_kpa: f64,
     onset_us: i64,
@@ -235,7 +235,7 @@ pub enum WatchError {
 
 /// The specimen facts the watch needs.
 #[derive(Clone, Copy, Debug, PartialEq)]
-pub struct Specimen {
+pub struct SpecimenSize {
     /// Ring area, mm².
     pub area_mm2: f64,
     /// Initial height, mm.
@@ -247,13 +247,13 @@ pub struct Specimen {
 pub struct FrameWatch {
     phase: Phase,
     params: WatchParams,
-    specimen: Option<Specimen>,
+    specimen: Option<SpecimenSize>,
     /// Gauge reading at the test's zero (first reading under seating), mm.
     zero_mm: Option<f64>,
     armed: Option<(f64, i64)>,
     seq: i64,
     stress_kpa: f64,
-    live: Option<Live>,
+    live: Option<RunningStep>,
     history: VecDeque<Sample>,
     /// The settled load level, kN.
     level_kn: Option<f64>,
@@ -304,7 +304,7 @@ impl FrameWatch {
     }
 
     /// A test starts under its seating load.
-    pub fn start_test(&mut self, specimen: Specimen, seating_kpa: f64) {
+    pub fn start_test(&mut self, specimen: SpecimenSize, seating_kpa: f64) {
         self.phase = Phase::Seating;
         self.specimen = Some(specimen);
         self.zero_mm = self.history.back().and_then(|s| s.displacement_mm);
@@ -328,7 +328,7 @@ impl FrameWatch {
     #[allow(clippy::too_many_arguments)]
     pub fn resume(
         &mut self,
-        specimen: Specimen,
+        specimen: SpecimenSize,
         zero_mm: Option<f64>,
         seq: i64,
         stress_kpa: f64,
@@ -337,7 +337,7 @@ impl FrameWatch {
         onset_us: Option<i64>,
         ready_us: Option<i64>,
         readings: &[(i64, Option<f64>, Option<f64>)],
-    ) -> Vec<Note> {
+    ) -> Vec<Finding> {
         self.specimen = Some(specimen);
         self.zero_mm = zero_mm;
         self.phase = Phase::Seating;
@@ -371,8 +371,8 @@ impl FrameWatch {
         // Only what a replay can find that the store does not know yet: the onset, and end of primary.
         // Everything else it met was journalled the first time.
         notes.retain(|n| match n {
-            Note::Onset { .. } => true,
-            Note::Ready { .. } => ready_us.is_none(),
+            Finding::Onset { .. } => true,
+            Finding::Ready { .. } => ready_us.is_none(),
             _ => false,
         });
         notes
@@ -380,7 +380,7 @@ impl FrameWatch {
 
     /// The operator enters the next stress. Allowed under seating, in primary (cutting an increment short)
     /// or ready.
-    pub fn arm(&mut self, stress_kpa: f64, now_us: i64) -> Result<Vec<Note>, WatchError> {
+    pub fn arm(&mut self, stress_kpa: f64, now_us: i64) -> Result<Vec<Finding>, WatchError> {
         if !(stress_kpa.is_finite() && (0.0..=100_000.0).contains(&stress_kpa)) {
             return Err(WatchError::Value {
                 field: "stress_kpa",
@@ -410,7 +410,7 @@ impl FrameWatch {
     }
 
     /// One poll's readings.
-    pub fn sample(&mut self, at_us: i64, displacement_mm: Option<f64>, load_kn: Option<f64>) -> Vec<Note> {
+    pub fn sample(&mut self, at_us: i64, displacement_mm: Option<f64>, load_kn: Option<f64>) -> Vec<Finding> {
         let mut notes = Vec::new();
         // Readings never go back in time here: a clock stepped back must not reorder a curve.
         if self.history.back().is_some_and(|s| at_us <= s.at_us) {
@@ -436,7 +436,7 @@ impl FrameWatch {
     }
 
     /// Follows the settled load level; a reading off it by more than 3 % (and 3 N) starts a new level.
-    fn track_level(&mut self, at_us: i64, load: f64) -> Option<Note> {
+    fn track_level(&mut self, at_us: i64, load: f64) -> Option<Finding> {
         let before_us = self.last_load_us.replace(at_us);
         let level = self.level_kn.get_or_insert(load);
         let threshold = (0.03 * level.abs()).max(0.003);
@@ -451,7 +451,7 @@ impl FrameWatch {
             self.changes.pop_front();
         }
         let settling = self.live.as_ref().is_some_and(|l| at_us - l.onset_us <= 60_000_000);
-        (self.phase != Phase::Armed && self.phase != Phase::Idle && !settling).then_some(Note::UnarmedLoadChange {
+        (self.phase != Phase::Armed && self.phase != Phase::Idle && !settling).then_some(Finding::UnarmedLoadChange {
             at_us,
             from_kn: change.from_kn,
             to_kn: load,
@@ -463,7 +463,7 @@ impl FrameWatch {
     /// (and within the look-back) once the load stands near the expected force; t0 is the last reading at
     /// the old level, so the true onset lies within one poll period after it. Without one: the first jump
     /// of the gauge well above its resolution.
-    fn find_onset(&mut self) -> Option<Note> {
+    fn find_onset(&mut self) -> Option<Finding> {
         let (stress_kpa, armed_us) = self.armed?;
         let since = (armed_us - self.params.onset_lookback_us).max(self.last_onset_us.saturating_add(60_000_000));
         let has_load = self.history.iter().rev().take(8).any(|s| s.load_kn.is_some());
@@ -512,7 +512,7 @@ impl FrameWatch {
         for s in after {
             let _ = self.feed(s);
         }
-        Some(Note::Onset { seq, onset_us, source })
+        Some(Finding::Onset { seq, onset_us, source })
     }
 
     fn begin(&mut self, seq: i64, stress_kpa: f64, onset_us: i64, d_onset: Option<f64>) {
@@ -528,7 +528,7 @@ impl FrameWatch {
         if let Some(d) = d_onset {
             let _ = curve.push(0.0, d);
         }
-        self.live = Some(Live {
+        self.live = Some(RunningStep {
             seq,
             stress_kpa,
             onset_us,
@@ -554,7 +554,7 @@ impl FrameWatch {
         self.phase = Phase::Primary;
     }
 
-    fn feed(&mut self, s: Sample) -> Vec<Note> {
+    fn feed(&mut self, s: Sample) -> Vec<Finding> {
         let mut notes = Vec::new();
         let expected = self.live.as_ref().and_then(|l| self.expected_kn(l.stress_kpa));
         let params = self.params.clone();
@@ -575,10 +575,10 @@ impl FrameWatch {
                 let off = (mean - expected).abs();
                 if !live.load_off && off > tolerance {
                     live.load_off = true;
-                    notes.push(Note::LoadOff { measured_kn: mean, expected_kn: expected });
+                    notes.push(Finding::LoadOff { measured_kn: mean, expected_kn: expected });
                 } else if live.load_off && off < 0.8 * tolerance {
                     live.load_off = false;
-                    notes.push(Note::LoadBack);
+                    notes.push(Finding::LoadBack);
                 }
             }
         }
@@ -594,7 +594,7 @@ impl FrameWatch {
                 && step.abs() > params.reseat_min_mm.max(3.0 * live.max_step_mm)
             {
                 live.pending = Some(Reseat { at_us: s.at_us, jump_mm: step });
-                notes.push(Note::ReseatProposed { at_us: s.at_us, jump_mm: step });
+                notes.push(Finding::ReseatProposed { at_us: s.at_us, jump_mm: step });
             } else if live.samples > 3 && live.pending.is_none() {
                 live.max_step_mm = live.max_step_mm.max(step.abs());
             }
@@ -612,7 +612,7 @@ impl FrameWatch {
         notes
     }
 
-    fn evaluate(&mut self, at_us: i64, d_raw: f64) -> Option<Note> {
+    fn evaluate(&mut self, at_us: i64, d_raw: f64) -> Option<Finding> {
         let params = self.params.clone();
         let live = self.live.as_mut()?;
         let t_min = (at_us - live.onset_us) as f64 / 60e6;
@@ -692,16 +692,16 @@ impl FrameWatch {
         None
     }
 
-    fn declare_ready(&mut self, at_us: i64, how: String) -> Option<Note> {
+    fn declare_ready(&mut self, at_us: i64, how: String) -> Option<Finding> {
         let live = self.live.as_mut()?;
         live.ready_us = Some(at_us);
         self.phase = Phase::Ready;
-        Some(Note::Ready { seq: live.seq, at_us, how })
+        Some(Finding::Ready { seq: live.seq, at_us, how })
     }
 
     /// The operator answers a proposed re-seat: `accept` stitches the readings across the jump (offset);
     /// otherwise the jump is taken as real and the held readings are used as they are.
-    pub fn resolve_reseat(&mut self, accept: bool) -> Result<Vec<Note>, WatchError> {
+    pub fn resolve_reseat(&mut self, accept: bool) -> Result<Vec<Finding>, WatchError> {
         let live = self.live.as_mut().ok_or(WatchError::State("without an increment", "no re-seat to confirm"))?;
         let pending =
             live.pending.take().ok_or(WatchError::State("without a pending re-seat", "nothing to confirm"))?;

@@ -18,7 +18,7 @@ use std::time::{Duration, Instant};
 use axum::body::Bytes;
 
 use super::ApiError;
-use super::queries::{self, IncrementRow, Poll, TestRow};
+use super::queries::{self, IncrementView, Poll, TestRow};
 use crate::store::Reader;
 use oedolog_core::analysis::{AnalysisError, IncrementReduction};
 
@@ -211,7 +211,7 @@ pub(crate) struct IncrementStamp {
 
 impl IncrementStamp {
     /// The stamp of `inc` given the commit count read before the database was.
-    pub(crate) fn of(inc: &IncrementRow, commits: u64) -> Self {
+    pub(crate) fn of(inc: &IncrementView, commits: u64) -> Self {
         IncrementStamp {
             onset_us: inc.onset_us,
             ended_us: inc.ended_us,
@@ -273,7 +273,7 @@ impl Caches {
         &self,
         conn: &Reader,
         test: &TestRow,
-        inc: &IncrementRow,
+        inc: &IncrementView,
         stamp: &IncrementStamp,
         now_us: i64,
     ) -> Result<Arc<Vec<Poll>>, ApiError> {

@@ -9,7 +9,7 @@ use axum::routing::get;
 
 use super::csv::{Cell, Csv};
 use super::increments::{increment_polls, seq_of};
-use super::lab_tests::test_id;
+use super::lab_book::test_id;
 use super::queries;
 use super::{ApiError, AppState};
 use crate::clock::rfc3339;

@@ -12,7 +12,7 @@ use axum::response::{IntoResponse, Json};
 use axum::routing::get;
 use serde::Serialize;
 
-use super::queries::{self, IncrementRow, TestRow};
+use super::queries::{self, IncrementView, TestRow};
 use super::{ApiError, AppState};
 use crate::acquire::{Counters, LiveFrame};
 use crate::clock::rfc3339;
@@ -143,7 +143,7 @@ pub(crate) struct FrameDetail {
     /// The running test (else the latest) with its specimen data.
     pub test_record: Option<TestRow>,
     /// Its increments.
-    pub increments: Vec<IncrementRow>,
+    pub increments: Vec<IncrementView>,
 }
 
 pub(crate) fn config_view(loading: Loading, ring_area_mm2: f64) -> FrameConfigView {

@@ -15,7 +15,7 @@ use super::auth::{Caller, actor};
 use super::body::JsonBody;
 use super::cache::IncrementStamp;
 use super::frames::json_bytes;
-use super::queries::{self, IncrementRow, IncrementSummary, Poll, TestRow};
+use super::queries::{self, IncrementSummary, IncrementView, Poll, TestRow};
 use super::{ApiError, AppState};
 use crate::clock::rfc3339;
 use crate::config::Loading;
@@ -329,7 +329,7 @@ struct Readings {
 pub(crate) fn increment_polls(
     conn: &Reader,
     test: &TestRow,
-    inc: &IncrementRow,
+    inc: &IncrementView,
     now_us: i64,
 ) -> Result<Vec<TimedPoll>, ApiError> {
     let Some(onset) = inc.onset_us else { return Ok(Vec::new()) };

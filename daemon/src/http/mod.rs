@@ -15,7 +15,7 @@ mod events;
 mod export;
 mod frames;
 mod increments;
-mod lab_tests;
+mod lab_book;
 mod metrics;
 mod overview;
 mod queries;
@@ -116,7 +116,7 @@ impl AppState {
 
     /// Test `id` reduced (increments through the caches, settlements corrected for apparatus deflection
     /// where the frame is calibrated, then its e–log σ′ curve).
-    pub(crate) async fn reduce_test(&self, id: i64) -> Result<queries::TestReduction, ApiError> {
+    pub(crate) async fn reduce_test(&self, id: i64) -> Result<queries::TestSummary, ApiError> {
         let (now, commits, caches) = (self.clock.now_us(), self.writer.commits(), self.caches.clone());
         let frames = self.frames.clone();
         self.read(move |conn| queries::reduce_test(conn, &caches, commits, id, now, &frames)).await
@@ -190,7 +190,7 @@ pub fn router(state: AppState) -> Router {
         .route("/api/me", get(me))
         .merge(frames::router())
         .merge(alarms::router())
-        .merge(lab_tests::router())
+        .merge(lab_book::router())
         .merge(increments::router())
         .merge(events::router())
         .merge(export::router())

@@ -28,7 +28,7 @@ pub(crate) struct TestRow {
     /// `frames.key`.
     #[serde(skip)]
     pub frame_key: i64,
-    /// Specimen reference.
+    /// SpecimenRecord reference.
     pub specimen: String,
     /// Soil description, borehole, depth.
     pub description: String,
@@ -92,7 +92,7 @@ pub(crate) fn latest_test(conn: &Reader, frame_key: i64) -> Result<Option<TestRo
 
 /// One increment as stored.
 #[derive(Clone, Debug, Serialize)]
-pub(crate) struct IncrementRow {
+pub(crate) struct IncrementView {
     /// 1, 2, … within the test.
     pub seq: i64,
     /// Target stress, kPa.
@@ -119,9 +119,9 @@ pub(crate) struct IncrementRow {
     pub ended_us: Option<i64>,
 }
 
-impl From<StoredIncrement> for IncrementRow {
+impl From<StoredIncrement> for IncrementView {
     fn from(i: StoredIncrement) -> Self {
-        IncrementRow {
+        IncrementView {
             seq: i.seq,
             stress_kpa: i.stress_kpa,
             from_kpa: i.from_kpa,
@@ -138,12 +138,12 @@ impl From<StoredIncrement> for IncrementRow {
 }
 
 /// The increments of test `test_id` in order.
-pub(crate) fn increments(conn: &Reader, test_id: i64) -> Result<Vec<IncrementRow>, ApiError> {
-    Ok(read::increments(conn, test_id)?.into_iter().map(IncrementRow::from).collect())
+pub(crate) fn increments(conn: &Reader, test_id: i64) -> Result<Vec<IncrementView>, ApiError> {
+    Ok(read::increments(conn, test_id)?.into_iter().map(IncrementView::from).collect())
 }
 
 /// Increment `seq` of a test, or 404.
-pub(crate) fn increment(conn: &Reader, test_id: i64, seq: i64) -> Result<IncrementRow, ApiError> {
+pub(crate) fn increment(conn: &Reader, test_id: i64, seq: i64) -> Result<IncrementView, ApiError> {
     increments(conn, test_id)?
         .into_iter()
         .find(|i| i.seq == seq)
@@ -186,7 +186,7 @@ fn stored_curve(
     conn: &Reader,
     caches: &Caches,
     test: &TestRow,
-    inc: &IncrementRow,
+    inc: &IncrementView,
     stamp: &IncrementStamp,
     now_us: i64,
 ) -> Result<Option<StoredCurve>, ApiError> {
@@ -201,7 +201,7 @@ fn stored_curve(
 pub(crate) struct IncrementSummary {
     /// The stored row.
     #[serde(flatten)]
-    pub row: IncrementRow,
+    pub row: IncrementView,
     /// Readings in the increment.
     pub reading_count: usize,
     /// Cumulative compression since the test's zero at the end of the increment, mm (corrected for
@@ -237,7 +237,7 @@ pub(crate) struct IncrementSummary {
 
 /// A whole test reduced: the increments' summaries and the e–log σ′ curve.
 #[derive(Clone, Debug, Serialize)]
-pub(crate) struct TestReduction {
+pub(crate) struct TestSummary {
     /// The test.
     pub test: TestRow,
     /// Every increment.
@@ -280,7 +280,7 @@ pub(crate) fn reduce_test(
     id: i64,
     now_us: i64,
     frames: &[Frame],
-) -> Result<TestReduction, ApiError> {
+) -> Result<TestSummary, ApiError> {
     let test = test(conn, id)?;
     let zero = zero_reading(conn, &test)?;
     let calibration = match frames.iter().find(|f| f.id == test.frame).and_then(|f| f.deflection.as_ref()) {
@@ -362,7 +362,7 @@ pub(crate) fn reduce_test(
         Ok(r) => (Some(r), None),
         Err(why) => (None, Some(why.to_string())),
     };
-    Ok(TestReduction {
+    Ok(TestSummary {
         test,
         increments: summaries,
         phase: reduced.phase.and_then(Result::ok),

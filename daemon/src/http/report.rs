@@ -10,9 +10,9 @@ use axum::http::header;
 use axum::response::{Html, IntoResponse};
 use axum::routing::get;
 
-use super::lab_tests::test_id;
+use super::lab_book::test_id;
 use super::overview::escape;
-use super::queries::TestReduction;
+use super::queries::TestSummary;
 use super::{ApiError, AppState};
 use crate::clock::rfc3339;
 use oedolog_core::analysis::CompressionReduction;
@@ -100,7 +100,7 @@ pub(crate) fn e_log_svg(c: &CompressionReduction) -> String {
     svg
 }
 
-pub(crate) fn render(r: &TestReduction, now_us: i64) -> String {
+pub(crate) fn render(r: &TestSummary, now_us: i64) -> String {
     let t = &r.test;
     let mut html = String::new();
     let _ = write!(

@@ -64,7 +64,7 @@ pub struct CurrentIncrement {
 pub struct OpenTest {
     /// `tests.id`.
     pub test_id: i64,
-    /// Specimen reference.
+    /// SpecimenRecord reference.
     pub specimen: String,
     /// Where it stands.
     pub state: TestState,
@@ -124,7 +124,7 @@ pub fn open_test(reader: &Reader, frame_key: i64) -> Result<Option<OpenTest>, St
 pub struct NewTest {
     /// `frames.key` of its frame.
     pub frame_key: i64,
-    /// Specimen reference.
+    /// SpecimenRecord reference.
     pub specimen: String,
     /// Soil description, borehole, depth.
     pub description: String,
@@ -363,7 +363,7 @@ pub fn report_load(
 pub struct ImportedTest {
     /// `frames.key` of its frame.
     pub frame_key: i64,
-    /// Specimen reference.
+    /// SpecimenRecord reference.
     pub specimen: String,
     /// Soil description.
     pub description: String,

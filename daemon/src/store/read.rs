@@ -17,7 +17,7 @@ pub struct StoredTest {
     pub frame: String,
     /// `frames.key`.
     pub frame_key: i64,
-    /// Specimen reference.
+    /// SpecimenRecord reference.
     pub specimen: String,
     /// Soil description, borehole, depth.
     pub description: String,

@@ -8,7 +8,7 @@ use std::sync::Arc;
 
 use oedolog_sim::device::SimFrame;
 
-use super::{FrameWatch, Note, Phase, Specimen, WatchParams, WatchStatus};
+use super::{Finding, FrameWatch, Phase, SpecimenSize, WatchParams, WatchStatus};
 use crate::clock::{Clock, ClockStep, ManualClock, SteadyClock, rfc3339};
 
 /// 2025-10-26T00:00:00Z: the test begins an hour before summer time ends in the EU.
@@ -111,7 +111,7 @@ struct Rig {
 
 impl Rig {
     /// One poll at true time `t_s`; notes what the watch did with a reading stamped back.
-    fn poll(&mut self, t_s: f64) -> Vec<Note> {
+    fn poll(&mut self, t_s: f64) -> Vec<Finding> {
         let at_us = self.timeline.stamp(t_s);
         let s = self.frame.sample(t_s);
         let watch = &mut self.watch;
@@ -147,7 +147,7 @@ fn run(steps: &[Step], stamps: Stamps) -> Run {
         Rig { frame, timeline: Timeline::new(steps, stamps), watch: FrameWatch::new(WatchParams::default()), out };
     let mut t = 0.0;
     rig.poll(t);
-    rig.watch.start_test(Specimen { area_mm2: specimen.area_mm2(), height_mm: specimen.height_mm }, 6.25);
+    rig.watch.start_test(SpecimenSize { area_mm2: specimen.area_mm2(), height_mm: specimen.height_mm }, 6.25);
     while t + STEADY_S <= ARM_S {
         t += STEADY_S;
         rig.poll(t);
@@ -162,8 +162,8 @@ fn run(steps: &[Step], stamps: Stamps) -> Run {
         t += if t < fast_until { FAST_S } else { STEADY_S };
         for note in rig.poll(t) {
             match note {
-                Note::Onset { .. } => fast_until = t + FAST_WINDOW_S,
-                Note::Ready { .. } => rig.out.ready_at = Some(rig.out.stamps.len() - 1),
+                Finding::Onset { .. } => fast_until = t + FAST_WINDOW_S,
+                Finding::Ready { .. } => rig.out.ready_at = Some(rig.out.stamps.len() - 1),
                 _ => {}
             }
         }

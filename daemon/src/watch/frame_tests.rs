@@ -32,7 +32,7 @@ fn run(index: usize, seed: u64, params: WatchParams, stresses: &[f64]) -> Outcom
         watch.sample((t * 1e6) as i64, Some(s.displacement_mm), Some(s.load_n / 1000.0))
     };
     poll(&mut watch, &mut frame, t);
-    watch.start_test(Specimen { area_mm2: specimen.area_mm2(), height_mm: specimen.height_mm }, 6.25);
+    watch.start_test(SpecimenSize { area_mm2: specimen.area_mm2(), height_mm: specimen.height_mm }, 6.25);
     let mut out = Outcome { ready_over_t100: vec![], fallback_over_t100: vec![], onset_errors_s: vec![] };
     let mut dice = seed.wrapping_mul(0x9E37_79B9_7F4A_7C15) | 1;
     let mut roll = move |n: f64| {
@@ -58,11 +58,11 @@ fn run(index: usize, seed: u64, params: WatchParams, stresses: &[f64]) -> Outcom
             t += if t < fast_until { FAST_S } else { STEADY_S };
             for note in poll(&mut watch, &mut frame, t) {
                 match note {
-                    Note::Onset { onset_us, .. } => {
+                    Finding::Onset { onset_us, .. } => {
                         onset_found = Some(onset_us as f64 / 1e6);
                         fast_until = t + FAST_WINDOW_S;
                     }
-                    Note::Ready { at_us, how, .. } => {
+                    Finding::Ready { at_us, how, .. } => {
                         fell_back = how.contains("elapsed");
                         eprintln!(
                             "frame {index} {stress:>6} kPa: ready at {:.2}·t100 (t100 {:.0} s, primary {:.3} mm): {how}",
@@ -161,15 +161,15 @@ fn fixed_duration_rule_declares_ready_at_the_hold() {
     let params = WatchParams { rule: EopRule::FixedDuration { hold_s: 3600 }, ..WatchParams::default() };
     let mut watch = FrameWatch::new(params);
     watch.sample(0, Some(1.0), Some(0.02));
-    watch.start_test(Specimen { area_mm2: 3000.0, height_mm: 20.0 }, 6.25);
+    watch.start_test(SpecimenSize { area_mm2: 3000.0, height_mm: 20.0 }, 6.25);
     watch.arm(12.5, 1_000_000).unwrap();
     let notes = watch.sample(2_000_000, Some(1.05), Some(0.0375));
-    assert!(matches!(notes[..], [Note::Onset { onset_us: 1_000_000, .. }]), "{notes:?}");
+    assert!(matches!(notes[..], [Finding::Onset { onset_us: 1_000_000, .. }]), "{notes:?}");
     let mut ready = None;
     for k in 1..=80 {
         let at = 2_000_000 + k * 60_000_000;
         for note in watch.sample(at, Some(1.1), Some(0.0375)) {
-            if let Note::Ready { at_us, .. } = note {
+            if let Finding::Ready { at_us, .. } = note {
                 ready = Some(at_us);
             }
         }
@@ -181,7 +181,7 @@ fn fixed_duration_rule_declares_ready_at_the_hold() {
 fn an_operator_who_reports_late_still_gets_the_true_onset() {
     let mut watch = FrameWatch::new(WatchParams::default());
     watch.sample(0, Some(1.0), Some(0.02));
-    watch.start_test(Specimen { area_mm2: 3000.0, height_mm: 20.0 }, 6.25);
+    watch.start_test(SpecimenSize { area_mm2: 3000.0, height_mm: 20.0 }, 6.25);
     // Load goes on between 10 s and 11 s; the operator arms at 300 s.
     for k in 1..=300 {
         let load = if k > 10 { 0.0375 } else { 0.01875 };
@@ -189,7 +189,7 @@ fn an_operator_who_reports_late_still_gets_the_true_onset() {
         watch.sample(k * 1_000_000, Some(d), Some(load));
     }
     let notes = watch.arm(12.5, 301_000_000).unwrap();
-    assert_eq!(notes, vec![Note::Onset { seq: 1, onset_us: 10_500_000, source: OnsetSource::LoadStep }]);
+    assert_eq!(notes, vec![Finding::Onset { seq: 1, onset_us: 10_500_000, source: OnsetSource::LoadStep }]);
     assert_eq!(watch.phase(), Phase::Primary);
 }
 
@@ -201,7 +201,7 @@ fn a_gauge_reseat_is_proposed_and_nothing_is_reduced_across_it_until_confirmed()
     let mut t = 0.0;
     let s = frame.sample(t);
     watch.sample(0, Some(s.displacement_mm), Some(s.load_n / 1000.0));
-    watch.start_test(Specimen { area_mm2: specimen.area_mm2(), height_mm: specimen.height_mm }, 6.25);
+    watch.start_test(SpecimenSize { area_mm2: specimen.area_mm2(), height_mm: specimen.height_mm }, 6.25);
     watch.arm(200.0, 1_000_000).unwrap();
     frame.apply_stress(200.0, 5.0).unwrap();
     let mut proposed = None;
@@ -213,7 +213,7 @@ fn a_gauge_reseat_is_proposed_and_nothing_is_reduced_across_it_until_confirmed()
         }
         let s = frame.sample(t);
         for note in watch.sample((t * 1e6) as i64, Some(s.displacement_mm), Some(s.load_n / 1000.0)) {
-            if let Note::ReseatProposed { jump_mm, .. } = note {
+            if let Finding::ReseatProposed { jump_mm, .. } = note {
                 proposed = Some(jump_mm);
             }
         }
@@ -236,7 +236,7 @@ fn a_gauge_reseat_is_proposed_and_nothing_is_reduced_across_it_until_confirmed()
 fn operator_actions_outside_their_states_are_refused() {
     let mut watch = FrameWatch::new(WatchParams::default());
     assert!(matches!(watch.arm(50.0, 0), Err(WatchError::State("idle", _))));
-    watch.start_test(Specimen { area_mm2: 3000.0, height_mm: 20.0 }, 6.25);
+    watch.start_test(SpecimenSize { area_mm2: 3000.0, height_mm: 20.0 }, 6.25);
     assert!(matches!(watch.arm(f64::NAN, 0), Err(WatchError::Value { field: "stress_kpa", .. })));
     assert!(matches!(watch.arm(6.25, 0), Err(WatchError::Value { .. })), "the stress already on");
     watch.arm(12.5, 0).unwrap();

@@ -10,7 +10,9 @@ use std::time::Duration;
 use crate::clock::Clock;
 use crate::lab::{self, Lab};
 use crate::store::{ChannelKind, Event, EventKind, Reader, Reading, StoreError, Writer, read};
-use oedolog_core::watch::{FrameWatch, Note, OnsetSource, Phase, Specimen, WatchError, WatchParams, WatchStatus};
+use oedolog_core::watch::{
+    Finding, FrameWatch, OnsetSource, Phase, SpecimenSize, WatchError, WatchParams, WatchStatus,
+};
 
 /// Why an operator action through the hub failed.
 #[derive(Debug, thiserror::Error)]
@@ -58,7 +60,7 @@ impl Hub {
         for (i, test) in lab.snapshot().into_iter().enumerate() {
             let mut watch = FrameWatch::new(params.clone());
             if let Some(t) = test {
-                let specimen = Specimen { area_mm2: areas_mm2[i], height_mm: t.height_mm };
+                let specimen = SpecimenSize { area_mm2: areas_mm2[i], height_mm: t.height_mm };
                 // The zero reading: the first displacement from the start (none if it cannot be read).
                 let zero = read::displacement_from(conn, lab.key(i), t.started_us).ok().flatten();
                 // From just before t0; for an increment still armed, from the onset look-back before
@@ -153,29 +155,29 @@ impl Hub {
         self.act(index, notes);
     }
 
-    fn act(&self, index: usize, notes: Vec<Note>) {
+    fn act(&self, index: usize, notes: Vec<Finding>) {
         let key = self.lab.key(index);
         for note in notes {
             let result = match note {
-                Note::Onset { seq, onset_us, source } => {
+                Finding::Onset { seq, onset_us, source } => {
                     let how = if source == OnsetSource::LoadStep { "the load-cell step" } else { "the first sharp deformation" };
                     self.lab.set_onset(index, onset_us, source, format!("increment {seq}: load on at t0 found from {how}"))
                 }
-                Note::Ready { seq, at_us, how } => {
+                Finding::Ready { seq, at_us, how } => {
                     self.lab.set_ready(index, at_us, format!("increment {seq}: end of primary — ready for the next load ({how})"))
                 }
-                Note::LoadOff { measured_kn, expected_kn } => self.event(
+                Finding::LoadOff { measured_kn, expected_kn } => self.event(
                     key,
                     EventKind::LoadOff,
                     format!("load {measured_kn:.4} kN differs from the expected {expected_kn:.4} kN by more than ±0.5 %"),
                 ),
-                Note::LoadBack => self.event(key, EventKind::LoadBack, "load back within ±0.5 % of the expected force".into()),
-                Note::ReseatProposed { at_us, jump_mm } => self.event(
+                Finding::LoadBack => self.event(key, EventKind::LoadBack, "load back within ±0.5 % of the expected force".into()),
+                Finding::ReseatProposed { at_us, jump_mm } => self.event(
                     key,
                     EventKind::ReseatProposed,
                     format!("gauge jumped {jump_mm:+.3} mm at {}: a re-seat? Confirm to stitch the curve; nothing is reduced across it until then", crate::clock::rfc3339(at_us)),
                 ),
-                Note::UnarmedLoadChange { from_kn, to_kn, .. } => self.event(
+                Finding::UnarmedLoadChange { from_kn, to_kn, .. } => self.event(
                     key,
                     EventKind::LoadChangeUnarmed,
                     format!("load changed from {from_kn:.4} to {to_kn:.4} kN with no increment armed"),
@@ -203,14 +205,14 @@ impl Hub {
     pub fn start_test(
         &self,
         index: usize,
-        specimen: lab::Specimen,
+        specimen: lab::SpecimenRecord,
         seating_kpa: f64,
         actor: Option<String>,
     ) -> Result<lab::RunningTest, HubError> {
         let area = *self.areas_mm2.get(index).ok_or(HubError::NoFrame)?;
         let height_mm = specimen.height_mm;
         let test = self.lab.start_test(index, specimen, seating_kpa, self.clock.now_us(), actor)?;
-        self.lock().watches[index].start_test(Specimen { area_mm2: area, height_mm }, seating_kpa);
+        self.lock().watches[index].start_test(SpecimenSize { area_mm2: area, height_mm }, seating_kpa);
         Ok(test)
     }
 

@@ -4,7 +4,7 @@ use std::sync::Arc;
 
 use super::{Hub, WatchParams};
 use crate::clock::{Clock, ManualClock};
-use crate::lab::{Lab, Specimen};
+use crate::lab::{Lab, SpecimenRecord};
 use crate::store::{self, ChannelKind, Reading, TestState, Writer, WriterPolicy};
 
 const T0: i64 = 1_790_000_000_000_000;
@@ -28,7 +28,7 @@ fn an_increment_armed_when_the_daemon_stopped_finds_its_onset_from_the_stored_re
     let lab = Lab::resume(&reader, vec![key], writer.clone(), T0).unwrap();
     let hub = Hub::resume(&reader, lab.clone(), writer.clone(), clock.clone(), vec![AREA_MM2], WatchParams::default())
         .unwrap();
-    let specimen = Specimen {
+    let specimen = SpecimenRecord {
         specimen: "GI-417-T1".into(),
         description: "demo".into(),
         height_mm: 20.0,

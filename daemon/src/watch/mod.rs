@@ -12,5 +12,5 @@ mod hub_tests;
 
 pub use hub::{Hub, HubError};
 pub use oedolog_core::watch::{
-    EopRule, FrameWatch, Note, OnsetSource, Phase, Reseat, Specimen, WatchError, WatchParams, WatchStatus,
+    EopRule, Finding, FrameWatch, OnsetSource, Phase, Reseat, SpecimenSize, WatchError, WatchParams, WatchStatus,
 };

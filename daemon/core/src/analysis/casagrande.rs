@@ -75,7 +75,7 @@ pub struct InflectionTangent {
     pub(crate) t_min: f64,
     /// Curve value there.
     pub(crate) d_mm: f64,
-    /// The tangent, in (log10 t [log10 min], d [mm]); its slope is mm per log cycle.
+    /// The tangent, in (log10 t in log10 min, d in mm); its slope is mm per log cycle.
     pub line: Line,
 }
 

@@ -65,7 +65,7 @@ pub struct StraightFit {
     pub(crate) t_end_min: f64,
     /// Nodes fitted (a single stray node inside the span is left out).
     pub(crate) points: usize,
-    /// The line, in (√t [√min], d [mm]).
+    /// The line, in (√t in √min, d in mm).
     pub line: Line,
     /// True when the U ≤ `max_fit_degree` limit, not the residual rule, ended the fit.
     pub(crate) capped_by_degree: bool,

@@ -1,6 +1,6 @@
 //! Tests on a frame: start one with its specimen data (`POST /api/frames/{id}/tests`), finish the running
 //! one, read a test with its increments, and its e–log σ′ reduction (`GET /api/tests/{id}/compression`).
-//! Specimen data is checked here, in full, before anything is stored.
+//! SpecimenRecord data is checked here, in full, before anything is stored.
 
 use axum::extract::{Path, State};
 use axum::http::StatusCode;
@@ -11,16 +11,16 @@ use serde::{Deserialize, Serialize};
 
 use super::auth::{Caller, actor};
 use super::body::{JsonBody, OptionalJsonBody};
-use super::queries::{self, IncrementRow, TestRow};
+use super::queries::{self, IncrementView, TestRow};
 use super::{ApiError, AppState};
-use crate::lab::{RunningTest, Specimen};
+use crate::lab::{RunningTest, SpecimenRecord};
 use crate::store::lab_book;
 
 /// `POST /api/frames/{id}/tests`.
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub(crate) struct NewTest {
-    /// Specimen / sample reference (1–100 characters).
+    /// SpecimenRecord / sample reference (1–100 characters).
     pub specimen: String,
     /// Soil description, borehole, depth (up to 500 characters).
     #[serde(default)]
@@ -130,7 +130,7 @@ async fn start(
                     t.test_id, t.specimen
                 )));
             }
-            let specimen = Specimen {
+            let specimen = SpecimenRecord {
                 specimen: new.specimen.trim().to_string(),
                 description: new.description.trim().to_string(),
                 height_mm: new.height_mm,
@@ -195,7 +195,7 @@ async fn finish(
 #[derive(Debug, Serialize)]
 struct TestDetail {
     test: TestRow,
-    increments: Vec<IncrementRow>,
+    increments: Vec<IncrementView>,
 }
 
 pub(crate) fn test_id(text: &str) -> Result<i64, ApiError> {
@@ -216,7 +216,7 @@ async fn get_test(State(state): State<AppState>, Path(id): Path<String>) -> Resu
 async fn compression(
     State(state): State<AppState>,
     Path(id): Path<String>,
-) -> Result<Json<queries::TestReduction>, ApiError> {
+) -> Result<Json<queries::TestSummary>, ApiError> {
     let id = test_id(&id)?;
     Ok(Json(state.reduce_test(id).await?))
 }
