@@ -14,6 +14,11 @@ pub fn increment(path: &Path, drainage_path_mm: f64) -> Result<IncrementReport, 
     offline::analyze_increment(path, drainage_path_mm, &mut read)
 }
 
+/// A time-curve CSV (`time_min,displacement_mm`), read and checked as `analyze increment` reads it.
+pub fn time_curve(path: &Path) -> Result<Vec<(f64, f64)>, OfflineError> {
+    offline::read_readings(path, &mut read)
+}
+
 /// `oedolog analyze test FILE.toml`.
 pub fn test(path: &Path) -> Result<TestReport, OfflineError> {
     offline::analyze_test(path, &mut read)

@@ -11,7 +11,9 @@ use std::time::Duration;
 
 use oedolog_protocol::registers::{RegisterMap, RegisterTable, ValueType, WordOrder};
 use oedolog_sim::device::Simulation;
+use oedolog_sim::physics::IncrementTruth;
 use oedolog_sim::server::{Shared, run_schedules, serve_tcp};
+use rand::SeedableRng as _;
 
 use crate::clock::{Clock, ScaledClock, SystemClock};
 use crate::config::{
@@ -19,7 +21,7 @@ use crate::config::{
 };
 use crate::lab::SpecimenRecord;
 use crate::service::{self, Options, Running, StartError};
-use crate::watch::HubError;
+use crate::watch::{HubError, Phase};
 
 /// Demo settings from the command line.
 #[derive(Clone, Debug)]
@@ -38,6 +40,8 @@ pub struct DemoOptions {
     pub notify: crate::config::NotifyConfig,
     /// `[alarms]` of the `--config` file (else the defaults).
     pub alarms: oedolog_core::alarms::AlarmRules,
+    /// Where to write the simulator's answer key (one JSON line per load step), if anywhere.
+    pub truth: Option<PathBuf>,
 }
 
 /// The default database of the demo: `$XDG_DATA_HOME/oedolog/demo.sqlite` (or `~/.local/share/…`), else
@@ -155,6 +159,14 @@ pub enum DemoError {
         /// Why.
         source: HubError,
     },
+    /// The answer key could not be created.
+    #[error("--truth {}: {source}", .path.display())]
+    Truth {
+        /// The file.
+        path: PathBuf,
+        /// Why.
+        source: std::io::Error,
+    },
     /// A set-up task stopped.
     #[error("the demo's set-up task stopped: {0}")]
     Task(#[from] tokio::task::JoinError),
@@ -203,42 +215,145 @@ pub async fn start(options: DemoOptions) -> Result<(Running, Arc<dyn Clock>), De
         .await?
         .map_err(|source| DemoError::Test { frame: i, source })?;
     }
-    let shared_for_arming = shared.clone();
-    tokio::spawn(run_schedules(shared, Duration::from_millis(50), |_, _, _| {}));
-    // The stand-in technician enters each load shortly before putting it on, as the dashboard asks; the
-    // daemon then finds t0 itself from the load-cell step in the readings.
-    let hub = running.hub.clone();
-    let sim = shared_for_arming;
-    let sim_clock = SimTime(scaled.clone());
-    tokio::spawn(async move {
-        use oedolog_sim::clock::Clock as _;
-        let mut armed: std::collections::HashSet<(u8, u64)> = std::collections::HashSet::new();
-        let mut tick = tokio::time::interval(Duration::from_millis(100));
-        loop {
-            tick.tick().await;
-            let now_s = sim_clock.now_s();
-            let due: Vec<(usize, u8, f64, f64)> = sim.with(|s| {
-                s.frames()
-                    .iter()
-                    .enumerate()
-                    .filter_map(|(i, f)| f.next_load().map(|(at, kpa)| (i, f.unit().0, at, kpa)))
-                    .collect()
-            });
-            for (index, unit, due_s, stress_kpa) in due {
-                // A simulated minute or two ahead of the load.
-                if due_s - now_s > 120.0 || !armed.insert((unit, due_s.to_bits())) {
-                    continue;
-                }
-                let hub = hub.clone();
-                match tokio::task::spawn_blocking(move || hub.arm(index, stress_kpa, Some("demo technician".into())))
-                    .await
-                {
-                    Ok(Err(error)) => tracing::warn!("demo: increment not armed: {error}"),
-                    Err(error) => tracing::error!("demo: {error}"),
-                    Ok(Ok(())) => {}
-                }
+    // The frames follow the daemon, as a lab does: a load goes on only when the stand-in technician puts
+    // it on (run_schedules still advances the simulated instruments' clock-driven parts).
+    shared.with(|s| {
+        for unit in 1..=options.frames {
+            if let Some(f) = s.frame_mut(oedolog_protocol::UnitId(unit)) {
+                f.follow();
             }
         }
     });
+    let truth = match &options.truth {
+        Some(path) => Some(TruthFile::create(path).map_err(|source| DemoError::Truth { path: path.clone(), source })?),
+        None => None,
+    };
+    tokio::spawn(run_schedules(shared.clone(), Duration::from_millis(50), |_, _, _| {}));
+    let technician = Technician {
+        hub: running.hub.clone(),
+        lab: running.lab.clone(),
+        sim: shared,
+        clock: SimTime(scaled.clone()),
+        start_us,
+        truth,
+        benches: vec![Bench::default(); usize::from(options.frames)],
+        rng: rand::rngs::SmallRng::seed_from_u64(0x0ed0),
+    };
+    tokio::spawn(technician.run());
     Ok((running, clock))
+}
+
+/// The demo's answer key: one JSON line per load step the simulator applies (`--truth FILE`).
+struct TruthFile(std::io::BufWriter<std::fs::File>);
+
+impl TruthFile {
+    fn create(path: &std::path::Path) -> std::io::Result<TruthFile> {
+        Ok(TruthFile(std::io::BufWriter::new(std::fs::File::create(path)?)))
+    }
+
+    /// Writes and flushes one line: `frame`, `seq`, `stress_kpa`, `onset_at` (RFC 3339 on the daemon's
+    /// clock), `cv_mm2_per_min`, `t50_min`, `t90_min`, `t100_min` (elapsed from the onset).
+    fn write(&mut self, frame: &str, seq: i64, truth: &IncrementTruth, start_us: i64) -> std::io::Result<()> {
+        use std::io::Write as _;
+        let line = serde_json::json!({
+            "frame": frame,
+            "seq": seq,
+            "stress_kpa": truth.to_kpa,
+            "onset_at": crate::clock::rfc3339(start_us + (truth.onset_s * 1e6).round() as i64),
+            "cv_mm2_per_min": truth.cv_mm2_per_min,
+            "t50_min": truth.t50_s / 60.0,
+            "t90_min": truth.t90_s / 60.0,
+            "t100_min": truth.t100_s / 60.0,
+        });
+        writeln!(self.0, "{line}")?;
+        self.0.flush()
+    }
+}
+
+/// What the technician has in mind for one frame: when the next load goes on, and whether it is armed.
+#[derive(Clone, Copy, Debug, Default)]
+struct Bench {
+    /// Simulated time the next load goes on, s.
+    put_on_at_s: Option<f64>,
+    /// The load is entered on the dashboard (armed) and waits to be put on.
+    armed: bool,
+}
+
+/// The demo's stand-in technician. It follows the daemon: the first load goes on when the frame's seating
+/// time is up, every later one a few (varied) simulated minutes after the daemon says `ready`. A load is
+/// entered (armed) a simulated minute before it goes on, as the dashboard asks; the daemon then finds t0
+/// itself from the load-cell step. It acts on simulated frames only, never on a real one.
+struct Technician {
+    hub: crate::watch::Hub,
+    lab: crate::lab::Lab,
+    sim: Arc<Shared>,
+    clock: SimTime,
+    start_us: i64,
+    truth: Option<TruthFile>,
+    benches: Vec<Bench>,
+    rng: rand::rngs::SmallRng,
+}
+
+/// The technician comes to a ready frame between these many simulated minutes after it said so.
+const REACTION_MIN: std::ops::Range<f64> = 2.0..25.0;
+/// A load is entered this long (simulated) before it goes on, s.
+const ARM_AHEAD_S: f64 = 60.0;
+
+impl Technician {
+    async fn run(mut self) {
+        use oedolog_sim::clock::Clock as _;
+        let mut tick = tokio::time::interval(Duration::from_millis(100));
+        loop {
+            tick.tick().await;
+            let now_s = self.clock.now_s();
+            let hub = self.hub.clone();
+            let Ok(status) = tokio::task::spawn_blocking(move || hub.status()).await else { return };
+            for index in 0..self.benches.len() {
+                self.visit(index, now_s, status[index].0).await;
+            }
+        }
+    }
+
+    async fn visit(&mut self, index: usize, now_s: f64, phase: Phase) {
+        use rand::Rng as _;
+        let unit = oedolog_protocol::UnitId(u8::try_from(index + 1).unwrap_or(u8::MAX));
+        let Some((first_due_s, stress_kpa)) = self.sim.with(|s| s.frame(unit).and_then(|f| f.upcoming_load())) else {
+            return; // the schedule has ended
+        };
+        let bench = self.benches[index];
+        if bench.put_on_at_s.is_none() {
+            let at = match (phase, first_due_s) {
+                (Phase::Seating, Some(due)) => due.max(now_s),
+                (Phase::Ready, _) => now_s + 60.0 * self.rng.random_range(REACTION_MIN),
+                _ => return,
+            };
+            self.benches[index].put_on_at_s = Some(at);
+            return;
+        }
+        let at = bench.put_on_at_s.unwrap_or(now_s);
+        if !bench.armed && now_s >= at - ARM_AHEAD_S {
+            let hub = self.hub.clone();
+            let armed =
+                tokio::task::spawn_blocking(move || hub.arm(index, stress_kpa, Some("demo technician".into()))).await;
+            match armed {
+                Ok(Ok(())) => self.benches[index].armed = true,
+                Ok(Err(error)) => tracing::warn!("demo: load step not armed on frame {}: {error}", index + 1),
+                Err(error) => tracing::error!("demo: {error}"),
+            }
+            return;
+        }
+        if bench.armed && now_s >= at {
+            let applied = self.sim.with(|s| {
+                let frame = s.frame_mut(unit)?;
+                frame.put_on_next_load(now_s).ok().flatten()?;
+                frame.model().current_increment()
+            });
+            self.benches[index] = Bench::default();
+            let (Some(truth), Some(file)) = (applied, self.truth.as_mut()) else { return };
+            let seq = self.lab.snapshot().get(index).and_then(|t| t.as_ref().map(|t| t.increment));
+            if let Err(error) = file.write(&format!("F{}", index + 1), seq.unwrap_or(0), &truth, self.start_us) {
+                tracing::warn!("demo: the answer key could not be written: {error}");
+            }
+        }
+    }
 }

@@ -51,6 +51,10 @@ enum Command {
         /// A configuration file whose [http], [log], [alarms] and [[notify.webhook]] tables apply to the demo.
         #[arg(long, value_name = "FILE")]
         config: Option<PathBuf>,
+        /// Write the simulator's answer key to FILE: one JSON line per load step it applies (frame, seq,
+        /// stress_kpa, onset_at, cv_mm2_per_min, t50_min, t90_min, t100_min).
+        #[arg(long, value_name = "FILE")]
+        truth: Option<PathBuf>,
     },
     /// Check a configuration file: a summary, or every problem with its line, column and field.
     CheckConfig {
@@ -67,6 +71,27 @@ enum Command {
         /// The database file itself.
         #[arg(long, value_name = "PATH")]
         db: Option<PathBuf>,
+    },
+    /// Run a recorded time curve through the live watch at its own timestamps and print the timeline: the
+    /// onset, the ETA of ready as it evolved, and when ready would have come and why.
+    Replay {
+        /// A CSV with the header `time_min,displacement_mm` (minutes since the load went on, mm).
+        file: PathBuf,
+        /// Poll period, s: replay only the readings the daemon would have taken (default: every reading).
+        #[arg(long, value_name = "N")]
+        poll_s: Option<f64>,
+        /// Specimen height at the onset, mm (the drainage path is half the height at 50 % consolidation).
+        #[arg(long, value_name = "MM", default_value_t = 20.0)]
+        height_mm: f64,
+        /// Stress before the load step, kPa.
+        #[arg(long, value_name = "KPA", default_value_t = 50.0)]
+        from_kpa: f64,
+        /// Stress of the load step, kPa.
+        #[arg(long, value_name = "KPA", default_value_t = 100.0)]
+        stress_kpa: f64,
+        /// Print one JSON object instead of the timeline.
+        #[arg(long)]
+        json: bool,
     },
     /// Reduce files logged by hand or on other equipment: one increment's time curve, or a whole test.
     Analyze {
@@ -148,7 +173,7 @@ async fn run(command: Command) -> anyhow::Result<()> {
             running.stop(why);
             Ok(())
         }
-        Command::Demo { frames, speed, listen, db, config } => {
+        Command::Demo { frames, speed, listen, db, config, truth } => {
             if !(speed.is_finite() && speed > 0.0 && speed <= 100_000.0) {
                 bail!("--speed {speed}: allowed a number of simulated seconds per real second, 0 < speed ≤ 100000");
             }
@@ -169,10 +194,11 @@ async fn run(command: Command) -> anyhow::Result<()> {
                 "demo: {frames} simulated frames, clock {speed}× real time (simulated), database {}",
                 db.display()
             );
-            let (running, _clock) = demo::start(demo::DemoOptions { frames, speed, listen, db, users, notify, alarms })
-                .await
-                .map_err(|e| anyhow::anyhow!("{e}"))
-                .context("starting the demo")?;
+            let (running, _clock) =
+                demo::start(demo::DemoOptions { frames, speed, listen, db, users, notify, alarms, truth })
+                    .await
+                    .map_err(|e| anyhow::anyhow!("{e}"))
+                    .context("starting the demo")?;
             println!("dashboard at http://{}/", running.http_addr);
             let why = shutdown_signal().await;
             running.stop(why);
@@ -200,6 +226,43 @@ async fn run(command: Command) -> anyhow::Result<()> {
             store::backup(&source, &dest)
                 .with_context(|| format!("backing up {} to {}", source.display(), dest.display()))?;
             println!("backup of {} written to {}", source.display(), dest.display());
+            Ok(())
+        }
+        Command::Replay { file, poll_s, height_mm, from_kpa, stress_kpa, json } => {
+            if let Some(p) = poll_s
+                && !(p.is_finite() && p > 0.0 && p <= 86_400.0)
+            {
+                bail!("--poll-s {p}: allowed a poll period above 0 s and up to 86400 s");
+            }
+            if !(height_mm.is_finite() && (1.0..=200.0).contains(&height_mm)) {
+                bail!("--height-mm {height_mm}: allowed 1 to 200 mm");
+            }
+            for (name, v) in [("--from-kpa", from_kpa), ("--stress-kpa", stress_kpa)] {
+                if !(v.is_finite() && (0.0..=100_000.0).contains(&v)) {
+                    bail!("{name} {v}: allowed 0 to 100000 kPa");
+                }
+            }
+            let readings = oedolog::analyze::time_curve(&file)?;
+            let settings = oedolog_core::replay::ReplaySettings { height_mm, from_kpa, stress_kpa, poll_s };
+            let r = oedolog_core::replay::replay(&readings, &settings, oedolog::watch::WatchParams::default());
+            if json {
+                println!("{}", serde_json::to_string(&r)?);
+            } else {
+                println!("{}: {} readings replayed", file.display(), r.readings_used);
+                for e in &r.timeline {
+                    println!("{:>10.2} min  {}", e.t_min, e.message);
+                }
+                let g = |v: Option<f64>| v.map_or("—".to_string(), |v| format!("{v:.3}"));
+                println!(
+                    "t50 {} min (log t) · t90 {} min (√t) · t100 {} min (log t)",
+                    g(r.t50_min),
+                    g(r.t90_min),
+                    g(r.t100_min)
+                );
+                println!(
+                    "Proposals for a qualified engineer to review; the governing standard decides when a load step ends."
+                );
+            }
             Ok(())
         }
         Command::Analyze { what } => {

@@ -52,6 +52,8 @@ pub struct SimFrame {
     rng: SmallRng,
     /// Loads the schedule applied that nobody has collected yet: (onset, stress).
     applied: Vec<(f64, f64)>,
+    /// The schedule only says what comes next; loads go on by [`SimFrame::put_on_next_load`].
+    following: bool,
 }
 
 /// The latest sample of a frame's instruments, in engineering units (what the registers hold).
@@ -89,6 +91,7 @@ impl SimFrame {
             unit,
             model,
             schedule: automatic.then_some(schedule),
+            following: false,
             gauge: Gauge::standard(),
             load_cell: LoadCell::standard(),
             temperature,
@@ -122,7 +125,7 @@ impl SimFrame {
     /// applied wait in [`SimFrame::take_applied`] until collected.
     pub fn advance(&mut self, at_s: f64) {
         let applied = &mut self.applied;
-        let Some(schedule) = self.schedule.as_mut() else { return };
+        let Some(schedule) = self.schedule.as_mut().filter(|_| !self.following) else { return };
         while let Some(due_s) = schedule.due_at_s(&self.model) {
             if due_s > at_s {
                 break;
@@ -140,6 +143,29 @@ impl SimFrame {
         let schedule = self.schedule.as_ref()?;
         let due_s = schedule.due_at_s(&self.model)?;
         Some((due_s, *schedule.steps_kpa().get(schedule.next_step())?))
+    }
+
+    /// Stops the schedule from moving on by itself: from now on its steps go on only when someone calls
+    /// [`SimFrame::put_on_next_load`] (the demo's technician does when the daemon says `ready`).
+    pub fn follow(&mut self) {
+        self.following = true;
+    }
+
+    /// The next step of the schedule, without giving it: (the first step's due time, for the first load
+    /// only, else `None`; stress). `None` once the schedule has no step left (or there is no schedule).
+    pub fn upcoming_load(&self) -> Option<(Option<f64>, f64)> {
+        let schedule = self.schedule.as_ref()?;
+        let stress_kpa = *schedule.steps_kpa().get(schedule.next_step())?;
+        Some(((schedule.next_step() == 0).then_some(schedule.start_at_s()), stress_kpa))
+    }
+
+    /// Puts the schedule's next step on now, at `at_s`; returns its stress, `Ok(None)` when the schedule
+    /// has ended.
+    pub fn put_on_next_load(&mut self, at_s: f64) -> Result<Option<f64>, ModelError> {
+        let Some(stress_kpa) = self.schedule.as_mut().and_then(AutoSchedule::take_next) else { return Ok(None) };
+        self.model.apply_stress(stress_kpa, at_s)?;
+        self.applied.push((at_s, stress_kpa));
+        Ok(Some(stress_kpa))
     }
 
     /// The loads the schedule applied since the last call: (onset on the simulated timeline, stress).
@@ -398,6 +424,25 @@ impl Simulation {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_following_frame_waits_for_its_technician_and_then_takes_the_schedule_in_order() {
+        let mut frame = SimFrame::demo(0, 0.0, true, 3).unwrap();
+        frame.follow();
+        let (first_due, first) = frame.upcoming_load().unwrap();
+        let first_due = first_due.expect("the first step has a due time");
+        frame.advance(first_due + 86_400.0);
+        assert!(frame.take_applied().is_empty(), "nothing goes on by itself");
+        assert!(frame.model().current_increment().is_none());
+        assert_eq!(frame.put_on_next_load(first_due + 100.0).unwrap(), Some(first));
+        let truth = frame.model().current_increment().unwrap();
+        assert_eq!((truth.onset_s, truth.to_kpa), (first_due + 100.0, first));
+        let (due, second) = frame.upcoming_load().unwrap();
+        assert_eq!(due, None, "only the first step has a due time");
+        assert!(second != first);
+        assert_eq!(frame.put_on_next_load(first_due + 5000.0).unwrap(), Some(second));
+        assert_eq!(frame.take_applied(), vec![(first_due + 100.0, first), (first_due + 5000.0, second)]);
+    }
     use oedolog_protocol::registers::{ValueType, decode_raw};
 
     fn sim() -> Simulation {

@@ -274,6 +274,14 @@ impl AutoSchedule {
         Some(stress_kpa)
     }
 
+    /// Gives the next step now, whatever its due time (a technician who follows the daemon's `ready`
+    /// rather than the hold rule); `None` once every step has been given.
+    pub fn take_next(&mut self) -> Option<f64> {
+        let stress_kpa = *self.steps_kpa.get(self.next_step)?;
+        self.next_step += 1;
+        Some(stress_kpa)
+    }
+
     /// The stress steps, kPa.
     pub fn steps_kpa(&self) -> &[f64] {
         &self.steps_kpa

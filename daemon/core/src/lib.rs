@@ -13,4 +13,5 @@ pub mod alarms;
 pub mod analysis;
 pub mod diagnostics;
 pub mod offline;
+pub mod replay;
 pub mod watch;

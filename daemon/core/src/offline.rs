@@ -253,14 +253,14 @@ fn number(text: &str, column: &'static str, limit: f64) -> Result<f64, CsvProble
 
 /// How the caller reads a file named in a command or a test file (the core does no I/O of its own; the
 /// daemon passes `std::fs::read_to_string`).
-pub(crate) type ReadFile<'a> = &'a mut dyn FnMut(&Path) -> std::io::Result<String>;
+pub type ReadFile<'a> = &'a mut dyn FnMut(&Path) -> std::io::Result<String>;
 
 fn read_text(path: &Path, read: ReadFile<'_>) -> Result<String, OfflineError> {
     read(path).map_err(|error| OfflineError::Read { path: path.to_path_buf(), error })
 }
 
 /// Reads (with `read`) and parses a time-curve CSV file.
-pub(crate) fn read_readings(path: &Path, read: ReadFile<'_>) -> Result<Vec<(f64, f64)>, OfflineError> {
+pub fn read_readings(path: &Path, read: ReadFile<'_>) -> Result<Vec<(f64, f64)>, OfflineError> {
     parse_readings(&read_text(path, read)?).map_err(|error| OfflineError::Csv { path: path.to_path_buf(), error })
 }
 
