@@ -122,6 +122,14 @@
     return null;
   };
 
+  // Seconds since the frame became ready for its next load; null when it is not ready.
+  O.readyForS = function (f) {
+    const at = f.test && f.test.ready_us;
+    const now = O.snapshotNowUs(f);
+    if (f.state !== "ready" || !at || now === null) return null;
+    return Math.max(0, (now - at) / 1e6);
+  };
+
   // Seconds until the watch expects end of primary; null when unknown.
   O.etaS = function (f) {
     const w = f.watch;

@@ -6,7 +6,10 @@
   const { el, fmt } = O;
 
   function nextLine(f) {
-    if (f.state === "ready") return "Ready for the next load";
+    if (f.state === "ready") {
+      const since = O.readyForS(f);
+      return since === null ? "Ready for the next load" : "Ready for the next load for " + fmt.span(since);
+    }
     if (f.state === "armed") return "Put the weights on, then mark the load applied";
     if (f.state === "primary") {
       const eta = O.etaS(f);

@@ -294,8 +294,9 @@ struct Technician {
     rng: rand::rngs::SmallRng,
 }
 
-/// The technician comes to a ready frame between these many simulated minutes after it said so.
-const REACTION_MIN: std::ops::Range<f64> = 2.0..25.0;
+/// The technician comes to a ready frame between these many simulated minutes after it said so (a lab
+/// rarely answers at once: the demo shows frames waiting, and how long).
+const REACTION_MIN: std::ops::Range<f64> = 5.0..180.0;
 /// A load is entered this long (simulated) before it goes on, s.
 const ARM_AHEAD_S: f64 = 60.0;
 

@@ -105,6 +105,16 @@ try {
     check(order.stale.includes("stale") && order.fresh.length === 0, "stale alarm " + JSON.stringify(order));
   });
 
+  await step("a ready frame says how long it has been ready", async () => {
+    await page.waitForFunction(() => window.oedolog.frames.some((f) => f.state === "ready" && f.test && f.test.ready_us), null, { timeout: 60000 });
+    const line = await page.evaluate(() => {
+      const f = window.oedolog.frames.find((x) => x.state === "ready" && x.test && x.test.ready_us);
+      const tile = document.querySelector('.tile[data-frame-id="' + f.id + '"] [data-role=next]');
+      return tile ? tile.textContent : null;
+    });
+    check(line && /^Ready for the next load for \d/.test(line), "ready tile says " + JSON.stringify(line));
+  });
+
   await step("overview is live without reloading", async () => {
     const first = await page.evaluate(() => window.oedolog.link.lastSnapshotAt);
     await page.waitForFunction((t) => window.oedolog.link.lastSnapshotAt > t, first, { timeout: 15000 });
