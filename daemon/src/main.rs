@@ -229,41 +229,7 @@ async fn run(command: Command) -> anyhow::Result<()> {
             Ok(())
         }
         Command::Replay { file, poll_s, height_mm, from_kpa, stress_kpa, json } => {
-            if let Some(p) = poll_s
-                && !(p.is_finite() && p > 0.0 && p <= 86_400.0)
-            {
-                bail!("--poll-s {p}: allowed a poll period above 0 s and up to 86400 s");
-            }
-            if !(height_mm.is_finite() && (1.0..=200.0).contains(&height_mm)) {
-                bail!("--height-mm {height_mm}: allowed 1 to 200 mm");
-            }
-            for (name, v) in [("--from-kpa", from_kpa), ("--stress-kpa", stress_kpa)] {
-                if !(v.is_finite() && (0.0..=100_000.0).contains(&v)) {
-                    bail!("{name} {v}: allowed 0 to 100000 kPa");
-                }
-            }
-            let readings = oedolog::analyze::time_curve(&file)?;
-            let settings = oedolog_core::replay::ReplaySettings { height_mm, from_kpa, stress_kpa, poll_s };
-            let r = oedolog_core::replay::replay(&readings, &settings, oedolog::watch::WatchParams::default());
-            if json {
-                println!("{}", serde_json::to_string(&r)?);
-            } else {
-                println!("{}: {} readings replayed", file.display(), r.readings_used);
-                for e in &r.timeline {
-                    println!("{:>10.2} min  {}", e.t_min, e.message);
-                }
-                let g = |v: Option<f64>| v.map_or("—".to_string(), |v| format!("{v:.3}"));
-                println!(
-                    "t50 {} min (log t) · t90 {} min (√t) · t100 {} min (log t)",
-                    g(r.t50_min),
-                    g(r.t90_min),
-                    g(r.t100_min)
-                );
-                println!(
-                    "Proposals for a qualified engineer to review; the governing standard decides when a load step ends."
-                );
-            }
-            Ok(())
+            replay(&file, oedolog_core::replay::ReplaySettings { height_mm, from_kpa, stress_kpa, poll_s }, json)
         }
         Command::Analyze { what } => {
             let text = match what {
@@ -280,6 +246,37 @@ async fn run(command: Command) -> anyhow::Result<()> {
             Ok(())
         }
     }
+}
+
+/// `oedolog replay`: checks the settings, replays the file through the live watch, prints the timeline.
+fn replay(file: &std::path::Path, settings: oedolog_core::replay::ReplaySettings, json: bool) -> anyhow::Result<()> {
+    if let Some(p) = settings.poll_s
+        && !(p.is_finite() && p > 0.0 && p <= 86_400.0)
+    {
+        bail!("--poll-s {p}: allowed a poll period above 0 s and up to 86400 s");
+    }
+    if !(settings.height_mm.is_finite() && (1.0..=200.0).contains(&settings.height_mm)) {
+        bail!("--height-mm {}: allowed 1 to 200 mm", settings.height_mm);
+    }
+    for (name, v) in [("--from-kpa", settings.from_kpa), ("--stress-kpa", settings.stress_kpa)] {
+        if !(v.is_finite() && (0.0..=100_000.0).contains(&v)) {
+            bail!("{name} {v}: allowed 0 to 100000 kPa");
+        }
+    }
+    let readings = oedolog::analyze::time_curve(file)?;
+    let r = oedolog_core::replay::replay(&readings, &settings, oedolog::watch::WatchParams::default());
+    if json {
+        println!("{}", serde_json::to_string(&r)?);
+        return Ok(());
+    }
+    println!("{}: {} readings replayed", file.display(), r.readings_used);
+    for e in &r.timeline {
+        println!("{:>10.2} min  {}", e.t_min, e.message);
+    }
+    let g = |v: Option<f64>| v.map_or("—".to_string(), |v| format!("{v:.3}"));
+    println!("t50 {} min (log t) · t90 {} min (√t) · t100 {} min (log t)", g(r.t50_min), g(r.t90_min), g(r.t100_min));
+    println!("Proposals for a qualified engineer to review; the governing standard decides when a load step ends.");
+    Ok(())
 }
 
 #[tokio::main]

@@ -772,8 +772,37 @@ pub(crate) fn analyze_test_source(source: &str, path: &Path, read: ReadFile<'_>)
         message: error.message().trim().to_string(),
     })?;
     let check = Checker { source, path };
-    let s = &file.specimen;
+    let specimen = check_specimen(&check, &file)?;
+    let (curves, values) = read_steps(&check, &file, &specimen, read)?;
+    let reduced = reduce_file_test(&specimen, &values, &curves);
+    report(&check, &file, &specimen, &reduced)
+}
 
+/// The `[specimen]` table checked, with its phase relations.
+struct CheckedSpecimen {
+    measurements: SpecimenMeasurements,
+    phase: crate::analysis::PhaseRelations,
+    seating_stress_kpa: f64,
+    sigma_v0_kpa: Option<f64>,
+    final_water_content: Option<f64>,
+}
+
+impl CheckedSpecimen {
+    /// Settlements must keep e above 0: from −H0 up to below H0 − Hs, in words for messages.
+    fn settlement_allowed(&self) -> String {
+        let (h0, hs) = (self.phase.height_mm, self.phase.solids_height_mm);
+        format!("−H0 = {} mm up to below H0 − Hs = {} mm (e stays above 0)", fmt_g(-h0), fmt_g(h0 - hs))
+    }
+
+    fn settlement_ok(&self, settlement_mm: f64) -> bool {
+        let (h0, hs) = (self.phase.height_mm, self.phase.solids_height_mm);
+        settlement_mm.is_finite() && settlement_mm >= -h0 && settlement_mm < h0 - hs
+    }
+}
+
+fn check_specimen(check: &Checker<'_>, file: &TestFile) -> Result<CheckedSpecimen, OfflineError> {
+    let path = check.path;
+    let s = &file.specimen;
     // Phase relations; the analysis names the measurement it refuses, here given its place in the file.
     let mut measurements = SpecimenMeasurements::new(
         *s.diameter_mm.get_ref(),
@@ -796,7 +825,6 @@ pub(crate) fn analyze_test_source(source: &str, path: &Path, read: ReadFile<'_>)
         }
         error => OfflineError::Analysis { path: path.to_path_buf(), error },
     })?;
-    let (h0, hs) = (phase.height_mm, phase.solids_height_mm);
     let seating_stress_kpa = match &s.seating_stress_kpa {
         Some(v) => check.range(v, "specimen.seating_stress_kpa", 0.0, MAX_STRESS_KPA, "0 to 1e6 kPa")?,
         None => 0.0,
@@ -815,16 +843,24 @@ pub(crate) fn analyze_test_source(source: &str, path: &Path, read: ReadFile<'_>)
         Some(v) => Some(check.range(v, "specimen.final_water_content", 0.0, 20.0, "0 to 20, a fraction")?),
         None => None,
     };
+    Ok(CheckedSpecimen { measurements, phase, seating_stress_kpa, sigma_v0_kpa, final_water_content })
+}
+
+/// Each increment's time curve.
+type Curves = Vec<Option<Vec<(f64, f64)>>>;
+
+/// Each increment's checked stress and settlement, and its time curve read (with `read`) and parsed.
+fn read_steps(
+    check: &Checker<'_>,
+    file: &TestFile,
+    specimen: &CheckedSpecimen,
+    read: ReadFile<'_>,
+) -> Result<(Curves, Vec<(f64, f64)>), OfflineError> {
     if file.increments.is_empty() {
         return Err(check.field(None, "increment", "no [[increment]] tables: at least one is needed"));
     }
-
-    let base = path.parent().unwrap_or(Path::new(""));
-    let max_settlement = h0 - hs;
-    let settlement_allowed =
-        format!("−H0 = {} mm up to below H0 − Hs = {} mm (e stays above 0)", fmt_g(-h0), fmt_g(max_settlement));
-    // Each increment's checked stress and settlement, and its time curve read and parsed.
-    let mut curves: Vec<Option<Vec<(f64, f64)>>> = Vec::with_capacity(file.increments.len());
+    let base = check.path.parent().unwrap_or(Path::new(""));
+    let mut curves: Curves = Vec::with_capacity(file.increments.len());
     let mut values = Vec::with_capacity(file.increments.len());
     for (i, inc) in file.increments.iter().enumerate() {
         let stress = check.range(
@@ -835,11 +871,11 @@ pub(crate) fn analyze_test_source(source: &str, path: &Path, read: ReadFile<'_>)
             "above 0, up to 1e6 kPa",
         )?;
         let settlement = *inc.settlement_mm.get_ref();
-        if !(settlement.is_finite() && settlement >= -h0 && settlement < max_settlement) {
+        if !specimen.settlement_ok(settlement) {
             return Err(check.field(
                 Some(inc.settlement_mm.span()),
                 format!("increment[{i}].settlement_mm"),
-                format!("{settlement} is not allowed (allowed {settlement_allowed})"),
+                format!("{settlement} is not allowed (allowed {})", specimen.settlement_allowed()),
             ));
         }
         values.push((stress, settlement));
@@ -858,28 +894,51 @@ pub(crate) fn analyze_test_source(source: &str, path: &Path, read: ReadFile<'_>)
             }
         });
     }
-    // The file gives settlements already corrected for apparatus deflection: no table here.
+    Ok((curves, values))
+}
+
+/// The core's one reduction of a test, on the file's steps. The file gives settlements already corrected
+/// for apparatus deflection: no table here.
+fn reduce_file_test(
+    specimen: &CheckedSpecimen,
+    values: &[(f64, f64)],
+    curves: &[Option<Vec<(f64, f64)>>],
+) -> crate::analysis::TestReduction {
+    let (measurements, h0) = (&specimen.measurements, specimen.phase.height_mm);
     let steps: Vec<StepInput<'_>> = values
         .iter()
-        .zip(&curves)
+        .zip(curves)
         .map(|(&(stress_kpa, settlement_mm), curve)| StepInput {
             stress_kpa,
             settlement_mm: Some(settlement_mm),
             readings: curve.as_deref(),
         })
         .collect();
-    let specimen = TestSpecimen {
+    let input_specimen = TestSpecimen {
         diameter_mm: measurements.diameter_mm,
         height_mm: h0,
         dry_mass_g: Some(measurements.dry_mass_g),
         specific_gravity: Some(measurements.specific_gravity),
         initial_water_content: measurements.initial_water_content,
-        final_water_content,
-        seating_stress_kpa,
-        sigma_v0_kpa,
+        final_water_content: specimen.final_water_content,
+        seating_stress_kpa: specimen.seating_stress_kpa,
+        sigma_v0_kpa: specimen.sigma_v0_kpa,
     };
     let rules = ReductionRules::default();
-    let reduced = reduce_test(&TestInput { specimen, steps: &steps, deflection: None, rules: &rules });
+    reduce_test(&TestInput { specimen: input_specimen, steps: &steps, deflection: None, rules: &rules })
+}
+
+/// The command's report from the reduction, each refusal placed in the file.
+fn report(
+    check: &Checker<'_>,
+    file: &TestFile,
+    specimen: &CheckedSpecimen,
+    reduced: &crate::analysis::TestReduction,
+) -> Result<TestReport, OfflineError> {
+    let path = check.path;
+    let s = &file.specimen;
+    let (phase, h0, hs) = (&specimen.phase, specimen.phase.height_mm, specimen.phase.solids_height_mm);
+    let base = path.parent().unwrap_or(Path::new(""));
 
     for (i, (step, inc)) in reduced.steps.iter().zip(&file.increments).enumerate() {
         let Some(readings) = &inc.readings else { continue };
@@ -889,13 +948,13 @@ pub(crate) fn analyze_test_source(source: &str, path: &Path, read: ReadFile<'_>)
             return Err(check.readings(i, readings, problem));
         }
         if let Some(eop) = step.settlement_eop_mm
-            && !(eop >= -h0 && eop < max_settlement)
+            && !specimen.settlement_ok(eop)
         {
             let problem = OfflineError::Field {
                 path: csv_path,
                 at: None,
                 field: "end of primary".into(),
-                message: format!("settlement at d100 {eop} mm is outside {settlement_allowed}"),
+                message: format!("settlement at d100 {eop} mm is outside {}", specimen.settlement_allowed()),
             };
             return Err(check.readings(i, readings, problem));
         }
@@ -961,7 +1020,7 @@ pub(crate) fn analyze_test_source(source: &str, path: &Path, read: ReadFile<'_>)
         e_per_log_cycle: casagrande.map(|c| c.e_per_log_cycle),
         area_mm2: phase.area_mm2,
         initial_height_mm: h0,
-        seating_stress_kpa,
+        seating_stress_kpa: specimen.seating_stress_kpa,
         initial_water_content: phase.initial_water_content,
         initial_saturation: phase.initial_saturation,
         e0_from_final_water,
