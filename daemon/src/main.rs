@@ -78,16 +78,16 @@ enum Command {
         /// A CSV with the header `time_min,displacement_mm` (minutes since the load went on, mm).
         file: PathBuf,
         /// Poll period, s: replay only the readings the daemon would have taken (default: every reading).
-        #[arg(long, value_name = "N")]
+        #[arg(long, value_name = "N", allow_negative_numbers = true)]
         poll_s: Option<f64>,
         /// Specimen height at the onset, mm (the drainage path is half the height at 50 % consolidation).
-        #[arg(long, value_name = "MM", default_value_t = 20.0)]
+        #[arg(long, value_name = "MM", default_value_t = 20.0, allow_negative_numbers = true)]
         height_mm: f64,
         /// Stress before the load step, kPa.
-        #[arg(long, value_name = "KPA", default_value_t = 50.0)]
+        #[arg(long, value_name = "KPA", default_value_t = 50.0, allow_negative_numbers = true)]
         from_kpa: f64,
         /// Stress of the load step, kPa.
-        #[arg(long, value_name = "KPA", default_value_t = 100.0)]
+        #[arg(long, value_name = "KPA", default_value_t = 100.0, allow_negative_numbers = true)]
         stress_kpa: f64,
         /// Print one JSON object instead of the timeline.
         #[arg(long)]

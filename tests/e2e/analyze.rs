@@ -483,3 +483,37 @@ fn check_refused(done: &oedolog_tests::Finished, name: &str, want: &str) {
         done.stderr
     );
 }
+
+#[test]
+fn replay_runs_a_recorded_curve_through_the_live_watch_and_says_when_ready_would_have_come() {
+    // This file's own Terzaghi series [ref: terzaghi-series]: 0.4 mm of primary with t90 = 15 min
+    // (T90 = 0.848), then creep of 0.01 mm per log cycle after t100 ≈ 1.30·t90 = 19.5 min
+    // [ref: t100-t90-ratio, computed] — synthetic, read every 15 s for a day.
+    let dir = temp_dir();
+    let mut csv = String::from("time_min,displacement_mm\n");
+    for k in 0..=5760 {
+        let t = k as f64 * 0.25;
+        let creep = if t > 19.5 { 0.01 * (t / 19.5).log10() } else { 0.0 };
+        writeln!(csv, "{t},{:.4}", 1.5 + 0.4 * degree_of_consolidation(0.848 * t / 15.0) + creep).unwrap();
+    }
+    let path = write(dir.path(), "step.csv", &csv);
+    let file = path.to_str().unwrap();
+    let r = analyze_json(&["replay", file, "--poll-s", "30", "--json"]);
+    let ready = number(&r, "ready_min");
+    assert!(ready > 19.5, "ready at {ready} min, before the end of primary");
+    let timeline = r["timeline"].as_array().unwrap();
+    assert_eq!(timeline[0]["what"], "onset");
+    assert_eq!(timeline.last().unwrap()["what"], "ready");
+    assert!(timeline.iter().any(|e| e["what"] == "eta"), "{r}");
+    // Every 30 s over a day is 2881 polls of the 15 s file.
+    assert_eq!(r["readings_used"], 2881);
+    let text = oedolog(&["replay", file]);
+    assert!(text.status.success(), "{}", text.stderr);
+    assert!(text.stdout.contains("ready: ") && text.stdout.contains("qualified engineer"), "{}", text.stdout);
+    let bad = oedolog(&["replay", file, "--poll-s", "-5"]);
+    assert_eq!(bad.status.code(), Some(1));
+    assert!(bad.stderr.contains("--poll-s -5: allowed"), "{}", bad.stderr);
+    let missing = oedolog(&["replay", "/nonexistent/step.csv"]);
+    assert_eq!(missing.status.code(), Some(1));
+    assert!(missing.stderr.contains("/nonexistent/step.csv"), "{}", missing.stderr);
+}
