@@ -665,7 +665,7 @@ pub struct TestReport {
     pub(crate) e0: f64,
     /// Each increment, in the order applied.
     pub(crate) increments: Vec<ReportStep>,
-    /// Cc on the virgin branch (the three highest loading stresses).
+    /// Cc on the virgin branch: the steepest straight run of consecutive loading points past the break.
     pub(crate) cc: Option<f64>,
     /// Cr on the first unload–reload cycle; null without unloading.
     pub(crate) cr: Option<f64>,

@@ -199,7 +199,7 @@ td.l,th.l{{text-align:left}}.plot{{max-width:640px;width:100%}}.caution{{border:
             row(
                 "Cc",
                 num(c.cc.as_ref().map(|l| l.index), 3),
-                "slope of a straight line fitted to the highest loading points (virgin branch)",
+                "slope of the steepest straight run of consecutive loading points past the break (virgin line)",
             );
             row("Cr", num(c.cr.as_ref().map(|l| l.index), 3), "slope of the unload–reload branch");
             row(

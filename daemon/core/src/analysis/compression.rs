@@ -1,12 +1,14 @@
 //! The e–log σ′ reduction of a whole test [ref: void-ratio-step]: void ratio at the end of primary and at the
-//! end of each increment, av, mv, k, Cc on the virgin branch, Cr from unload–reload, σ′p by Casagrande's
-//! construction and by the strain-energy (work) method, OCR. Every line carries the points it used. It must
-//! not read time curves; each increment arrives as settlements (and cv) already reduced.
+//! end of each increment, av, mv, k, Cc on the straight steep part of the virgin branch, Cr from unload–reload,
+//! σ′p by Casagrande's construction at the bend into that line and by the strain-energy (work) method on the
+//! first loading branch, OCR. Every line carries the points it used, and a σ′p is either inside the loading
+//! stresses or absent with a flag. It must not read time curves; each increment arrives as settlements (and
+//! cv) already reduced.
 
 use serde::Serialize;
 
 use super::cv::M2_PER_S_PER_MM2_PER_MIN;
-use super::fit::{Line, fit_line, residual_sum_of_squares};
+use super::fit::{Line, LineAccumulator, fit_line, residual_sum_of_squares};
 use super::flags::{Flag, push_unique};
 use super::interp::Pchip;
 use super::{AnalysisError, check_positive, check_range};
@@ -15,6 +17,26 @@ use super::{AnalysisError, check_positive, check_range};
 pub(crate) const UNIT_WEIGHT_WATER_KN_PER_M3: f64 = 9.81;
 /// Samples per interval when searching the smooth curve for its maximum curvature.
 const CURVATURE_SAMPLES: usize = 32;
+/// A run of loading points is straight when the slope of every step between neighbours is within this
+/// fraction of the slope fitted to the run [ref: compression-index, common practice (our choice)]. Cc is a
+/// slope, so the test is on slopes: 10 % is about the change a hand fit through "the straight part" passes
+/// over, and it is well above the step-slope scatter of a good test (e scattered by ±0.002 moves a doubling
+/// step's slope by about ±0.01: under 10 % of Cc ≥ 0.15, computed).
+const STRAIGHT_STEP_TOLERANCE: f64 = 0.10;
+/// A straight run is on the steep (virgin) part when its fitted slope is within this fraction of the steepest
+/// step of the loading branch [ref: compression-index, common practice (our choice)]: that excludes the
+/// recompression part and a flattening tail, which are straight too but much flatter.
+const VIRGIN_SLOPE_TOLERANCE: f64 = 0.10;
+/// A longer straight run on the steep part replaces the steepest one when its slope is within this fraction
+/// of it [ref: compression-index, common practice (our choice)]: more points for a hair of slope, but not a
+/// point at the break that sits a few % above the line.
+const LONGER_RUN_SLACK: f64 = 0.02;
+/// The work method's late line must be steeper than its early line by more than this fraction of its slope:
+/// a yield, not rounding or scatter about one line [ref: preconsolidation-work, common practice (our choice)].
+const WORK_SLOPE_MARGIN: f64 = 0.10;
+/// Least concave-down curvature (plotted units, per log cycle) that counts as a bend; below it the curve is
+/// straight to rounding.
+const MIN_BEND_CURVATURE: f64 = 1e-6;
 
 /// One increment as the e–log σ′ reduction needs it.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
@@ -44,7 +66,9 @@ pub(crate) enum CurveBasis {
 pub struct CompressionParams {
     /// Which height ends an increment.
     pub(crate) basis: CurveBasis,
-    /// Cc is fitted to this many loading points at the highest stresses (≥ 2; 3 preferred) [ref: compression-index].
+    /// The virgin line should hold at least this many consecutive loading points (≥ 2; 3 by default)
+    /// [ref: compression-index]. Cc is fitted to the longest straight run on the steep part of the loading
+    /// branch; a run shorter than this is used only when no longer one is straight there, and is flagged.
     pub(crate) virgin_points: usize,
     /// Plotting ratio for Casagrande's construction: Δe drawn as long as one log cycle of σ′. Curvature and
     /// the bisector depend on it [ref: preconsolidation-casagrande]. `None`: the e range of the loading branch
@@ -131,12 +155,14 @@ pub struct IndexLine {
     pub index: f64,
 }
 
-/// Casagrande's σ′p construction, with every line drawn.
+/// Casagrande's σ′p construction, with every line drawn: the horizontal, the tangent and the bisector pass
+/// through (max_curvature_stress_kpa, max_curvature_e); σ′p lies on the virgin line and on the bisector.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct CasagrandePreconsolidation {
-    /// σ′p, kPa.
+    /// σ′p, kPa: inside the loading stresses, always positive.
     pub sigma_p_kpa: f64,
-    /// Stress at the point of maximum curvature.
+    /// Stress at the point of maximum curvature: the sharpest bend into the steeper (virgin) line, at or
+    /// below the virgin line's first point.
     pub(crate) max_curvature_stress_kpa: f64,
     /// e there.
     pub(crate) max_curvature_e: f64,
@@ -150,6 +176,9 @@ pub struct CasagrandePreconsolidation {
     pub(crate) e_per_log_cycle: f64,
     /// Loading-branch increments the smooth curve passes through.
     pub(crate) curve_points: Vec<usize>,
+    /// The loading-branch increments whose stretch of the curve was searched for the bend: from the first
+    /// loading point up to the virgin line's first point.
+    pub(crate) bend_search_points: Vec<usize>,
 }
 
 /// One point of the work curve.
@@ -175,9 +204,9 @@ pub(crate) struct WorkLine {
 /// σ′p by the strain-energy (work) method of Becker et al. (1987) [ref: preconsolidation-work].
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct WorkPreconsolidation {
-    /// σ′p, kPa: where the two lines meet.
+    /// σ′p, kPa: where the two lines meet, inside the first loading branch's stresses.
     pub sigma_p_kpa: f64,
-    /// Seating state and loading-branch increments with their cumulative work.
+    /// Seating state and the loading increments before the first unloading, with their cumulative work.
     pub(crate) points: Vec<WorkPoint>,
     /// Line through the early (pre-yield) points.
     pub(crate) early: WorkLine,
@@ -192,7 +221,7 @@ pub struct CompressionReduction {
     pub e0: f64,
     /// Each increment, in order.
     pub points: Vec<StatePoint>,
-    /// Cc on the virgin branch.
+    /// Cc on the straight steep part of the virgin branch.
     pub cc: Option<IndexLine>,
     /// Compression ratio CR = Cc/(1 + e0) [ref: compression-index, common practice].
     pub(crate) compression_ratio: Option<f64>,
@@ -200,7 +229,7 @@ pub struct CompressionReduction {
     pub cr: Option<IndexLine>,
     /// σ′p by Casagrande's construction.
     pub sigma_p_casagrande: Option<CasagrandePreconsolidation>,
-    /// σ′p by the work method.
+    /// σ′p by the work method, first loading branch.
     pub sigma_p_work: Option<WorkPreconsolidation>,
     /// OCR = σ′p/σ′v0 (Casagrande σ′p) [ref: ocr].
     pub(crate) ocr_casagrande: Option<f64>,
@@ -340,8 +369,8 @@ pub(crate) fn reduce_compression(
     let loading: Vec<usize> = (0..points.len()).filter(|&i| points[i].branch == Branch::Loading).collect();
     let cc = virgin_line(&points, &loading, params.virgin_points, &mut flags);
     let cr = unload_reload_line(&points, &mut flags);
-    let sigma_p_casagrande = cc.as_ref().and_then(|cc| casagrande_sigma_p(&points, &loading, cc, params, &mut flags));
-    let sigma_p_work = work_sigma_p(input, &points, &mut flags);
+    let sigma_p_casagrande = casagrande_sigma_p(&points, &loading, cc.as_ref(), params, &mut flags);
+    let sigma_p_work = work_sigma_p(input, &points, cc.as_ref(), &mut flags);
 
     if let (Some(cc), Some(sp)) = (&cc, &sigma_p_casagrande)
         && cc.points.iter().any(|&i| points[i].stress_kpa < sp.sigma_p_kpa * (1.0 - 1e-9))
@@ -379,18 +408,68 @@ fn log_point(p: &StatePoint) -> (f64, f64) {
     (p.stress_kpa.log10(), p.e)
 }
 
-/// Cc: line through the `wanted` loading points at the highest stresses.
+/// Cc [ref: compression-index]: the virgin line is the steepest straight run of at least `wanted` consecutive
+/// loading points on the steep part of the branch. "Steep part": the run's fitted slope is within
+/// `VIRGIN_SLOPE_TOLERANCE` of the steepest step between neighbouring loading points, so neither the
+/// recompression part nor a flattening tail at high stress is taken, however straight. "Straight": every
+/// step's slope is within `STRAIGHT_STEP_TOLERANCE` of the run's fitted slope; a run grows from its first
+/// point while it stays straight. A longer run replaces the steepest when its slope is within
+/// `LONGER_RUN_SLACK` of it. When no run of `wanted` points qualifies, shorter ones are used, flagged; the
+/// steepest step itself (two points) always qualifies, so a branch whose e falls somewhere has a Cc.
 fn virgin_line(points: &[StatePoint], loading: &[usize], wanted: usize, flags: &mut Vec<Flag>) -> Option<IndexLine> {
-    let used: Vec<usize> = loading[loading.len().saturating_sub(wanted)..].to_vec();
-    if used.len() < 2 {
-        push_unique(flags, Flag::FewVirginPoints { points: used.len() });
+    let n = loading.len();
+    if n < 2 {
+        push_unique(flags, Flag::FewVirginPoints { points: n });
         return None;
     }
-    if used.len() < 3 {
-        push_unique(flags, Flag::FewVirginPoints { points: used.len() });
+    let xy: Vec<(f64, f64)> = loading.iter().map(|&i| log_point(&points[i])).collect();
+    // Step slopes as −de/dlog σ′ (positive where e falls); x is strictly increasing on the loading branch.
+    let step: Vec<f64> = xy.windows(2).map(|w| -(w[1].1 - w[0].1) / (w[1].0 - w[0].0)).collect();
+    // Finite steps only, so `steepest` is never NaN.
+    let steepest = step.iter().copied().filter(|s| s.is_finite()).fold(f64::NEG_INFINITY, f64::max);
+    if steepest <= 0.0 {
+        push_unique(flags, Flag::NoVirginLine);
+        return None;
     }
-    let line = fit_line(used.iter().map(|&i| log_point(&points[i])))?;
-    Some(IndexLine { points: used, index: -line.slope, line })
+    // Straight runs on the steep part: (first, length, index, line).
+    let mut runs: Vec<(usize, usize, f64, Line)> = Vec::new();
+    for first in 0..n - 1 {
+        let mut acc = LineAccumulator::new();
+        acc.push(xy[first].0, xy[first].1);
+        for last in first + 1..n {
+            acc.push(xy[last].0, xy[last].1);
+            let Some(line) = acc.line() else { break };
+            let index = -line.slope;
+            let straight =
+                index > 0.0 && step[first..last].iter().all(|s| (s - index).abs() <= STRAIGHT_STEP_TOLERANCE * index);
+            if !straight {
+                break;
+            }
+            if index >= (1.0 - VIRGIN_SLOPE_TOLERANCE) * steepest {
+                runs.push((first, last - first + 1, index, line));
+            }
+        }
+    }
+    let long_enough = runs.iter().any(|r| r.1 >= wanted);
+    let pool: Vec<&(usize, usize, f64, Line)> = runs.iter().filter(|r| !long_enough || r.1 >= wanted).collect();
+    let Some(steepest_run) = pool.iter().map(|r| r.2).reduce(f64::max) else {
+        push_unique(flags, Flag::NoVirginLine);
+        return None;
+    };
+    let chosen = pool
+        .iter()
+        .filter(|r| r.2 >= (1.0 - LONGER_RUN_SLACK) * steepest_run)
+        .max_by(|a, b| a.1.cmp(&b.1).then(a.2.total_cmp(&b.2)))
+        .copied();
+    let Some(&(first, length, index, line)) = chosen else {
+        push_unique(flags, Flag::NoVirginLine);
+        return None;
+    };
+    if length < wanted {
+        push_unique(flags, Flag::NoStraightVirginRun { wanted });
+        push_unique(flags, Flag::FewVirginPoints { points: length });
+    }
+    Some(IndexLine { points: loading[first..first + length].to_vec(), index, line })
 }
 
 /// Cr: line through the first unload–reload cycle — the peak before the first unloading, the unloading
@@ -420,13 +499,15 @@ fn unload_reload_line(points: &[StatePoint], flags: &mut Vec<Flag>) -> Option<In
     Some(IndexLine { points: used, index: -line.slope, line })
 }
 
-/// Casagrande (1936) [ref: preconsolidation-casagrande]: maximum curvature of a smooth (PCHIP) fit of e on
-/// log σ′ in plotted units, horizontal and tangent there, their bisector, and its intersection with the
-/// virgin line.
+/// Casagrande (1936) [ref: preconsolidation-casagrande]: on a smooth (PCHIP) fit of e on log σ′ through the
+/// loading points, in plotted units, the point of greatest concave-down curvature — the bend that makes the
+/// curve steeper — at or below the virgin line's first point; the horizontal and the tangent there, their
+/// bisector, and its intersection with the virgin line. `None` with a flag when there are too few points, no
+/// virgin line, no such bend, no intersection, or the intersection lies outside the loading stresses.
 fn casagrande_sigma_p(
     points: &[StatePoint],
     loading: &[usize],
-    virgin: &IndexLine,
+    virgin: Option<&IndexLine>,
     params: &CompressionParams,
     flags: &mut Vec<Flag>,
 ) -> Option<CasagrandePreconsolidation> {
@@ -435,6 +516,10 @@ fn casagrande_sigma_p(
         push_unique(flags, Flag::PreconsolidationUndetermined { method: METHOD });
         return None;
     }
+    let Some(virgin) = virgin else {
+        push_unique(flags, Flag::PreconsolidationNoBend { method: METHOD });
+        return None;
+    };
     let (x, e): (Vec<f64>, Vec<f64>) = loading.iter().map(|&i| log_point(&points[i])).unzip();
     let (x_min, x_max) = (x[0], x[x.len() - 1]);
     let e_range = e.iter().copied().fold(f64::MIN, f64::max) - e.iter().copied().fold(f64::MAX, f64::min);
@@ -447,36 +532,49 @@ fn casagrande_sigma_p(
         push_unique(flags, Flag::PreconsolidationUndetermined { method: METHOD });
         return None;
     }
-    // Curvature in plotted units: X = log10 σ′, Y = e/ratio. Both one-sided values at interior nodes count;
-    // the two ends of the curve do not (an end is never the break).
-    let intervals = curve.intervals();
-    let mut best: Option<(f64, f64, f64)> = None; // (curvature, x, slope)
-    for k in 0..intervals {
-        for j in 0..=CURVATURE_SAMPLES {
-            if (k == 0 && j == 0) || (k == intervals - 1 && j == CURVATURE_SAMPLES) {
-                continue;
-            }
-            let (xs, d1, d2) = curve.local_derivatives(k, j as f64 / CURVATURE_SAMPLES as f64);
-            let (y1, y2) = (d1 / ratio, d2 / ratio);
-            let kappa = y2.abs() / (1.0 + y1 * y1).powf(1.5);
-            if best.is_none_or(|(b, _, _)| kappa > b) {
-                best = Some((kappa, xs, d1));
-            }
+    // Where the virgin run starts on the loading branch; the bend is searched up to that node.
+    let run_start = loading.iter().position(|&i| i == virgin.points[0]).unwrap_or(0);
+    // Plotted units: X = log10 σ′, Y = e/ratio. With e falling, the bend into the steeper virgin line is where
+    // dY/dX grows more negative: Y'' < 0, concave down. Signed curvature κ = Y''/(1 + Y'²)^1.5; the bend is
+    // its most negative value. A flattening (Y'' > 0) is never taken. Intervals 0..run_start are searched,
+    // both one-sided values at interior nodes, plus the right-hand side of the run's first node (where a
+    // sharp break on an applied stress bends); the first node of the curve is an end, never the break.
+    let mut best: Option<(f64, f64, f64)> = None; // (−κ, x, de/dlog σ′)
+    let mut consider = |k: usize, s: f64| {
+        let (xs, d1, d2) = curve.local_derivatives(k, s);
+        let (y1, y2) = (d1 / ratio, d2 / ratio);
+        let bend = -y2 / (1.0 + y1 * y1).powf(1.5);
+        if bend > MIN_BEND_CURVATURE && best.is_none_or(|(b, _, _)| bend > b) {
+            best = Some((bend, xs, d1));
+        }
+    };
+    for k in 0..run_start {
+        for j in usize::from(k == 0)..=CURVATURE_SAMPLES {
+            consider(k, j as f64 / CURVATURE_SAMPLES as f64);
         }
     }
-    let (_, xm, slope) = best?;
+    if run_start > 0 && run_start < curve.intervals() {
+        consider(run_start, 0.0);
+    }
+    let Some((_, xm, slope)) = best else {
+        push_unique(flags, Flag::PreconsolidationNoBend { method: METHOD });
+        return None;
+    };
     let em = curve.eval(xm);
     let tangent = Line::through(xm, em, slope);
     // Bisect the angle between the horizontal and the tangent on the plot, then map back to e units.
     let half_angle = 0.5 * (slope / ratio).atan();
     let bisector = Line::through(xm, em, ratio * half_angle.tan());
-    let (xp, _) = bisector.intersection(&virgin.line).filter(|(x, _)| x.is_finite()).or_else(|| {
-        push_unique(flags, Flag::PreconsolidationUndetermined { method: METHOD });
-        None
-    })?;
+    let Some((xp, _)) = bisector.intersection(&virgin.line) else {
+        push_unique(flags, Flag::PreconsolidationNoIntersection { method: METHOD });
+        return None;
+    };
     let sigma_p_kpa = 10f64.powf(xp);
-    if xp < x_min || xp > x_max {
+    // Outside the loading stresses the construction is an extrapolation, not a σ′p: dropped, its value kept in
+    // the flag for the engineer.
+    if !(xp >= x_min && xp <= x_max) {
         push_unique(flags, Flag::PreconsolidationOutsideData { method: METHOD, sigma_p_kpa });
+        return None;
     }
     Some(CasagrandePreconsolidation {
         sigma_p_kpa,
@@ -487,22 +585,29 @@ fn casagrande_sigma_p(
         virgin: virgin.line,
         e_per_log_cycle: ratio,
         curve_points: loading.to_vec(),
+        bend_search_points: loading[..=run_start].to_vec(),
     })
 }
 
 /// Becker et al. (1987) [ref: preconsolidation-work]: cumulative work W = Σ ½(σ′before + σ′)(ε − εbefore)
-/// (the sum from memory) along the whole stress path, plotted on arithmetic axes for the seating state and
-/// the loading branch; two lines fitted to an early and a late run — the split with the least total
-/// residual — and σ′p where they meet.
+/// (the sum from memory) along the first loading branch — the seating state and every increment before the
+/// first unloading, so an unload–reload loop's work never enters — plotted on arithmetic axes for the seating
+/// state and the loading points, no further than the last point of the virgin line (Cc) where there is one,
+/// so that a flattening at high stress does not pull the late line; two lines fitted to an early and a late
+/// run — the split with the least total residual among those whose late line is the steeper — and σ′p where
+/// they meet. `None` with a flag when there are too few points, no steeper late line, no intersection, or the
+/// intersection lies outside the loading stresses used.
 fn work_sigma_p(
     input: &CompressionInput<'_>,
     points: &[StatePoint],
+    virgin: Option<&IndexLine>,
     flags: &mut Vec<Flag>,
 ) -> Option<WorkPreconsolidation> {
     const METHOD: &str = "work";
     let mut work = vec![WorkPoint { stress_kpa: input.seating_stress_kpa, work_kj_per_m3: 0.0, increment: None }];
     let (mut w, mut sigma_before, mut strain_before) = (0.0, input.seating_stress_kpa, 0.0);
-    for (i, p) in points.iter().enumerate() {
+    let last = virgin.and_then(|v| v.points.last().copied()).unwrap_or(usize::MAX);
+    for (i, p) in points.iter().enumerate().take_while(|&(i, p)| p.branch != Branch::Unloading && i <= last) {
         w += 0.5 * (sigma_before + p.stress_kpa) * (p.strain - strain_before);
         (sigma_before, strain_before) = (p.stress_kpa, p.strain);
         if p.branch == Branch::Loading {
@@ -520,6 +625,9 @@ fn work_sigma_p(
         let (Some(early), Some(late)) = (fit_line((0..split).map(xy)), fit_line((split..m).map(xy))) else {
             continue;
         };
+        if late.slope - early.slope <= WORK_SLOPE_MARGIN * late.slope.abs() {
+            continue;
+        }
         let rss =
             residual_sum_of_squares(&early, (0..split).map(xy)) + residual_sum_of_squares(&late, (split..m).map(xy));
         if best.as_ref().is_none_or(|(b, ..)| rss < *b) {
@@ -527,15 +635,18 @@ fn work_sigma_p(
         }
     }
     let Some((_, split, early, late)) = best else {
-        push_unique(flags, Flag::PreconsolidationUndetermined { method: METHOD });
+        push_unique(flags, Flag::PreconsolidationNoBend { method: METHOD });
         return None;
     };
     let Some((sigma_p_kpa, _)) = early.intersection(&late) else {
-        push_unique(flags, Flag::PreconsolidationUndetermined { method: METHOD });
+        push_unique(flags, Flag::PreconsolidationNoIntersection { method: METHOD });
         return None;
     };
-    if sigma_p_kpa < work[0].stress_kpa || sigma_p_kpa > work[m - 1].stress_kpa {
+    // The loading stresses of the branch, the seating state excluded: a meeting below the first load (or
+    // beyond the last) is an extrapolation.
+    if !(sigma_p_kpa >= work[1].stress_kpa && sigma_p_kpa <= work[m - 1].stress_kpa) {
         push_unique(flags, Flag::PreconsolidationOutsideData { method: METHOD, sigma_p_kpa });
+        return None;
     }
     Some(WorkPreconsolidation {
         sigma_p_kpa,
@@ -631,7 +742,8 @@ mod tests {
         // Computed: on an exactly bilinear e–log σ′ curve with its break at an applied stress, Casagrande's maximum
         // curvature falls on the break, whose bisector meets the virgin line there; and W–σ′ is exactly
         // bilinear for doubling stresses (ΔW ∝ C·σ′before), breaking at σ′p too. So Cc = 0.4, Cr = 0.05 and
-        // σ′p = 200 kPa to rounding; OCR = 2 for σ′v0 = 100 kPa [ref: ocr].
+        // σ′p = 200 kPa to rounding; OCR = 2 for σ′v0 = 100 kPa [ref: ocr]. The virgin line is the whole straight
+        // run 200 … 3200 kPa (increments 3–7), the break point included: it lies on the line.
         let points = bilinear_test();
         let input = CompressionInput {
             initial_height_mm: 20.0,
@@ -642,7 +754,7 @@ mod tests {
         let params = CompressionParams { sigma_v0_kpa: Some(100.0), ..end_of_increment() };
         let r = reduce_compression(&input, &params).unwrap();
         let cc = r.cc.as_ref().unwrap();
-        assert!((cc.index - 0.4).abs() < 1e-9 && cc.points == vec![5, 6, 7]);
+        assert!((cc.index - 0.4).abs() < 1e-9 && cc.points == vec![3, 4, 5, 6, 7], "{:?}", cc.points);
         assert!((r.compression_ratio.unwrap() - 0.2).abs() < 1e-9);
         let cr = r.cr.as_ref().unwrap();
         assert!((cr.index - 0.05).abs() < 1e-9 && cr.points == vec![7, 8, 9, 10]);
@@ -738,8 +850,13 @@ mod tests {
         // k = cv·mv·γw from the increment's own mv [ref: permeability].
         let p = &r.points[1];
         assert_eq!(p.k_m_per_s, Some(permeability_m_per_s(2.0, p.mv_per_kpa.unwrap(), 9.81)));
-        // Few points: Cc from the 3 highest loading points is allowed, σ′p still tried.
-        assert_eq!(r.cc.unwrap().points, vec![2, 3, 6]);
+        // Loading e 1.0, 0.991, 0.98, 0.97, 0.94 at 50…800 kPa: steps of 0.030, 0.037, 0.033 and 0.100 per log
+        // cycle (computed). The steep part is the last step alone (400 → 800 kPa, increments 3 and 6, across the
+        // reload): Cc from those two, flagged; the flat straight run below it is not a virgin line.
+        assert_eq!(r.cc.as_ref().unwrap().points, vec![3, 6]);
+        assert!((r.cc.as_ref().unwrap().index - 0.03 / 2f64.log10()).abs() < 1e-9);
+        assert!(r.flags.contains(&Flag::FewVirginPoints { points: 2 }));
+        assert!(r.flags.contains(&Flag::NoStraightVirginRun { wanted: 3 }));
     }
 
     #[test]
@@ -780,6 +897,406 @@ mod tests {
         assert!(reduce_compression(&input, &end_of_increment()).is_err());
         input.points = &[];
         assert!(matches!(reduce_compression(&input, &end_of_increment()), Err(AnalysisError::TooFewPoints { .. })));
+    }
+
+    /// Hs = 10 mm and H0 = 22 mm, so e0 = 1.2 at the seating stress; a state (σ′, e) is the settlement (1.2 − e)·Hs.
+    fn reduce_states(states: &[(f64, f64)], seating_kpa: f64, params: &CompressionParams) -> CompressionReduction {
+        let points: Vec<CompressionPoint> = states.iter().map(|&(s, e)| point(s, (1.2 - e) * 10.0)).collect();
+        let input = CompressionInput {
+            initial_height_mm: 22.0,
+            solids_height_mm: 10.0,
+            seating_stress_kpa: seating_kpa,
+            points: &points,
+        };
+        reduce_compression(&input, params).unwrap()
+    }
+
+    /// Stresses doubling from the 12.5 kPa seating stress to 12 800 kPa.
+    const DOUBLING_TO_12800: [f64; 10] = [25.0, 50.0, 100.0, 200.0, 400.0, 800.0, 1600.0, 3200.0, 6400.0, 12800.0];
+
+    /// How the synthetic law flattens above 1600 kPa, with y = log10(σ′/1600).
+    #[derive(Debug, Clone, Copy)]
+    enum Tail {
+        /// −de/dlog10 σ′ = Cc/(1 + 3y): e = e(1600) − (Cc/3)·ln(1 + 3y); the slope halves by about y = 0.33.
+        Smooth,
+        /// A sharp flattening to a constant slope.
+        Sharp(f64),
+    }
+
+    /// Synthetic law (computed; invented numbers): e = 1.2 at 12.5 kPa, slope `cr` up to σ′p = 200 kPa, `cc` from
+    /// 200 to 1600 kPa (the straight steep part), then `tail`. All slopes are −de/dlog10 σ′.
+    fn flattening_e(stress_kpa: f64, cr: f64, cc: f64, tail: Tail) -> f64 {
+        let e_p = 1.2 - cr * (200.0f64 / 12.5).log10();
+        let e_t = e_p - cc * 8f64.log10();
+        if stress_kpa <= 200.0 {
+            1.2 - cr * (stress_kpa / 12.5).log10()
+        } else if stress_kpa <= 1600.0 {
+            e_p - cc * (stress_kpa / 200.0).log10()
+        } else {
+            let y = (stress_kpa / 1600.0).log10();
+            match tail {
+                Tail::Smooth => e_t - cc / 3.0 * (1.0 + 3.0 * y).ln(),
+                Tail::Sharp(slope) => e_t - slope * y,
+            }
+        }
+    }
+
+    /// The doubling schedule with an unload–reload loop from 800 kPa (synthetic): unloading to 400, 200, 100 kPa
+    /// with Cs = 0.05, reloading to 200, 400, 800 kPa with 0.06 — so it closes 0.009 below the loading branch
+    /// at 800 kPa, a hysteresis loop — then on along `e` from 1600 kPa.
+    fn with_loop(e: impl Fn(f64) -> f64) -> Vec<(f64, f64)> {
+        let e_peak = e(800.0);
+        let e_low = e_peak + 0.05 * 8f64.log10();
+        let mut states: Vec<(f64, f64)> = DOUBLING_TO_12800[..6].iter().map(|&s| (s, e(s))).collect();
+        states.extend([400.0f64, 200.0, 100.0].map(|s| (s, e_peak + 0.05 * (800.0 / s).log10())));
+        states.extend([200.0f64, 400.0, 800.0].map(|s| (s, e_low - 0.06 * (s / 100.0).log10())));
+        states.extend(DOUBLING_TO_12800[6..].iter().map(|&s| (s, e(s))));
+        states
+    }
+
+    fn stresses_of(r: &CompressionReduction, increments: &[usize]) -> Vec<f64> {
+        increments.iter().map(|&i| r.points[i].stress_kpa).collect()
+    }
+
+    #[test]
+    fn flattening_tail_keeps_cc_on_the_steep_part_and_sigma_p_at_the_break() {
+        // Synthetic (computed): Cr = 0.04 to σ′p = 200 kPa, Cc = 0.4 straight from 200 to 1600 kPa, then a smooth
+        // or a sharp (0.05) flattening; with and without an unload–reload loop from 800 kPa. The steep part is
+        // exactly straight, so Cc = 0.4 through 200 … 1600 kPa to rounding (the three highest points gave 0.148
+        // and 0.050 before this rule, computed). The break is on an applied stress, so the sharpest bend into the
+        // virgin line is at 200 kPa and the bisector meets the line there: σ′p = 200 kPa to rounding (before:
+        // 0.77 kPa and 4e-19 kPa, outside the data). With doubling stresses W–σ′ is two exact lines meeting at
+        // σ′p up to the end of the virgin line, so the work σ′p is 200 kPa too (before: 3830 and 1913 kPa).
+        // The loop leaves the loading branch as it was; Cr fitted to it lies between its two slopes.
+        for tail in [Tail::Smooth, Tail::Sharp(0.05)] {
+            let e = |s: f64| flattening_e(s, 0.04, 0.4, tail);
+            let plain: Vec<(f64, f64)> = DOUBLING_TO_12800.iter().map(|&s| (s, e(s))).collect();
+            for (states, looped) in [(plain, false), (with_loop(e), true)] {
+                let r = reduce_states(&states, 12.5, &end_of_increment());
+                let case = format!("{tail:?}, loop {looped}");
+                let cc = r.cc.as_ref().unwrap();
+                assert_eq!(stresses_of(&r, &cc.points), vec![200.0, 400.0, 800.0, 1600.0], "{case}");
+                assert!((cc.index - 0.4).abs() < 1e-9, "{case}: Cc {}", cc.index);
+                let casagrande = r.sigma_p_casagrande.as_ref().unwrap();
+                assert!((casagrande.max_curvature_stress_kpa - 200.0).abs() < 1e-6, "{case}");
+                assert!((casagrande.sigma_p_kpa - 200.0).abs() < 1e-6, "{case}: {}", casagrande.sigma_p_kpa);
+                let work = r.sigma_p_work.as_ref().unwrap();
+                assert!((work.sigma_p_kpa - 200.0).abs() < 1e-6, "{case}: work {}", work.sigma_p_kpa);
+                assert!(!r.flags.iter().any(|f| matches!(f, Flag::FewVirginPoints { .. })), "{case}: {:?}", r.flags);
+                if looped {
+                    let cr = r.cr.as_ref().unwrap();
+                    assert!(cr.index > 0.05 - 1e-9 && cr.index < 0.06 + 1e-9, "{case}: Cr {}", cr.index);
+                    // The work sum stops at the first unloading (increment 6).
+                    assert!(work.points.iter().all(|p| p.increment.is_none_or(|i| i < 6)), "{case}");
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn a_gentle_break_is_found_even_where_a_sharp_flattening_bends_harder() {
+        // Synthetic (computed): Cr = 0.12 to σ′p = 200 kPa, Cc = 0.5 to 1600 kPa, then 0.03. The flattening at
+        // 1600 kPa bends harder than the break (0.47 against 0.38 per log cycle), so the greatest unsigned
+        // curvature of the smooth curve is there — where the rule before this one put the bend and σ′p
+        // (1600 kPa, computed). Casagrande's bend is the one into the steeper line: 200 kPa.
+        let e = |s: f64| flattening_e(s, 0.12, 0.5, Tail::Sharp(0.03));
+        let states: Vec<(f64, f64)> = DOUBLING_TO_12800.iter().map(|&s| (s, e(s))).collect();
+        let r = reduce_states(&states, 12.5, &end_of_increment());
+        // The trap is real: on the curve the construction uses, |κ| at 1600 kPa exceeds |κ| at 200 kPa.
+        let c = r.sigma_p_casagrande.as_ref().unwrap();
+        let (x, ys): (Vec<f64>, Vec<f64>) =
+            c.curve_points.iter().map(|&i| (r.points[i].stress_kpa.log10(), r.points[i].e / c.e_per_log_cycle)).unzip();
+        let curve = Pchip::new(x, ys).unwrap();
+        let unsigned = |k: usize, s: f64| {
+            let (_, y1, y2) = curve.local_derivatives(k, s);
+            y2.abs() / (1.0 + y1 * y1).powf(1.5)
+        };
+        // Node 6 is 1600 kPa, node 3 is 200 kPa; each side of each node.
+        assert!(unsigned(6, 0.0).max(unsigned(5, 1.0)) > unsigned(3, 0.0).max(unsigned(2, 1.0)));
+        assert!((c.max_curvature_stress_kpa - 200.0).abs() < 1e-6, "bend at {}", c.max_curvature_stress_kpa);
+        assert!((c.sigma_p_kpa - 200.0).abs() < 1e-6, "σ′p {}", c.sigma_p_kpa);
+        assert!((r.cc.as_ref().unwrap().index - 0.5).abs() < 1e-9);
+        assert!((r.sigma_p_work.as_ref().unwrap().sigma_p_kpa - 200.0).abs() < 1e-6);
+    }
+
+    #[test]
+    fn smooth_break_with_a_flattening_tail_lands_near_the_break() {
+        // Synthetic (computed): the soft-plus blend of `smooth_break_lands_near_the_asymptotes_intersection`
+        // (Cr = 0.04, Cc = 0.4, 0.05 log cycle wide, asymptotes crossing at σ′p = 150, 200 or 283 kPa) with the
+        // smooth flattening of `Tail::Smooth` above 1600 kPa, doubling stresses to 12 800 kPa, with and without
+        // the loop. Tolerances: Cc within 1 % of 0.4 — the steep points a doubling or more past the break sit on
+        // the upper asymptote to within 0.001 in e, and a point at the break (0.0125 above it when the break is
+        // on an applied stress) is left out by the 2 % slack for longer runs (measured within 0.4 %); σ′p within
+        // 15 % as in that test — neither construction is defined by the asymptotes and the break is sampled
+        // 0.3 log cycle apart (measured within 9 % Casagrande, 12 % work).
+        for sigma_p in [150.0f64, 200.0, 283.0] {
+            let e = |s: f64| {
+                let x = (s / sigma_p).log10();
+                let soft = 1.2 - 0.04 * x - 0.36 * 0.05 * (1.0 + (x / 0.05).exp()).ln();
+                let y = (s / 1600.0).log10().max(0.0);
+                soft + 0.4 * (y - (1.0 + 3.0 * y).ln() / 3.0)
+            };
+            let e12 = e(12.5);
+            let shifted = |s: f64| e(s) - e12 + 1.2;
+            let plain: Vec<(f64, f64)> = DOUBLING_TO_12800.iter().map(|&s| (s, shifted(s))).collect();
+            for states in [plain, with_loop(shifted)] {
+                let r = reduce_states(&states, 12.5, &end_of_increment());
+                let cc = r.cc.as_ref().unwrap().index;
+                let c = r.sigma_p_casagrande.as_ref().unwrap().sigma_p_kpa;
+                let w = r.sigma_p_work.as_ref().unwrap().sigma_p_kpa;
+                assert!((cc / 0.4 - 1.0).abs() < 0.01, "σ′p {sigma_p}: Cc {cc}");
+                assert!((c / sigma_p - 1.0).abs() < 0.15, "σ′p {sigma_p}: Casagrande {c}");
+                assert!((w / sigma_p - 1.0).abs() < 0.15, "σ′p {sigma_p}: work {w}");
+            }
+        }
+    }
+
+    #[test]
+    fn work_sigma_p_after_an_unload_reload_loop_comes_from_the_first_loading_branch() {
+        // Synthetic (computed), on the simulator's default schedule (seating 6.25 kPa, doubling to 800, unloading to
+        // 200 and 50, reloading to 200 and 800, then 1600 kPa): Cr = 0.04 to σ′p = 100 kPa, Cc = 0.35 beyond;
+        // unloading with Cs = 0.05 and reloading with 0.06, so the loop does net work and the reload closes below
+        // the loading branch. Summed along the whole path the loop's work shifted the 1600 kPa point and the work
+        // σ′p came out at 81 kPa (computed with the rule before this one; the demo showed a negative value). On
+        // the first loading branch W–σ′ is two exact lines meeting at 100 kPa.
+        let e = |s: f64| {
+            if s <= 100.0 {
+                1.2 - 0.04 * (s / 6.25).log10()
+            } else {
+                1.2 - 0.04 * 16f64.log10() - 0.35 * (s / 100.0).log10()
+            }
+        };
+        let e_peak = e(800.0);
+        let e_low = e_peak + 0.05 * 16f64.log10();
+        let mut states: Vec<(f64, f64)> = [12.5, 25.0, 50.0, 100.0, 200.0, 400.0, 800.0].map(|s| (s, e(s))).to_vec();
+        states.extend([(200.0, e_peak + 0.05 * 4f64.log10()), (50.0, e_low)]);
+        states.extend([
+            (200.0, e_low - 0.06 * 4f64.log10()),
+            (800.0, e_low - 0.06 * 16f64.log10()),
+            (1600.0, e(1600.0)),
+        ]);
+        let r = reduce_states(&states, 6.25, &end_of_increment());
+        let work = r.sigma_p_work.as_ref().unwrap();
+        assert!((work.sigma_p_kpa - 100.0).abs() < 1e-6, "work σ′p {}", work.sigma_p_kpa);
+        let used: Vec<Option<usize>> = work.points.iter().map(|p| p.increment).collect();
+        assert_eq!(used, vec![None, Some(0), Some(1), Some(2), Some(3), Some(4), Some(5), Some(6)]);
+        let casagrande = r.sigma_p_casagrande.as_ref().unwrap();
+        assert!((casagrande.sigma_p_kpa - 100.0).abs() < 1e-6, "Casagrande σ′p {}", casagrande.sigma_p_kpa);
+        let cc = r.cc.as_ref().unwrap();
+        assert_eq!(stresses_of(&r, &cc.points), vec![100.0, 200.0, 400.0, 800.0, 1600.0]);
+        assert!((cc.index - 0.35).abs() < 1e-9);
+    }
+
+    #[test]
+    fn construction_lines_pass_through_the_points_they_construct_and_keep_their_names() {
+        // The dashboard draws the tangent and the bisector through the point of greatest curvature and marks σ′p
+        // on the virgin line; the JSON keeps the names the API and `analyze test` print. Synthetic curve: the
+        // soft-plus break at 283 kPa (between applied stresses) with the smooth tail, so nothing falls on a node.
+        let e = |s: f64| {
+            let x = (s / 283.0f64).log10();
+            let y = (s / 1600.0).log10().max(0.0);
+            1.2 - 0.04 * x - 0.36 * 0.05 * (1.0 + (x / 0.05).exp()).ln() + 0.4 * (y - (1.0 + 3.0 * y).ln() / 3.0)
+        };
+        let r = reduce_states(&with_loop(e), 12.5, &end_of_increment());
+        let c = r.sigma_p_casagrande.as_ref().unwrap();
+        let xm = c.max_curvature_stress_kpa.log10();
+        assert!((c.tangent.at(xm) - c.max_curvature_e).abs() < 1e-12);
+        assert!((c.bisector.at(xm) - c.max_curvature_e).abs() < 1e-12);
+        let xp = c.sigma_p_kpa.log10();
+        assert!((c.virgin.at(xp) - c.bisector.at(xp)).abs() < 1e-12);
+        assert_eq!(c.virgin, r.cc.as_ref().unwrap().line);
+        // The bend is searched at or below the virgin line's first point, and found there or below.
+        let first_virgin = r.cc.as_ref().unwrap().points[0];
+        assert_eq!(c.bend_search_points.last(), Some(&first_virgin));
+        assert!(c.max_curvature_stress_kpa <= r.points[first_virgin].stress_kpa * (1.0 + 1e-12));
+        let json = serde_json::to_value(&r).unwrap();
+        for key in ["index", "points", "line"] {
+            assert!(json["cc"].get(key).is_some(), "cc.{key}");
+        }
+        for key in [
+            "sigma_p_kpa",
+            "max_curvature_stress_kpa",
+            "max_curvature_e",
+            "tangent",
+            "bisector",
+            "virgin",
+            "e_per_log_cycle",
+            "curve_points",
+            "bend_search_points",
+        ] {
+            assert!(json["sigma_p_casagrande"].get(key).is_some(), "sigma_p_casagrande.{key}");
+        }
+        for key in ["sigma_p_kpa", "points", "early", "late"] {
+            assert!(json["sigma_p_work"].get(key).is_some(), "sigma_p_work.{key}");
+        }
+        assert!(json["sigma_p_casagrande"]["tangent"]["slope"].is_f64());
+    }
+
+    #[test]
+    fn straightness_and_run_length_rules_decide_the_virgin_points() {
+        // Synthetic (computed): Cr = 0.04 to 200 kPa, then steps of 0.40, 0.40 and `third` per log cycle to 400,
+        // 800 and 1600 kPa, then 0.20 to 3200 kPa. A run is straight when every step is within 10 % of its fitted
+        // slope; a longer straight run replaces the steepest when within 2 % of its slope. With third = 0.38 the
+        // four points 200 … 1600 fit 0.394 (least squares by hand: steps equal in log σ′, so the slope is
+        // (3·s1 + 4·s2 + 3·s3)/10 of the steps' slopes), every step is within 4 % of it and it is 1.5 % below the
+        // 0.40 of 200 … 800: the four are taken. With third = 0.34 the fit is 0.382 and 0.34 is 11 % off: the run
+        // stops at 800 kPa, Cc = 0.40.
+        let states = |third: f64| -> Vec<(f64, f64)> {
+            let slopes = [0.04, 0.04, 0.04, 0.04, 0.40, 0.40, third, 0.20];
+            let mut e = 1.2;
+            [25.0, 50.0, 100.0, 200.0, 400.0, 800.0, 1600.0, 3200.0]
+                .iter()
+                .zip(slopes)
+                .map(|(&s, c)| {
+                    e -= c * 2f64.log10();
+                    (s, e)
+                })
+                .collect()
+        };
+        let r = reduce_states(&states(0.38), 12.5, &end_of_increment());
+        let cc = r.cc.as_ref().unwrap();
+        assert_eq!(stresses_of(&r, &cc.points), vec![200.0, 400.0, 800.0, 1600.0]);
+        assert!((cc.index - (3.0 * 0.4 + 4.0 * 0.4 + 3.0 * 0.38) / 10.0).abs() < 1e-9, "Cc {}", cc.index);
+        let r = reduce_states(&states(0.34), 12.5, &end_of_increment());
+        let cc = r.cc.as_ref().unwrap();
+        assert_eq!(stresses_of(&r, &cc.points), vec![200.0, 400.0, 800.0]);
+        assert!((cc.index - 0.4).abs() < 1e-9);
+        assert!(!r.flags.iter().any(|f| matches!(f, Flag::FewVirginPoints { .. } | Flag::NoStraightVirginRun { .. })));
+        // Asking for four points: none straight on the steep part, so the three are used and flagged.
+        let four = CompressionParams { virgin_points: 4, ..end_of_increment() };
+        let r = reduce_states(&states(0.34), 12.5, &four);
+        assert_eq!(r.cc.as_ref().unwrap().points.len(), 3);
+        assert!(r.flags.contains(&Flag::NoStraightVirginRun { wanted: 4 }));
+        assert!(r.flags.contains(&Flag::FewVirginPoints { points: 3 }));
+    }
+
+    #[test]
+    fn a_sigma_p_that_cannot_be_constructed_inside_the_data_is_none_with_a_flag() {
+        // 1. Normally consolidated from the seating stress (synthetic: e = 1.2 − 0.3·log10(σ′/12.5)): the virgin
+        // line starts at the first load, so there is no bend below it; with doubling stresses W is one exact line
+        // in σ′ (ΔW = 1.5·σ′before·Δε, computed), so the work method finds no steeper late line either.
+        let nc: Vec<(f64, f64)> =
+            DOUBLING_TO_12800[..8].iter().map(|&s| (s, 1.2 - 0.3 * (s / 12.5f64).log10())).collect();
+        let r = reduce_states(&nc, 12.5, &end_of_increment());
+        assert!((r.cc.as_ref().unwrap().index - 0.3).abs() < 1e-9 && r.cc.as_ref().unwrap().points.len() == 8);
+        assert!(r.sigma_p_casagrande.is_none() && r.sigma_p_work.is_none());
+        assert!(r.flags.contains(&Flag::PreconsolidationNoBend { method: "Casagrande" }), "{:?}", r.flags);
+        assert!(r.flags.contains(&Flag::PreconsolidationNoBend { method: "work" }), "{:?}", r.flags);
+        // 2. Invented e 1.159, 1.025, 0.899, 0.849 at 25 … 200 kPa from e0 = 1.2 at 12.5 kPa: the steepest run is
+        // 25 … 100 kPa, from the first load, so Casagrande has no bend below it. The work lines — seating and
+        // 25 kPa, 50 and 100 kPa (the virgin line's last point ends the sum) — meet below the first load, at the
+        // value computed here by hand, so the work σ′p is dropped and the flag carries it.
+        let states = [(25.0, 1.159), (50.0, 1.025), (100.0, 0.899), (200.0, 0.849)];
+        let r = reduce_states(&states, 12.5, &end_of_increment());
+        let strain = |e: f64| (1.2 - e) / 2.2;
+        let w1 = 0.5 * (12.5 + 25.0) * strain(1.159);
+        let w2 = w1 + 0.5 * (25.0 + 50.0) * (strain(1.025) - strain(1.159));
+        let w3 = w2 + 0.5 * (50.0 + 100.0) * (strain(0.899) - strain(1.025));
+        let (early, late) = (w1 / 12.5, (w3 - w2) / 50.0);
+        let meet = (w2 - late * 50.0 + early * 12.5) / (early - late);
+        assert!(meet > 0.0 && meet < 25.0, "hand value {meet}");
+        assert!(r.sigma_p_casagrande.is_none() && r.sigma_p_work.is_none());
+        assert!(r.flags.contains(&Flag::PreconsolidationNoBend { method: "Casagrande" }), "{:?}", r.flags);
+        let flagged = r.flags.iter().find_map(|f| match f {
+            Flag::PreconsolidationOutsideData { method: "work", sigma_p_kpa } => Some(*sigma_p_kpa),
+            _ => None,
+        });
+        assert!(flagged.is_some_and(|s| (s - meet).abs() < 1e-9 * meet), "{flagged:?} vs {meet}");
+        // 3. A specimen that swells under every load: no virgin line, no σ′p.
+        let swelling: Vec<(f64, f64)> =
+            DOUBLING_TO_12800[..5].iter().map(|&s| (s, 1.2 + 0.01 * (s / 12.5f64).log10())).collect();
+        let r = reduce_states(&swelling, 12.5, &end_of_increment());
+        assert!(r.cc.is_none() && r.sigma_p_casagrande.is_none() && r.sigma_p_work.is_none());
+        assert!(r.flags.contains(&Flag::NoVirginLine), "{:?}", r.flags);
+        assert!(r.flags.contains(&Flag::PreconsolidationNoBend { method: "Casagrande" }), "{:?}", r.flags);
+    }
+
+    /// Whether the flags say why σ′p by `method` is missing.
+    fn sigma_p_flagged(flags: &[Flag], method: &str) -> bool {
+        flags.iter().any(|f| match f {
+            Flag::PreconsolidationUndetermined { method: m }
+            | Flag::PreconsolidationNoBend { method: m }
+            | Flag::PreconsolidationNoIntersection { method: m }
+            | Flag::PreconsolidationOutsideData { method: m, .. } => *m == method,
+            _ => false,
+        })
+    }
+
+    /// A random test: a monotone loading curve (stress ratios 1.25–2.5, e falling by 0–0.09 per step) with, after
+    /// loading step `loop_after` when it is inside the test, an unload–reload cycle that swells by up to 0.03 per
+    /// step and recompresses by at most what it swelled, reloading back to (not past) the peak.
+    fn random_test(
+        seating: f64,
+        steps: &[(f64, f64)],
+        loop_after: usize,
+        unload: &[(f64, f64)],
+    ) -> (Vec<(f64, f64)>, Vec<f64>) {
+        let (mut stress, mut e) = (seating, 1.2);
+        let mut states = Vec::new();
+        let mut loading = Vec::new();
+        for (k, &(ratio, drop)) in steps.iter().enumerate() {
+            stress *= ratio;
+            e -= drop;
+            states.push((stress, e));
+            loading.push(stress);
+            if k == loop_after {
+                let (peak, e_peak) = (stress, e);
+                let (mut s, mut swell) = (peak, 0.0);
+                let mut down = Vec::new();
+                for &(ratio, de) in unload {
+                    s /= ratio;
+                    swell += de;
+                    states.push((s, e_peak + swell));
+                    down.push(s);
+                }
+                for (j, &s) in down.iter().rev().skip(1).chain([peak].iter()).enumerate() {
+                    let back = swell * (j + 1) as f64 / down.len() as f64;
+                    states.push((s, e_peak + swell - back));
+                }
+            }
+        }
+        (states, loading)
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(1024))]
+
+        #[test]
+        fn sigma_p_is_inside_the_loading_stresses_or_absent_with_a_flag(
+            seating in 1.0f64..20.0,
+            steps in prop::collection::vec((1.25f64..2.5, 0.0f64..0.09), 2..12),
+            loop_after in 0usize..14,
+            unload in prop::collection::vec((1.5f64..4.0, 0.0f64..0.03), 1..4),
+        ) {
+            let (states, loading) = random_test(seating, &steps, loop_after, &unload);
+            let r = reduce_states(&states, seating, &end_of_increment());
+            let (low, high) = (loading[0] * (1.0 - 1e-12), loading[loading.len() - 1] * (1.0 + 1e-12));
+            if let Some(cc) = &r.cc {
+                prop_assert!(cc.index > 0.0 && cc.points.len() >= 2);
+                prop_assert!(cc.points.iter().all(|&i| r.points[i].branch == Branch::Loading));
+            }
+            match &r.sigma_p_casagrande {
+                Some(c) => {
+                    prop_assert!(c.sigma_p_kpa > 0.0 && c.sigma_p_kpa >= low && c.sigma_p_kpa <= high, "{}", c.sigma_p_kpa);
+                    let xm = c.max_curvature_stress_kpa.log10();
+                    prop_assert!((c.tangent.at(xm) - c.max_curvature_e).abs() < 1e-9);
+                    prop_assert!((c.bisector.at(xm) - c.max_curvature_e).abs() < 1e-9);
+                    let xp = c.sigma_p_kpa.log10();
+                    prop_assert!((c.virgin.at(xp) - c.bisector.at(xp)).abs() < 1e-9);
+                    let first = r.cc.as_ref().unwrap().points[0];
+                    prop_assert!(c.max_curvature_stress_kpa <= r.points[first].stress_kpa * (1.0 + 1e-12));
+                }
+                None => prop_assert!(sigma_p_flagged(&r.flags, "Casagrande"), "{:?}", r.flags),
+            }
+            match &r.sigma_p_work {
+                Some(w) => {
+                    prop_assert!(w.sigma_p_kpa > 0.0 && w.sigma_p_kpa >= low && w.sigma_p_kpa <= high, "{}", w.sigma_p_kpa);
+                    let first_unload = r.points.iter().position(|p| p.branch == Branch::Unloading).unwrap_or(usize::MAX);
+                    prop_assert!(w.points.iter().all(|p| p.increment.is_none_or(|i| i < first_unload)));
+                }
+                None => prop_assert!(sigma_p_flagged(&r.flags, "work"), "{:?}", r.flags),
+            }
+        }
     }
 
     proptest! {

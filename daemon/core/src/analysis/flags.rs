@@ -112,13 +112,32 @@ pub enum Flag {
         /// Which method.
         method: &'static str,
     },
-    /// The σ′p construction lands outside the applied stresses.
+    /// The σ′p construction lands outside the loading stresses it used; no σ′p is reported.
     PreconsolidationOutsideData {
         /// Which method.
         method: &'static str,
         /// Where it landed.
         sigma_p_kpa: f64,
     },
+    /// No bend into a steeper (virgin) line: the curve never steepens before the virgin run (Casagrande), or
+    /// no later line is steeper than the early one (work).
+    PreconsolidationNoBend {
+        /// Which method.
+        method: &'static str,
+    },
+    /// The construction's lines do not meet (parallel to rounding).
+    PreconsolidationNoIntersection {
+        /// Which method.
+        method: &'static str,
+    },
+    /// No run of the wanted length on the steep part of the loading branch lies on a straight line; Cc is
+    /// from a shorter run.
+    NoStraightVirginRun {
+        /// Points wanted in the run.
+        wanted: usize,
+    },
+    /// e does not fall along any run of loading points: no virgin line, Cc undetermined.
+    NoVirginLine,
     /// No end-of-primary settlement for an increment; its end-of-increment value was used.
     EndOfPrimaryMissing {
         /// The increment's stress.
@@ -161,6 +180,10 @@ impl Flag {
             Flag::NoUnloadReload => "no_unload_reload",
             Flag::PreconsolidationUndetermined { .. } => "preconsolidation_undetermined",
             Flag::PreconsolidationOutsideData { .. } => "preconsolidation_outside_data",
+            Flag::PreconsolidationNoBend { .. } => "preconsolidation_no_bend",
+            Flag::PreconsolidationNoIntersection { .. } => "preconsolidation_no_intersection",
+            Flag::NoStraightVirginRun { .. } => "no_straight_virgin_run",
+            Flag::NoVirginLine => "no_virgin_line",
             Flag::EndOfPrimaryMissing { .. } => "end_of_primary_missing",
             Flag::TemperatureOutsideTable { .. } => "temperature_outside_table",
         }
@@ -235,8 +258,22 @@ impl fmt::Display for Flag {
             }
             Flag::PreconsolidationOutsideData { method, sigma_p_kpa } => write!(
                 f,
-                "σ′p ({method}) = {sigma_p_kpa:.0} kPa lies outside the applied stresses: treat as a bound only"
+                "σ′p ({method}): the construction lands at {sigma_p_kpa:.3} kPa, outside the loading stresses it \
+                 used: not reported (at most a bound)"
             ),
+            Flag::PreconsolidationNoBend { method } => {
+                write!(f, "σ′p ({method}): no bend into a steeper virgin line found, undetermined")
+            }
+            Flag::PreconsolidationNoIntersection { method } => {
+                write!(f, "σ′p ({method}): the construction lines do not meet, undetermined")
+            }
+            Flag::NoStraightVirginRun { wanted } => write!(
+                f,
+                "no {wanted} consecutive loading points on the steep part lie on a straight line: Cc from fewer"
+            ),
+            Flag::NoVirginLine => {
+                f.write_str("e does not fall along the loading points: no virgin line, Cc undetermined")
+            }
             Flag::EndOfPrimaryMissing { stress_kpa } => {
                 write!(f, "no end of primary at {stress_kpa} kPa: end-of-increment settlement used")
             }
