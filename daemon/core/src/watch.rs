@@ -278,6 +278,28 @@ struct LevelChange {
     to_kn: f64,
 }
 
+/// Where a collinear secondary line starts on a clean curve, over the end of primary: on an exact Terzaghi
+/// primary with creep of a few per cent of the primary per log cycle, the primary's tail keeps the curve
+/// bending until about 1.6·t100 [ref: eop-detection, computed: `oedolog replay` of such a curve].
+const SECONDARY_START_OVER_T100: f64 = 1.6;
+
+/// When the ready rule of [`FrameWatch::evaluate`] will first hold, minutes from the onset — the board's
+/// ETA: the secondary line must begin after Taylor's t100 and span the rule's log cycles, and t must be
+/// past both constructions' t100 (with their 5 % margins) and the shortest hold. Before a secondary line
+/// is seen, its start is taken at [`SECONDARY_START_OVER_T100`] times the best t100 known so far.
+fn ready_eta_min(r: &IncrementReduction, params: &WatchParams) -> Option<f64> {
+    let taylor_t100 = r.taylor.t90_min.map(|t90| T100_OVER_T90 * t90);
+    let casagrande_t100 = r.casagrande.t100_min;
+    let t100 = casagrande_t100.or(taylor_t100)?;
+    let start = match r.casagrande.secondary.as_ref() {
+        Some(s) if taylor_t100.is_none_or(|t| s.t_start_min >= t) => s.t_start_min,
+        _ => SECONDARY_START_OVER_T100 * t100.max(taylor_t100.unwrap_or(0.0)),
+    };
+    let secondary_done = start * 10f64.powf(params.reduction.min_secondary_decades);
+    let past = 1.05 * casagrande_t100.unwrap_or(0.0).max(taylor_t100.unwrap_or(0.0));
+    Some(secondary_done.max(past).max(params.min_hold_s as f64 / 60.0))
+}
+
 impl FrameWatch {
     /// A frame with no test.
     pub fn new(params: WatchParams) -> Self {
@@ -730,12 +752,12 @@ impl FrameWatch {
         };
         let r = live.result.as_ref();
         let t90 = r.and_then(|r| r.taylor.t90_min);
-        let t100 = r.and_then(|r| r.casagrande.t100_min).or(t90.map(|t| t * T100_OVER_T90));
         let ready_eta_us = match (self.params.rule, live.ready_us) {
             (_, Some(at)) => Some(at),
             (EopRule::FixedDuration { hold_s }, None) => Some(live.onset_us + hold_s as i64 * 1_000_000),
-            (EopRule::Constructions, None) => t100
-                .map(|t| live.onset_us + (t * 10f64.powf(self.params.reduction.min_secondary_decades) * 60e6) as i64),
+            (EopRule::Constructions, None) => {
+                r.and_then(|r| ready_eta_min(r, &self.params)).map(|t| live.onset_us + (t * 60e6) as i64)
+            }
         };
         WatchStatus {
             seq: Some(live.seq),
