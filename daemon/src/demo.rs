@@ -309,8 +309,8 @@ impl Technician {
             let now_s = self.clock.now_s();
             let hub = self.hub.clone();
             let Ok(status) = tokio::task::spawn_blocking(move || hub.status()).await else { return };
-            for index in 0..self.benches.len() {
-                self.visit(index, now_s, status[index].0).await;
+            for (index, (phase, _)) in status.into_iter().enumerate().take(self.benches.len()) {
+                self.visit(index, now_s, phase).await;
             }
         }
     }
