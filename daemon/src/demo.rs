@@ -199,7 +199,7 @@ pub async fn start(options: DemoOptions) -> Result<(Running, Arc<dyn Clock>), De
         &sim,
         sim_addr,
         &options,
-        crate::config::HttpConfig { listen: options.listen, users: options.users.clone() },
+        crate::config::HttpConfig { listen: options.listen, users: options.users.clone(), public_origins: Vec::new() },
     );
     let shared = Shared::new(sim, Arc::new(SimTime(scaled.clone())));
     tokio::spawn(serve_tcp(listener, shared.clone()));

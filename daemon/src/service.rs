@@ -174,6 +174,7 @@ pub fn assemble(config: &Config, clock: Arc<dyn Clock>, options: Options) -> Res
         users: Arc::new(config.http.users.clone()),
         caches: Default::default(),
         alarms,
+        guard: Arc::new(crate::http::Guard::new(config.http.listen, config.http.public_origins.clone())),
     };
     Ok(Assembled { state, keys, writer_thread, open_alarms })
 }
@@ -216,6 +217,7 @@ impl Assembled {
             .map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
         let http_addr =
             listener.local_addr().map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
+        state.guard.bound(http_addr);
         let sources = AlarmSources {
             live: live.clone(),
             lab: lab.clone(),

@@ -4,6 +4,7 @@
 import fs from "node:fs";
 import path from "node:path";
 import { openBrowser, repoRoot, startDemo } from "./demo.mjs";
+import { crossSiteAttack } from "./cross-site.mjs";
 
 const binary = path.resolve(process.argv[2] || path.join(repoRoot, "target/debug/oedolog"));
 const shots = path.join(repoRoot, "target/screenshots");
@@ -46,6 +47,8 @@ async function step(name, fn, timeoutMs = 45000) {
 const pageErrors = [];
 function watch(page, label) {
   page.on("pageerror", (e) => pageErrors.push(label + ": " + e.message));
+  // A script, style or connection the Content-Security-Policy blocked counts as a page error too.
+  page.on("console", (m) => { if (m.type() === "error" && /Content Security Policy/i.test(m.text())) pageErrors.push(label + ": " + m.text()); });
   return page;
 }
 
@@ -61,6 +64,16 @@ const api = (page, method, url, body) => page.evaluate(async ([m, u, b]) => {
   let data = null; try { data = await r.json(); } catch (e) { /* not JSON */ }
   return { status: r.status, data };
 }, [method, url, body]);
+
+// The demo's API as a script reads it (Node's fetch: no Origin, no Sec-Fetch-Site); `raw` answers the status.
+const scriptApi = (base, user) => async (p, init = {}, raw = false) => {
+  const headers = Object.assign({}, init.headers || {});
+  if (user) headers.Authorization = "Basic " + Buffer.from(user.username + ":" + user.password).toString("base64");
+  const r = await fetch(base + p, Object.assign({}, init, { headers }));
+  if (raw) return { status: r.status };
+  if (!r.ok) throw new Error(p + ": HTTP " + r.status + " " + (await r.text()).slice(0, 300));
+  return r.json();
+};
 
 if (!fs.existsSync(binary)) { console.error("browser suite: no daemon binary at " + binary + " (cargo build --bins first)"); process.exit(1); }
 
@@ -258,6 +271,25 @@ try {
   await demo.stop();
 }
 
+// ---- cross-site: another origin's page cannot act, without users --------------------------------------
+await step("a page on another origin cannot act (no users)", async () => {
+  const open = await startDemo({ binary, config: "[alarms]\ntemperature_band_c = [30.0, 40.0]\n", label: "demo for the cross-site attack" });
+  const browser = await openBrowser();
+  try {
+    const own = watch(await browser.newPage(), "cross-site (own page)");
+    await own.goto(open.base + "/");
+    const headers = (await own.goto(open.base + "/frame.html?id=F1")).headers();
+    check(/frame-ancestors 'none'/.test(headers["content-security-policy"] || "") && headers["x-frame-options"] === "DENY", "security headers: " + JSON.stringify(headers));
+    await own.waitForFunction(() => window.oedolog.frame && window.oedolog.charts && window.oedolog.charts.logt, null, { timeout: 20000 });
+    const r = await crossSiteAttack({ base: open.base, context: browser, api: scriptApi(open.base), check });
+    check(r.armed === 201, "a script (no Origin) could not arm: " + r.armed);
+    console.log("  cross-site, no users: " + r.targets + " routes, " + r.requests + " requests sent by Chromium, none acted");
+  } finally {
+    await browser.close();
+    await open.stop();
+  }
+}, 60000);
+
 // ---- access: a viewer reads and cannot act -----------------------------------------------------------
 await step("a viewer cannot act; an operator can, and acknowledges an alarm by name", async () => {
   let authDemo;
@@ -306,6 +338,12 @@ await step("a viewer cannot act; an operator can, and acknowledges an alarm by n
     const mine = (acked.data || []).find((a) => a.frame === "F1" && a.code === "temperature");
     check(mine && mine.acknowledged_by === OPERATOR.username, "the alarm is not acknowledged by the operator: " + JSON.stringify(mine));
     await o.screenshot({ path: path.join(shots, "alarm-acknowledged.png"), fullPage: false });
+
+    // The signed-in operator's browser opens another site's page: its forms and fetches carry the
+    // operator's cached credentials and still change nothing.
+    const attack = await crossSiteAttack({ base: authDemo.base, context: operator, api: scriptApi(authDemo.base, OPERATOR), check });
+    check(attack.armed === 201, "the operator's script could not arm: " + attack.armed);
+    console.log("  cross-site, signed-in operator: " + attack.targets + " routes, " + attack.requests + " requests, none acted");
   } finally {
     await viewer.close();
     await operator.close();

@@ -27,7 +27,7 @@ pub(crate) fn http(
 ) -> Result<(u16, String, String)> {
     let mut stream = TcpStream::connect(addr)?;
     stream.set_read_timeout(Some(Duration::from_secs(10)))?;
-    let mut head = format!("{method} {path} HTTP/1.1\r\nHost: test\r\nConnection: close\r\n");
+    let mut head = format!("{method} {path} HTTP/1.1\r\nHost: {addr}\r\nConnection: close\r\n");
     if let Some(a) = auth {
         head += &format!("Authorization: {a}\r\n");
     }
@@ -51,7 +51,7 @@ fn read_stream(addr: SocketAddr, auth: &str, last_event_id: i64, done: impl Fn(&
     stream.set_read_timeout(Some(Duration::from_secs(10)))?;
     write!(
         stream,
-        "GET /api/stream HTTP/1.1\r\nHost: test\r\nAuthorization: {auth}\r\nLast-Event-ID: {last_event_id}\r\n\r\n"
+        "GET /api/stream HTTP/1.1\r\nHost: {addr}\r\nAuthorization: {auth}\r\nLast-Event-ID: {last_event_id}\r\n\r\n"
     )?;
     let deadline = Instant::now() + Duration::from_secs(15);
     let mut text = String::new();

@@ -105,6 +105,79 @@ pub struct HttpConfig {
     pub listen: SocketAddr,
     /// Users; when any is configured every request must name one.
     pub users: Vec<User>,
+    /// `public_origins`: where a reverse proxy serves the daemon; requests from these origins and with
+    /// their hosts in `Host` are accepted besides the listen address's own.
+    pub public_origins: Vec<PublicOrigin>,
+}
+
+/// One of `[http] public_origins`: `scheme://host[:port]`, lower-cased, the port filled in from the scheme.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct PublicOrigin {
+    /// `http` or `https`.
+    pub scheme: String,
+    /// Name or IP address; an IPv6 address keeps its brackets.
+    pub host: String,
+    /// Given or the scheme's default (80, 443).
+    pub port: u16,
+}
+
+impl PublicOrigin {
+    /// Parses an origin as a browser sends it in `Origin`: a scheme, a host, an optional port, no path.
+    pub fn parse(text: &str) -> Result<PublicOrigin, String> {
+        let lower = text.trim().to_ascii_lowercase();
+        let (scheme, rest) = lower.split_once("://").ok_or("no scheme (allowed: http:// or https://)")?;
+        let default_port = match scheme {
+            "http" => 80,
+            "https" => 443,
+            other => return Err(format!("scheme `{other}` (allowed: http or https)")),
+        };
+        let authority = rest.strip_suffix('/').unwrap_or(rest);
+        if authority.contains(['/', '?', '#', '@']) {
+            return Err("has a path, query or user (allowed: scheme://host[:port] only)".into());
+        }
+        let (host, port) =
+            split_host_port(authority).ok_or("no valid host (allowed: a name, an IPv4 address or [IPv6])")?;
+        let port = match port {
+            None => default_port,
+            Some(p) => p.parse::<u16>().ok().filter(|&p| p > 0).ok_or(format!("port `{p}` (allowed: 1 to 65535)"))?,
+        };
+        Ok(PublicOrigin { scheme: scheme.into(), host: host.into(), port })
+    }
+}
+
+impl fmt::Display for PublicOrigin {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{}://{}", self.scheme, self.host)?;
+        if (self.scheme == "http" && self.port != 80) || (self.scheme == "https" && self.port != 443) {
+            write!(f, ":{}", self.port)?;
+        }
+        Ok(())
+    }
+}
+
+/// `host[:port]` into a host (a name of letters, digits, `-`, `.`; or an IPv6 address in brackets) and
+/// the port's text; `None` when the host is empty or malformed.
+pub fn split_host_port(authority: &str) -> Option<(&str, Option<&str>)> {
+    let (host, port) = if authority.starts_with('[') {
+        let end = authority.find(']')?;
+        let (host, rest) = authority.split_at(end + 1);
+        host[1..end].parse::<std::net::Ipv6Addr>().ok()?;
+        match rest {
+            "" => (host, None),
+            _ => (host, Some(rest.strip_prefix(':')?)),
+        }
+    } else {
+        match authority.split_once(':') {
+            Some((h, p)) => (h, Some(p)),
+            None => (authority, None),
+        }
+    };
+    let name_ok = host.starts_with('[')
+        || (!host.is_empty() && host.bytes().all(|b| b.is_ascii_alphanumeric() || b == b'-' || b == b'.'));
+    if !name_ok || port.is_some_and(|p| p.is_empty() || !p.bytes().all(|b| b.is_ascii_digit())) {
+        return None;
+    }
+    Some((host, port))
 }
 
 /// What a user may do.
@@ -757,6 +830,20 @@ fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
         }),
     };
     let users = check_users(c, &raw.http);
+    let mut public_origins = Vec::new();
+    for (i, origin) in raw.http.public_origins.iter().enumerate() {
+        match PublicOrigin::parse(origin.get_ref()) {
+            Ok(o) => public_origins.push(o),
+            Err(why) => c.at(
+                origin.span(),
+                format!("http.public_origins[{i}]"),
+                format!(
+                    "`{}` is not an origin: {why} (allowed: scheme://host[:port], e.g. https://lab.example.org)",
+                    origin.get_ref()
+                ),
+            ),
+        }
+    }
 
     let log = LogConfig {
         dir: raw.log.dir.map(|d| PathBuf::from(d.into_inner())),
@@ -820,7 +907,7 @@ fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
     }
     let notify = check_notify(c, &raw.notify);
     let alarms = check_alarms(c, &raw.alarms);
-    Config { store, http: HttpConfig { listen, users }, log, buses, frames, notify, alarms }
+    Config { store, http: HttpConfig { listen, users, public_origins }, log, buses, frames, notify, alarms }
 }
 
 /// `[alarms]`: each threshold within a range that still makes sense; defaults for the rest.

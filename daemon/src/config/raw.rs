@@ -51,6 +51,10 @@ pub(crate) struct RawStore {
 pub(crate) struct RawHttp {
     /// Listen address (default 127.0.0.1:8321).
     pub listen: Option<Spanned<String>>,
+    /// Origins a reverse proxy serves the dashboard under (`https://lab.example.org`); their hosts are
+    /// also accepted in `Host`.
+    #[serde(default)]
+    pub public_origins: Vec<Spanned<String>>,
     /// People and scripts allowed in; with none, only a loopback address may be used.
     #[serde(default, rename = "user")]
     pub users: Vec<Spanned<RawUser>>,

@@ -476,3 +476,38 @@ fn the_sample_webhook_example_is_valid_once_uncommented() {
     assert_eq!(config.notify.webhooks[0].events, vec![NotifyEvent::Ready, NotifyEvent::Alarm]);
     assert!(Config::parse(SAMPLE, Purpose::Run).unwrap().notify.webhooks.is_empty(), "commented out in the sample");
 }
+
+#[test]
+fn public_origins_are_scheme_host_and_port_only_and_refused_at_their_line() {
+    let head = format!("{BASE}\n[http]\n");
+    let base_lines = head.lines().count();
+    let ok = format!(
+        "{head}public_origins = [\"https://Lab.Example.org\", \"http://10.1.2.3:8080/\", \"http://[::1]:9\"]\n"
+    );
+    let config = Config::parse(&ok, Purpose::Run).unwrap_or_else(|e| panic!("{e}"));
+    let shown: Vec<String> = config.http.public_origins.iter().map(|o| o.to_string()).collect();
+    assert_eq!(shown, ["https://lab.example.org", "http://10.1.2.3:8080", "http://[::1]:9"]);
+    assert_eq!(config.http.public_origins[0].port, 443);
+    for (bad, words) in [
+        ("lab.example.org", "no scheme"),
+        ("ftp://lab.example.org", "scheme `ftp`"),
+        ("https://lab.example.org/oedolog", "path"),
+        ("https://user@lab.example.org", "path, query or user"),
+        ("https://", "no valid host"),
+        ("https://lab.example.org:99999", "port `99999`"),
+        ("https://lab example.org", "no valid host"),
+    ] {
+        let text = format!("{head}public_origins = [\n  \"https://fine.example.org\",\n  \"{bad}\",\n]\n");
+        let error = Config::parse(&text, Purpose::Run).expect_err(bad);
+        let problem = error
+            .problems
+            .iter()
+            .find(|p| p.field == "http.public_origins[1]")
+            .unwrap_or_else(|| panic!("{bad}: {error}"));
+        assert!(
+            problem.message.contains(words) && problem.message.contains("scheme://host[:port]"),
+            "{bad}: {problem}"
+        );
+        assert_eq!(problem.line, base_lines + 3, "{bad}: {problem}");
+    }
+}

@@ -36,6 +36,22 @@ pub enum ApiError {
     /// Not JSON: 415.
     #[error("{0}")]
     UnsupportedMediaType(String),
+    /// An action without `Content-Type: application/json` (what it got): 415 naming `Content-Type`.
+    #[error("an action needs a JSON body with `Content-Type: application/json` (got {0})")]
+    BadContentType(String),
+    /// A cross-site action, by the header that shows it: 403 naming that header.
+    #[error("{error}")]
+    CrossSite {
+        /// `Sec-Fetch-Site` or `Origin`.
+        header: &'static str,
+        /// What is wrong.
+        error: String,
+        /// What is allowed there.
+        allowed: String,
+    },
+    /// A `Host` that does not name this daemon: 421 naming `Host`.
+    #[error("{0}")]
+    MisdirectedHost(String),
     /// No such frame, test, increment or file: 404.
     #[error("{0}")]
     NotFound(String),
@@ -69,6 +85,9 @@ impl ApiError {
             ApiError::BadRequest { .. } => StatusCode::BAD_REQUEST,
             ApiError::Invalid { .. } => StatusCode::UNPROCESSABLE_ENTITY,
             ApiError::UnsupportedMediaType(_) => StatusCode::UNSUPPORTED_MEDIA_TYPE,
+            ApiError::BadContentType(_) => StatusCode::UNSUPPORTED_MEDIA_TYPE,
+            ApiError::CrossSite { .. } => StatusCode::FORBIDDEN,
+            ApiError::MisdirectedHost(_) => StatusCode::MISDIRECTED_REQUEST,
             ApiError::NotFound(_) => StatusCode::NOT_FOUND,
             ApiError::Conflict(_) => StatusCode::CONFLICT,
             ApiError::Unauthorized => StatusCode::UNAUTHORIZED,
@@ -99,6 +118,19 @@ impl IntoResponse for ApiError {
             ApiError::Invalid { error, field, allowed } => {
                 Body { error: error.clone(), field: Some(field), allowed: Some(allowed) }
             }
+            ApiError::BadContentType(_) => Body {
+                error: self.to_string(),
+                field: Some("Content-Type"),
+                allowed: Some("application/json (send `{}` where the action takes no values)"),
+            },
+            ApiError::CrossSite { header, error, allowed } => {
+                Body { error: error.clone(), field: Some(header), allowed: Some(allowed) }
+            }
+            ApiError::MisdirectedHost(error) => Body {
+                error: error.clone(),
+                field: Some("Host"),
+                allowed: error.split_once("(allowed: ").map(|(_, a)| a.trim_end_matches(')')),
+            },
             other => Body { error: other.to_string(), field: None, allowed: None },
         };
         let mut response = (status, axum::Json(body)).into_response();

@@ -14,6 +14,7 @@ mod error;
 mod events;
 mod export;
 mod frames;
+mod guard;
 mod increments;
 mod lab_book;
 mod metrics;
@@ -45,6 +46,7 @@ pub use auth::{Caller, constant_time_eq};
 pub use cache::Caches;
 pub use error::ApiError;
 pub use frames::{FrameView, frame_state};
+pub use guard::Guard;
 pub use increments::{STANDARD_GRAVITY_M_PER_S2, hanger_stress_kpa};
 
 /// What the handlers share.
@@ -74,6 +76,8 @@ pub struct AppState {
     pub caches: Arc<Caches>,
     /// The open alarms.
     pub alarms: crate::alarms::AlarmBoard,
+    /// Which `Host` and `Origin` name this daemon.
+    pub guard: Arc<Guard>,
 }
 
 thread_local! {
@@ -201,6 +205,9 @@ pub fn router(state: AppState) -> Router {
         .fallback(web::fallback)
         .layer(axum::middleware::from_fn_with_state(state.clone(), auth::require_user))
         .layer(axum::middleware::from_fn_with_state(state.clone(), drop_snapshots_after_actions))
+        // Outside the access check and the snapshot drop: a foreign or cross-site request changes nothing.
+        .layer(axum::middleware::from_fn_with_state(state.clone(), guard::refuse_foreign))
+        .layer(axum::middleware::from_fn(guard::security_headers))
         // gzip where the client asks for it (the page is ~116 KB); the default predicate leaves event streams,
         // images and tiny answers alone, so SSE is never buffered.
         .layer(tower_http::compression::CompressionLayer::new())

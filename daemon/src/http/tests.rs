@@ -108,6 +108,10 @@ fn request(method: &str, path: &str, body: Option<Value>, who: Who) -> Request<B
     }
     match body {
         Some(b) => builder.header(header::CONTENT_TYPE, "application/json").body(Body::from(b.to_string())).unwrap(),
+        // An action without values sends `{}` as JSON, as the dashboard does.
+        None if !matches!(method, "GET" | "HEAD") => {
+            builder.header(header::CONTENT_TYPE, "application/json").body(Body::from("{}")).unwrap()
+        }
         None => builder.body(Body::empty()).unwrap(),
     }
 }
@@ -924,4 +928,224 @@ async fn the_page_and_json_are_gzipped_for_a_client_that_asks_and_event_streams_
     let response = router(b.state.clone()).oneshot(gzip("/api/stream")).await.unwrap();
     assert_eq!(response.headers()[header::CONTENT_TYPE], "text/event-stream");
     assert!(response.headers().get(header::CONTENT_ENCODING).is_none(), "an event stream is never buffered");
+}
+
+/// Starts a test on F1 with 25 kPa armed and raises a stale alarm on it; answers the alarm's id.
+async fn armed_with_an_open_alarm(b: &Bench, who: Who) -> i64 {
+    use crate::alarms::task::{AlarmSources, AlarmTask, FrameFacts};
+    let s = &b.state;
+    let (status, _, text) = send(s, request("POST", "/api/frames/F1/tests", Some(specimen()), who)).await;
+    assert_eq!(status, StatusCode::CREATED, "{text}");
+    let (status, _, text) =
+        send(s, request("POST", "/api/frames/F1/increments", Some(json!({"stress_kpa": 25.0})), who)).await;
+    assert_eq!(status, StatusCode::CREATED, "{text}");
+    let sources = AlarmSources {
+        live: s.live.clone(),
+        lab: s.lab.clone(),
+        hub: s.hub.clone(),
+        clock: s.clock.clone(),
+        writer: s.writer.clone(),
+        stale_after: s.stale_after.clone(),
+        keys: vec![s.lab.key(0), s.lab.key(1)],
+        facts: FrameFacts {
+            travel_mm: s.frames.iter().map(|f| f.displacement.range.clone()).collect(),
+            has_temperature: vec![false, false],
+            bus_of: vec!["sim".into(), "sim".into()],
+            buses: vec!["sim".into()],
+        },
+    };
+    let mut task = AlarmTask::new(sources, Default::default(), s.alarms.clone(), Vec::new());
+    b.clock.advance_us(31_000_000);
+    assert_eq!(task.tick().await, 1, "a stale alarm on F1");
+    let (_, _, text) = send(s, request("GET", "/api/alarms", None, who)).await;
+    let open: Value = serde_json::from_str(&text).unwrap();
+    open[0]["id"].as_i64().unwrap()
+}
+
+/// Every action route, with a valid JSON body (on a bench from `armed_with_an_open_alarm`).
+fn actions(alarm: i64) -> Vec<(String, Value)> {
+    vec![
+        ("/api/frames/F2/tests".into(), specimen()),
+        ("/api/frames/F1/increments".into(), json!({"stress_kpa": 50.0})),
+        ("/api/frames/F1/increments/current/applied".into(), json!({})),
+        ("/api/frames/F1/reseat".into(), json!({"accept": true})),
+        ("/api/frames/F1/notes".into(), json!({"text": "from elsewhere"})),
+        (format!("/api/alarms/{alarm}/acknowledge"), json!({})),
+        ("/api/frames/F1/tests/current/finish".into(), json!({})),
+    ]
+}
+
+/// What an action could have changed: rows, journal entries, the test states and the alarm's acknowledgement.
+async fn footprint(b: &Bench, who: Who) -> (i64, i64, i64, String, String) {
+    settle(b);
+    let (_, _, alarms) = send(&b.state, request("GET", "/api/alarms", None, who)).await;
+    let alarms: Value = serde_json::from_str(&alarms).unwrap();
+    let (_, _, frames) = send(&b.state, request("GET", "/api/frames", None, who)).await;
+    let frames: Value = serde_json::from_str(&frames).unwrap();
+    let states: Vec<String> = frames.as_array().unwrap().iter().map(|f| f["test"].to_string()).collect();
+    (
+        count(&b.state, Table::Tests),
+        count(&b.state, Table::Increments),
+        count(&b.state, Table::Events),
+        alarms[0]["acknowledged_by"].to_string() + &alarms[0]["acknowledged_at"].to_string(),
+        states.join("|"),
+    )
+}
+
+fn with_auth(builder: axum::http::request::Builder, who: Who) -> axum::http::request::Builder {
+    match who {
+        Who::Operator => builder.header(header::AUTHORIZATION, format!("Bearer {OPERATOR_TOKEN}")),
+        _ => builder,
+    }
+}
+
+#[tokio::test]
+async fn actions_need_json_and_refuse_other_types_changing_nothing() {
+    for (users, who) in [(false, Who::Nobody), (true, Who::Operator)] {
+        let b = bench(users);
+        let alarm = armed_with_an_open_alarm(&b, who).await;
+        let before = footprint(&b, who).await;
+        for (path, body) in actions(alarm) {
+            for content_type in [
+                Some("application/x-www-form-urlencoded"),
+                Some("text/plain"),
+                Some("multipart/form-data; boundary=x"),
+                None,
+            ] {
+                let mut req = with_auth(Request::post(path.as_str()), who);
+                if let Some(t) = content_type {
+                    req = req.header(header::CONTENT_TYPE, t);
+                }
+                let text_body = if content_type == Some("application/x-www-form-urlencoded") {
+                    "text=x&stress_kpa=50".to_string()
+                } else {
+                    body.to_string()
+                };
+                let (status, _, text) = send(&b.state, req.body(Body::from(text_body)).unwrap()).await;
+                assert_eq!(status, StatusCode::UNSUPPORTED_MEDIA_TYPE, "{path} {content_type:?}: {text}");
+                let error: Value = serde_json::from_str(&text).unwrap();
+                assert_eq!(error["field"], "Content-Type", "{text}");
+                assert!(error["allowed"].as_str().unwrap().contains("application/json"), "{text}");
+            }
+            // An empty body without a type (what a bare `curl -X POST` sends) too.
+            let (status, _, _) =
+                send(&b.state, with_auth(Request::post(path.as_str()), who).body(Body::empty()).unwrap()).await;
+            assert_eq!(status, StatusCode::UNSUPPORTED_MEDIA_TYPE, "{path}");
+        }
+        assert_eq!(footprint(&b, who).await, before, "users: {users}: nothing changed");
+        // With JSON the same actions go through: the alarm is acknowledged, the load applied.
+        let ack = format!("/api/alarms/{alarm}/acknowledge");
+        let (status, _, text) = send(&b.state, request("POST", &ack, Some(json!({})), who)).await;
+        assert_eq!(status, StatusCode::OK, "{text}");
+        let (status, _, text) =
+            send(&b.state, request("POST", "/api/frames/F1/increments/current/applied", Some(json!({})), who)).await;
+        assert_eq!(status, StatusCode::OK, "{text}");
+        assert_ne!(footprint(&b, who).await, before, "the JSON actions changed something");
+    }
+}
+
+#[tokio::test]
+async fn cross_site_actions_are_refused_by_fetch_site_and_origin_changing_nothing() {
+    let own = "127.0.0.1:8321";
+    for (users, who) in [(false, Who::Nobody), (true, Who::Operator)] {
+        let b = bench(users);
+        let state = AppState { guard: Arc::new(Guard::new(own.parse().unwrap(), Vec::new())), ..b.state.clone() };
+        let alarm = armed_with_an_open_alarm(&b, who).await;
+        let before = footprint(&b, who).await;
+        let foreign: [(&str, &str, &str); 6] = [
+            ("sec-fetch-site", "cross-site", "Sec-Fetch-Site"),
+            ("sec-fetch-site", "same-site", "Sec-Fetch-Site"),
+            ("origin", "http://evil.example", "Origin"),
+            ("origin", "http://127.0.0.1:9999", "Origin"),
+            ("origin", "null", "Origin"),
+            ("origin", "https://127.0.0.1:8321", "Origin"),
+        ];
+        for (path, body) in actions(alarm) {
+            for (name, value, field) in foreign {
+                let req = with_auth(Request::post(path.as_str()), who)
+                    .header(header::HOST, own)
+                    .header(header::CONTENT_TYPE, "application/json")
+                    .header(name, value)
+                    .body(Body::from(body.to_string()))
+                    .unwrap();
+                let (status, headers, text) = send(&state, req).await;
+                assert_eq!(status, StatusCode::FORBIDDEN, "{path} {name}: {value}: {text}");
+                let error: Value = serde_json::from_str(&text).unwrap();
+                assert_eq!(error["field"], field, "{text}");
+                assert!(error["allowed"].is_string() && error["error"].as_str().unwrap().contains(value), "{text}");
+                assert_eq!(headers["x-frame-options"], "DENY", "errors carry the security headers");
+            }
+        }
+        assert_eq!(footprint(&b, who).await, before, "users: {users}: nothing changed");
+        // From the daemon's own page (as Chromium sends it) the action goes through.
+        let req = with_auth(Request::post(format!("/api/alarms/{alarm}/acknowledge")), who)
+            .header(header::HOST, own)
+            .header(header::ORIGIN, format!("http://{own}"))
+            .header("sec-fetch-site", "same-origin")
+            .header(header::CONTENT_TYPE, "application/json")
+            .body(Body::from("{}"))
+            .unwrap();
+        let (status, _, text) = send(&state, req).await;
+        assert_eq!(status, StatusCode::OK, "{text}");
+        // Reading cross-site (a link to the dashboard from another site) is still allowed.
+        let req = Request::get("/api/frames").header(header::HOST, own).header("sec-fetch-site", "cross-site");
+        assert_eq!(send(&state, with_auth(req, who).body(Body::empty()).unwrap()).await.0, StatusCode::OK);
+    }
+}
+
+#[tokio::test]
+async fn a_foreign_host_is_refused_and_public_origins_are_accepted() {
+    let b = bench(false);
+    let public = vec![crate::config::PublicOrigin::parse("https://lab.example.org").unwrap()];
+    let state = AppState { guard: Arc::new(Guard::new("127.0.0.1:8321".parse().unwrap(), public)), ..b.state.clone() };
+    let tests_before = count(&b.state, Table::Tests);
+    for host in ["rebound.evil.example:8321", "127.0.0.1:8322", "localhost", "lab.example.org:8443"] {
+        for (method, path, body) in [("GET", "/api/frames", None), ("POST", "/api/frames/F1/tests", Some(specimen()))] {
+            let mut req = request(method, path, body, Who::Nobody);
+            req.headers_mut().insert(header::HOST, host.parse().unwrap());
+            let (status, _, text) = send(&state, req).await;
+            assert_eq!(status, StatusCode::MISDIRECTED_REQUEST, "{method} {host}: {text}");
+            let error: Value = serde_json::from_str(&text).unwrap();
+            assert_eq!(error["field"], "Host", "{text}");
+            assert!(error["allowed"].as_str().unwrap().contains("localhost:8321"), "{text}");
+        }
+    }
+    assert_eq!(count(&b.state, Table::Tests), tests_before);
+    for host in ["127.0.0.1:8321", "localhost:8321", "[::1]:8321", "lab.example.org"] {
+        let mut req = request("GET", "/api/frames", None, Who::Nobody);
+        req.headers_mut().insert(header::HOST, host.parse().unwrap());
+        assert_eq!(send(&state, req).await.0, StatusCode::OK, "{host}");
+    }
+    // Through the proxy: the public origin and its host.
+    let mut req = request("POST", "/api/frames/F1/tests", Some(specimen()), Who::Nobody);
+    req.headers_mut().insert(header::HOST, "lab.example.org".parse().unwrap());
+    req.headers_mut().insert(header::ORIGIN, "https://lab.example.org".parse().unwrap());
+    req.headers_mut().insert("sec-fetch-site", "same-origin".parse().unwrap());
+    let (status, _, text) = send(&state, req).await;
+    assert_eq!(status, StatusCode::CREATED, "{text}");
+}
+
+#[tokio::test]
+async fn pages_json_and_errors_carry_the_security_headers() {
+    let b = bench(true);
+    for (path, who, status) in [
+        ("/", Who::Viewer, StatusCode::OK),
+        ("/app.css", Who::Viewer, StatusCode::OK),
+        ("/api/frames", Who::Viewer, StatusCode::OK),
+        ("/api/frames", Who::Nobody, StatusCode::UNAUTHORIZED),
+        ("/api/frames/F9", Who::Viewer, StatusCode::NOT_FOUND),
+    ] {
+        let (got, headers, _) = send(&b.state, request("GET", path, None, who)).await;
+        assert_eq!(got, status, "{path}");
+        let csp = headers[header::CONTENT_SECURITY_POLICY].to_str().unwrap();
+        for part in ["default-src 'self'", "script-src 'self'", "frame-ancestors 'none'"] {
+            assert!(csp.contains(part), "{path}: {csp}");
+        }
+        assert!(
+            !csp.contains("unsafe-eval") && !csp.split("script-src").nth(1).unwrap().starts_with(" 'self' 'unsafe")
+        );
+        assert_eq!(headers[header::X_FRAME_OPTIONS], "DENY", "{path}");
+        assert_eq!(headers[header::X_CONTENT_TYPE_OPTIONS], "nosniff", "{path}");
+        assert_eq!(headers[header::REFERRER_POLICY], "same-origin", "{path}");
+    }
 }

@@ -85,7 +85,7 @@ impl Daemon {
     pub(crate) fn get(&self, path: &str) -> Result<String> {
         let mut stream = TcpStream::connect(self.http)?;
         stream.set_read_timeout(Some(Duration::from_secs(10)))?;
-        write!(stream, "GET {path} HTTP/1.0\r\nHost: test\r\n\r\n")?;
+        write!(stream, "GET {path} HTTP/1.0\r\nHost: {}\r\n\r\n", self.http)?;
         let mut response = String::new();
         stream.read_to_string(&mut response)?;
         let (head, body) = response.split_once("\r\n\r\n").context("an HTTP response")?;
