@@ -157,15 +157,18 @@ fn increment_cv_from_terzaghi_curves_on_dense_and_hand_schedules() {
     // - Hand schedule: √t −2 … +6.5 % (t90 falls between readings an octave apart; PCHIP −2.5 % on t90 in
     //   a trial [ref: curve-interpolation, computed], plus the +1.5 % bias); log t within ±3.5 %.
     // - d0 within 3 gauge quanta; d100 within 1.5 % (dense) / 3 % (hand) of the primary compression.
-    // - Cα(ε) within 10 % of slope/(2·Hdr): the late line still holds a little primary (it is steeper).
+    // - Cα(ε) within 10 % (dense) / 15 % (hand) of slope/(2·Hdr): the late line still holds a little primary
+    //   (it is steeper). The secondary line starts at 1.5·t100 at the earliest, where 1.4 % of the primary is
+    //   still to come (U at T = 1.65 [ref: terzaghi-approximations, computed]); on the hand schedule's readings
+    //   an octave apart that tail is a third of what the line spans at cv 1.5 mm²/min: +13.9 % measured.
     // Gauge quantum 0.002 mm (BS 1377-5 gauge readable to 0.002 mm [ref: gauge-resolution]).
     let dir = temp_dir();
     let dense = dense_schedule();
     for cv in [1.0, 1.5, 3.0] {
         let curve = Curve::scenario(cv);
-        for (schedule, times, taylor_range, casagrande_tol, d100_tol) in [
-            ("dense", &dense[..], (0.005, 0.02), 0.01, 0.015),
-            ("hand", &HAND_SCHEDULE_MIN[..], (-0.02, 0.065), 0.035, 0.03),
+        for (schedule, times, taylor_range, casagrande_tol, d100_tol, c_alpha_tol) in [
+            ("dense", &dense[..], (0.005, 0.02), 0.01, 0.015, 0.10),
+            ("hand", &HAND_SCHEDULE_MIN[..], (-0.02, 0.065), 0.035, 0.03, 0.15),
         ] {
             for quantum in [0.0, 0.002] {
                 let path = write(dir.path(), &format!("{schedule}-{cv}-{quantum}.csv"), &curve.csv(times, quantum));
@@ -189,7 +192,7 @@ fn increment_cv_from_terzaghi_curves_on_dense_and_hand_schedules() {
                 assert!(casagrande.abs() <= casagrande_tol, "{what}: log-t cv error {casagrande}");
                 assert!(d0_err.abs() <= 0.006, "{what}: d0 error {d0_err} mm");
                 assert!(d100_err.abs() <= d100_tol, "{what}: d100 error {d100_err}");
-                assert!((0.0..0.10).contains(&c_alpha_err), "{what}: Cα error {c_alpha_err}");
+                assert!((0.0..c_alpha_tol).contains(&c_alpha_err), "{what}: Cα error {c_alpha_err}");
                 assert_eq!(r["primary_from"], "casagrande", "{what}");
                 let t90 = 0.848 * curve.drainage_path_mm.powi(2) / number(&r, "t90_min");
                 assert!((t90 / number(&r, "cv_taylor_mm2_per_min") - 1.0).abs() < 1e-12, "{what}: cv = 0.848·Hdr²/t90");

@@ -14,6 +14,24 @@ use super::{AnalysisError, check_range};
 
 /// Part of the √t-straight start (as a fraction of its √t span) that 4·t1 may reach.
 const OFFSET_SQRT_FRACTION: f64 = 0.75;
+/// The inflection tangent is the least-squares line through the nodes of the steepest log-t window this
+/// wide (log cycles), not the steepest slope of the interpolant: over 0.4 log cycle the ideal curve's mean
+/// slope is 0.98 of its steepest and the tangent's d100 and t50 move by under 0.1 % [ref: casagrande-log-time,
+/// computed], while one gauge count between nodes 0.025 log cycle apart (40 bins per decade, one reading each)
+/// is 40 µm per log cycle on an interpolant's slope — against 69 µm per log cycle for a 0.1 mm primary.
+pub(crate) const TANGENT_WINDOW_DECADES: f64 = 0.4;
+/// The steepest slope of the ideal U–log T curve, per log cycle (at T = 0.404) [ref: casagrande-log-time,
+/// computed]: the inflection tangent's slope over this estimates the primary.
+const IDEAL_INFLECTION_SLOPE: f64 = 0.687;
+/// The secondary line starts no earlier than this × t100 (its own intersection with the tangent). The
+/// primary tail left after t100 steepens a line fitted over it and pulls d100 down: on the ideal curve a line
+/// over 1.0–3.16 × t100 puts d100 4–5.5 % of the primary low, over 1.5–3.16 × t100 1.7–2.2 %, over 2–4 ×
+/// t100 0.5–0.7 % (Cα 0–13 % of the primary per log cycle) [ref: casagrande-log-time, computed].
+pub(crate) const SECONDARY_START_OVER_T100: f64 = 1.5;
+/// The secondary line's residual tolerance is at least this share of the primary: over 1.5–3.16 × t100 the
+/// ideal curve strays 0.39 % of the primary from a straight line (the decaying tail), which a large primary
+/// read to 1 µm would otherwise take for curvature [ref: casagrande-log-time, computed].
+const SECONDARY_TOLERANCE_SHARE: f64 = 0.005;
 
 /// Choices of the log-t construction.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
@@ -159,21 +177,28 @@ pub(crate) fn casagrande(
 
     offset_d0(curve, &pchip, parabolic, params, &mut result);
 
-    let (x_inf, slope_inf) = pchip.max_slope();
-    if slope_inf.is_nan() || slope_inf <= 0.0 {
+    let Some(steepest) = steepest_window(curve, &pchip) else {
         push_unique(&mut result.flags, Flag::NetSwelling);
         return Ok(result);
-    }
-    let tangent = Line::through(x_inf, pchip.eval(x_inf), slope_inf);
-    result.inflection = Some(InflectionTangent { t_min: 10f64.powf(x_inf), d_mm: pchip.eval(x_inf), line: tangent });
+    };
+    let (x_inf, tangent) = (steepest.x, steepest.line);
+    result.inflection = Some(InflectionTangent { t_min: 10f64.powf(x_inf), d_mm: tangent.at(x_inf), line: tangent });
     let after = curve.log_t.partition_point(|&x| x <= x_inf);
-    if after + 1 >= n {
+    if after + 1 >= n || steepest.last_node + 1 >= n {
         push_unique(&mut result.flags, Flag::InflectionNotPassed);
     }
 
-    let Some(secondary) = secondary_line(curve, after, slope_inf, params) else {
-        push_unique(&mut result.flags, Flag::NoSecondaryBranch);
-        return Ok(result);
+    let secondary = match secondary_line(curve, after, &tangent, params) {
+        Search::Found(line) => line,
+        Search::TooSoon { t100_min, from_min, until_min } => {
+            push_unique(&mut result.flags, Flag::NoSecondaryBranch);
+            push_unique(&mut result.flags, Flag::SecondaryTooSoon { t100_min, from_min, until_min });
+            return Ok(result);
+        }
+        Search::None => {
+            push_unique(&mut result.flags, Flag::NoSecondaryBranch);
+            return Ok(result);
+        }
     };
     result.secondary = Some(secondary);
     let x_last = curve.log_t[n - 1];
@@ -255,46 +280,142 @@ fn offset_d0(
     result.d0_mm = Some(result.offset_pairs.iter().map(|p| p.d0_mm).sum::<f64>() / count);
 }
 
-/// The longest straight tail after node `after` that qualifies as a secondary branch, if any.
-fn secondary_line(
-    curve: &PreparedCurve,
-    after: usize,
-    slope_inf: f64,
-    params: &CasagrandeParams,
-) -> Option<SecondaryLine> {
+/// The steepest stretch of the curve on log t and its least-squares line.
+struct Steepest {
+    /// Mean log10 t of the stretch's nodes (the line passes through their centroid).
+    x: f64,
+    /// The tangent.
+    line: Line,
+    /// Last node of the stretch.
+    last_node: usize,
+}
+
+/// The inflection tangent: of the windows of nodes within [`TANGENT_WINDOW_DECADES`] from each node that
+/// hold ≥ 2 nodes spanning ≥ half that width, the one whose least-squares line is steepest; the line through
+/// its centroid. Readings too sparse for any window (nodes more than 0.4 log cycle apart) fall back on the
+/// interpolant's steepest slope. `None` when nothing rises.
+fn steepest_window(curve: &PreparedCurve, pchip: &Pchip) -> Option<Steepest> {
+    let (x, nodes) = (&curve.log_t, &curve.nodes);
+    let n = x.len();
+    // Prefix sums, shifted by the first node, so each window's line costs O(1).
+    let (x0, y0) = (x[0], nodes[0].d_mm);
+    let mut sums = Vec::with_capacity(n + 1);
+    let mut acc = [0.0f64; 4];
+    sums.push(acc);
+    for (xi, node) in x.iter().zip(nodes) {
+        let (dx, dy) = (xi - x0, node.d_mm - y0);
+        acc = [acc[0] + dx, acc[1] + dy, acc[2] + dx * dx, acc[3] + dx * dy];
+        sums.push(acc);
+    }
+    let mut best: Option<(f64, f64, f64, usize)> = None;
+    let mut k = 0;
+    for j in 0..n {
+        k = k.max(j);
+        while k + 1 < n && x[k + 1] - x[j] <= TANGENT_WINDOW_DECADES {
+            k += 1;
+        }
+        if k == j || x[k] - x[j] < 0.5 * TANGENT_WINDOW_DECADES {
+            continue;
+        }
+        let m = (k + 1 - j) as f64;
+        let [sx, sy, sxx, sxy] = std::array::from_fn(|i| sums[k + 1][i] - sums[j][i]);
+        let (mx, my) = (sx / m, sy / m);
+        let vxx = sxx / m - mx * mx;
+        if vxx.is_nan() || vxx <= 0.0 {
+            continue;
+        }
+        let slope = (sxy / m - mx * my) / vxx;
+        if slope.is_finite() && best.is_none_or(|b| slope > b.0) {
+            best = Some((slope, x0 + mx, y0 + my, k));
+        }
+    }
+    let (slope, xc, yc, last_node) = match best {
+        Some(b) => b,
+        None => {
+            let (x_inf, slope) = pchip.max_slope();
+            let last = x.partition_point(|&v| v <= x_inf).min(n - 1);
+            (slope, x_inf, pchip.eval(x_inf), last)
+        }
+    };
+    (slope.is_finite() && slope > 0.0).then(|| Steepest { x: xc, line: Line::through(xc, yc, slope), last_node })
+}
+
+/// What the search for the secondary line found.
+enum Search {
+    /// A line clear of the primary tail.
+    Found(SecondaryLine),
+    /// A straight tail, but none that starts after 1.5 × t100 and spans the least log cycles yet.
+    TooSoon {
+        /// t100 where the straight tail met the tangent, min.
+        t100_min: f64,
+        /// Where the secondary line may start, min.
+        from_min: f64,
+        /// Where the readings must reach for it, min.
+        until_min: f64,
+    },
+    /// No straight tail.
+    None,
+}
+
+/// The secondary line: the longest straight tail after node `after` (residual rule, tolerance at least
+/// [`SECONDARY_TOLERANCE_SHARE`] of the primary the tangent implies), started no earlier than
+/// [`SECONDARY_START_OVER_T100`] × the t100 where it meets the tangent — the start moves on and the line is
+/// refitted until it does — spanning ≥ `secondary_min_decades` with ≥ `secondary_min_points` nodes, and at
+/// most `max_secondary_slope_ratio` of the tangent's slope.
+fn secondary_line(curve: &PreparedCurve, after: usize, tangent: &Line, params: &CasagrandeParams) -> Search {
     let n = curve.nodes.len();
     let seed = params.secondary_min_points;
     if n < after + seed {
-        return None;
+        return Search::None;
     }
+    let floor = SECONDARY_TOLERANCE_SHARE * tangent.slope / IDEAL_INFLECTION_SLOPE;
+    let tolerance = |j: usize| curve.tolerance_mm(j).max(floor);
     let point = |j: usize| (curve.log_t[j], curve.nodes[j].d_mm);
     // The last `seed` nodes must themselves be collinear.
-    let seed_line = fit_line((n - seed..n).map(point))?;
-    let seed_points = (n - seed..n).map(point);
-    if max_abs_residual(&seed_line, seed_points)
-        > (n - seed..n).map(|j| curve.tolerance_mm(j)).fold(f64::INFINITY, f64::min)
+    let Some(seed_line) = fit_line((n - seed..n).map(point)) else { return Search::None };
+    if max_abs_residual(&seed_line, (n - seed..n).map(point))
+        > (n - seed..n).map(tolerance).fold(f64::INFINITY, f64::min)
     {
-        return None;
+        return Search::None;
     }
-    let scan = (after..n).rev().map(|j| {
-        let (x, y) = point(j);
-        (x, y, curve.tolerance_mm(j))
-    });
-    let (joined, acc) = grow_straight_run(scan, seed);
-    let first = n - joined;
-    let line = acc.line()?;
-    let span = curve.log_t[n - 1] - curve.log_t[first];
-    if span + 1e-12 < params.secondary_min_decades || line.slope > params.max_secondary_slope_ratio * slope_inf {
-        return None;
+    let mut from = after;
+    let mut too_soon = None;
+    // Each pass moves `from` on by at least one node, so this ends.
+    while n >= from + seed {
+        let scan = (from..n).rev().map(|j| {
+            let (x, y) = point(j);
+            (x, y, tolerance(j))
+        });
+        let (joined, acc) = grow_straight_run(scan, seed);
+        let first = n - joined;
+        let Some(line) = acc.line() else { break };
+        let span = curve.log_t[n - 1] - curve.log_t[first];
+        if span + 1e-12 < params.secondary_min_decades || line.slope > params.max_secondary_slope_ratio * tangent.slope
+        {
+            break;
+        }
+        let found = SecondaryLine {
+            first_node: first,
+            last_node: n - 1,
+            t_start_min: curve.nodes[first].t_min,
+            t_end_min: curve.nodes[n - 1].t_min,
+            points: acc.len(),
+            line,
+        };
+        // A line that never meets the tangent is the caller's to flag.
+        let Some((x100, _)) = tangent.intersection(&line) else { return Search::Found(found) };
+        let start_x = x100 + SECONDARY_START_OVER_T100.log10();
+        if curve.log_t[first] + 1e-12 >= start_x {
+            return Search::Found(found);
+        }
+        too_soon = Some(Search::TooSoon {
+            t100_min: 10f64.powf(x100),
+            from_min: 10f64.powf(start_x),
+            until_min: 10f64.powf(start_x + params.secondary_min_decades),
+        });
+        from = curve.log_t.partition_point(|&x| x < start_x).max(first + 1);
     }
-    Some(SecondaryLine {
-        first_node: first,
-        last_node: n - 1,
-        t_start_min: curve.nodes[first].t_min,
-        t_end_min: curve.nodes[n - 1].t_min,
-        points: acc.len(),
-        line,
-    })
+    too_soon.unwrap_or(Search::None)
 }
 
 #[cfg(test)]
@@ -317,10 +438,11 @@ mod tests {
 
     #[test]
     fn dense_curves_recover_d0_t50_and_d100() {
-        // Dense logging, noise-free and as 100 000 readings quantised to 0.001 mm with 0.5 µm noise. Measured:
-        // t50 −0.02 … −0.5 %, d100 −0.06 … −0.3 % of primary (the primary tail still adds slope at the start
-        // of the fitted secondary line). Tolerances: d0 within 0.1 %, d100 within 0.5 % of primary; t50 within
-        // 1 %; t100 within 2 % of t(T = 1.10).
+        // Dense logging, noise-free and as 100 000 readings quantised to 0.001 mm with 0.5 µm noise. Measured
+        // with the 0.4-log-cycle tangent window: t50 −0.17 … −1.05 %, d100 −0.09 … −0.52 % of primary, t100
+        // +0.4 … +2.2 % (the window's mean slope is 2 % under the steepest, and the primary tail still adds
+        // slope at the start of the secondary line). Tolerances: d0 within 0.1 %, d100 within 0.8 % of
+        // primary; t50 within 1.5 %; t100 within 3 % of t(T = 1.10) — all far inside the 10 % a cv is read to.
         let dense_noisy = log_schedule(100_000, 1.0 / 60.0, 1440.0);
         for cv in [0.5, 1.0, 2.0, 4.0] {
             let m = Model { cv_mm2_per_min: cv, ..Model::typical() };
@@ -332,11 +454,11 @@ mod tests {
                 assert!(r.flags.is_empty(), "cv {cv} {label}: {:?}", r.flags);
                 assert!(r.offset_pairs.len() == 5, "cv {cv} {label}");
                 assert!(m.of_primary(r.d0_mm.unwrap(), m.d0_mm()).abs() < 0.001, "cv {cv} {label}: d0");
-                assert!(m.of_primary(r.d100_mm.unwrap(), m.d100_mm()).abs() < 0.005, "cv {cv} {label}: d100");
+                assert!(m.of_primary(r.d100_mm.unwrap(), m.d100_mm()).abs() < 0.008, "cv {cv} {label}: d100");
                 let t50_error = relative(r.t50_min.unwrap(), m.t50_min());
-                assert!(t50_error.abs() < 0.01, "cv {cv} {label}: t50 error {t50_error}");
+                assert!(t50_error.abs() < 0.015, "cv {cv} {label}: t50 error {t50_error}");
                 let t100_error = relative(r.t100_min.unwrap(), m.time_at(1.10));
-                assert!(t100_error.abs() < 0.02, "cv {cv} {label}: t100 error {t100_error}");
+                assert!(t100_error.abs() < 0.03, "cv {cv} {label}: t100 error {t100_error}");
             }
         }
     }
@@ -344,14 +466,16 @@ mod tests {
     #[test]
     fn inflection_tangent_sits_where_theory_puts_it() {
         // The ideal U–log T curve is steepest at T = 0.404, U = 0.701, slope 0.687 per log cycle
-        // [ref: casagrande-log-time, computed]. Dense noise-free data: within 3 % in time, 0.5 % of primary in
-        // d, 1 % in slope.
+        // [ref: casagrande-log-time, computed]. The tangent is the line through the steepest 0.4 log cycle
+        // (`TANGENT_WINDOW_DECADES`), whose mean slope is 0.977 of the steepest on the ideal curve and whose
+        // centroid sits 4 % early in time, 1.3 % of primary low (measured). Dense noise-free data: within 6 %
+        // in time, 2 % of primary in d, 3 % in slope.
         let m = Model::typical();
         let r = run(&sample(&m, &dense_schedule(), 0.0, 0.0, 0));
         let tangent = r.inflection.unwrap();
-        assert!(relative(tangent.t_min, m.time_at(0.404)).abs() < 0.03, "t {}", tangent.t_min);
-        assert!(m.of_primary(tangent.d_mm, m.d0_mm() + 0.701 * m.primary_mm).abs() < 0.005);
-        assert!(relative(tangent.line.slope, 0.687 * m.primary_mm).abs() < 0.01, "slope {}", tangent.line.slope);
+        assert!(relative(tangent.t_min, m.time_at(0.404)).abs() < 0.06, "t {}", tangent.t_min);
+        assert!(m.of_primary(tangent.d_mm, m.d0_mm() + 0.701 * m.primary_mm).abs() < 0.02);
+        assert!(relative(tangent.line.slope, 0.687 * m.primary_mm).abs() < 0.03, "slope {}", tangent.line.slope);
     }
 
     #[test]

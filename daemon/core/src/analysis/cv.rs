@@ -90,6 +90,16 @@ pub(crate) enum Method {
     Casagrande,
 }
 
+impl Method {
+    /// The API's name: `"taylor"` or `"casagrande"`.
+    pub(crate) fn name(self) -> &'static str {
+        match self {
+            Method::Taylor => "taylor",
+            Method::Casagrande => "casagrande",
+        }
+    }
+}
+
 /// One cv with everything that went into it.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct CvEstimate {

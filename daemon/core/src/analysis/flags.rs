@@ -148,6 +148,43 @@ pub enum Flag {
         /// The temperature given.
         temperature_c: f64,
     },
+    /// Taylor's √t straight part spans under 20 % of the primary: its cv is not trusted.
+    StraightPartShort {
+        /// Share of d100 − d0 the fitted straight part spans.
+        share: f64,
+    },
+    /// A straight log-t tail, but none yet that starts after 1.5 × t100 and spans the least log cycles.
+    SecondaryTooSoon {
+        /// t100 where that tail met the inflection tangent, min.
+        t100_min: f64,
+        /// Where the secondary line may start, min.
+        from_min: f64,
+        /// How far the readings must reach for it, min.
+        until_min: f64,
+    },
+    /// t90 is not above twice t50: the constructions are inconsistent (a Terzaghi curve has t90 = 4.3 × t50).
+    T90NotAfterT50 {
+        /// t90 by √t, min.
+        t90_min: f64,
+        /// The t50 compared, min.
+        t50_min: f64,
+        /// Whose t50: "log t" or "√t".
+        t50_from: &'static str,
+    },
+    /// The √t and log-t d100 differ by more than the tolerance.
+    EndsOfPrimaryApart {
+        /// d100 by √t, mm.
+        taylor_mm: f64,
+        /// d100 by log t, mm.
+        casagrande_mm: f64,
+        /// The tolerance, mm.
+        tolerance_mm: f64,
+    },
+    /// Neither construction's cv passed the checks: no cv is proposed for k.
+    CvNotChosen {
+        /// Why, in words.
+        reason: String,
+    },
 }
 
 impl Flag {
@@ -186,6 +223,11 @@ impl Flag {
             Flag::NoVirginLine => "no_virgin_line",
             Flag::EndOfPrimaryMissing { .. } => "end_of_primary_missing",
             Flag::TemperatureOutsideTable { .. } => "temperature_outside_table",
+            Flag::StraightPartShort { .. } => "straight_part_short",
+            Flag::SecondaryTooSoon { .. } => "secondary_too_soon",
+            Flag::T90NotAfterT50 { .. } => "t90_not_after_t50",
+            Flag::EndsOfPrimaryApart { .. } => "ends_of_primary_apart",
+            Flag::CvNotChosen { .. } => "cv_not_chosen",
         }
     }
 }
@@ -280,7 +322,43 @@ impl fmt::Display for Flag {
             Flag::TemperatureOutsideTable { temperature_c } => {
                 write!(f, "temperature {temperature_c} °C outside the viscosity table: cv not corrected to 20 °C")
             }
+            Flag::StraightPartShort { share } => {
+                write!(f, "the √t straight part spans only {:.0} % of the primary: cv by √t not trusted", share * 100.0)
+            }
+            Flag::SecondaryTooSoon { t100_min, from_min, until_min } => write!(
+                f,
+                "the log-t tail is not yet clear of the primary (t100 ≈ {}): a secondary line must start after \
+                 {} and run to {}",
+                minutes(*t100_min),
+                minutes(*from_min),
+                minutes(*until_min)
+            ),
+            Flag::T90NotAfterT50 { t90_min, t50_min, t50_from } => write!(
+                f,
+                "t90 by √t ({}) is not above twice t50 by {t50_from} ({}); a Terzaghi curve has t90 = 4.3 × t50: \
+                 a construction has failed",
+                minutes(*t90_min),
+                minutes(*t50_min)
+            ),
+            Flag::EndsOfPrimaryApart { taylor_mm, casagrande_mm, tolerance_mm } => write!(
+                f,
+                "d100 by √t ({taylor_mm:.3} mm) and by log t ({casagrande_mm:.3} mm) differ by {:.3} mm, more than \
+                 {tolerance_mm:.3} mm",
+                (taylor_mm - casagrande_mm).abs()
+            ),
+            Flag::CvNotChosen { reason } => write!(f, "no cv proposed for k: {reason}; review both constructions"),
         }
+    }
+}
+
+/// A time in minutes, rounded for a sentence: "0.68 min", "12.4 min", "157 min".
+fn minutes(t_min: f64) -> String {
+    if t_min < 10.0 {
+        format!("{t_min:.2} min")
+    } else if t_min < 100.0 {
+        format!("{t_min:.1} min")
+    } else {
+        format!("{t_min:.0} min")
     }
 }
 

@@ -12,6 +12,7 @@
 
 pub(crate) mod casagrande;
 pub(crate) mod compression;
+pub(crate) mod consistency;
 pub(crate) mod curve;
 pub(crate) mod cv;
 pub(crate) mod deflection;
@@ -34,6 +35,7 @@ pub use compression::{
     Branch, CasagrandePreconsolidation, CompressionParams, CompressionReduction, IndexLine, StatePoint,
     WorkPreconsolidation,
 };
+pub use consistency::CvChoice;
 pub use curve::{CurveNode, TimeCurve};
 pub use cv::{CvEstimate, Drainage};
 pub use deflection::DeflectionCalibration;

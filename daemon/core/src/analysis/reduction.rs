@@ -66,10 +66,11 @@ impl ReductionRules {
     }
 }
 
-/// The cv a load step's k is computed with: that of the construction that gave its end of primary (log t
-/// where a secondary line was found, else √t); none without an end of primary [ref: permeability].
+/// The cv a load step's k is computed with: the one the step's checks trust (`IncrementReduction::cv_choice`:
+/// log t where its secondary line fixes the end of primary and it holds, else √t where it holds); none when
+/// neither holds [ref: permeability] [ref: cv-consistency].
 pub(crate) fn cv_behind_k(reduction: &IncrementReduction) -> Option<CvEstimate> {
-    match reduction.end_of_primary?.method {
+    match reduction.cv_choice.method? {
         Method::Casagrande => reduction.cv_casagrande,
         Method::Taylor => reduction.cv_taylor,
     }

@@ -145,3 +145,16 @@ pub(crate) fn reduce(model: &Model, times: &[f64], quantum_mm: f64, noise_mm: f6
     let readings = sample(model, times, quantum_mm, noise_mm, seed);
     reduce_increment(&readings, &IncrementParams::with_drainage_path_mm(model.drainage_path_mm)).unwrap()
 }
+
+/// A logger's schedule: a reading every `fast_min` for the first `fast_until_min` after the load goes on,
+/// then every `steady_min` until `end_min`, with the reading at t = 0 first (the daemon's demo polls
+/// 5–6 s for 15 min, then 30 s).
+pub(crate) fn poll_schedule(fast_min: f64, fast_until_min: f64, steady_min: f64, end_min: f64) -> Vec<f64> {
+    let mut times = vec![0.0];
+    let mut t = fast_min;
+    while t <= end_min {
+        times.push(t);
+        t += if t < fast_until_min { fast_min } else { steady_min };
+    }
+    times
+}
