@@ -167,6 +167,8 @@
       "cv (√t) " + fmt.sig(cvT && cvT.cv_mm2_per_min, 3) + " mm²/min",
       "cv (log t) " + fmt.sig(cvC && cvC.cv_mm2_per_min, 3) + " mm²/min",
     ];
+    const choice = red && red.cv_choice;
+    if (choice) bits.push(choice.cv_mm2_per_min != null ? "proposed " + fmt.sig(choice.cv_mm2_per_min, 3) + " mm²/min — " + choice.reason : "no cv proposed — " + choice.reason);
     const flags = (red && red.flags) || [];
     document.getElementById("step-values").textContent = bits.join(" · ") + (flags.length ? " — " + flags.map((f) => f.message || f.code).join("; ") : "");
   }
@@ -277,16 +279,19 @@
       // State points follow the steps in order; a step without a point (no end yet) gets none.
       const k = pts.findIndex((p) => Math.abs(p.stress_kpa - s.stress_kpa) <= 1e-9 * Math.max(1, s.stress_kpa));
       const p = k >= 0 ? pts.splice(0, k + 1)[k] : {};
-      const flags = [...(s.flags || []), ...(p.flags || []).map((f) => f.code || f)];
-      rows.push(el("tr", { "data-seq": s.seq },
+      const words = [...(s.flag_messages || s.flags || []), ...(p.flags || []).map((f) => f.message || f.code || f)];
+      const cvCell = (method, value) => s.cv_method === method
+        ? el("td", { class: "proposed", title: "Proposed: " + (s.cv_reason || "") }, fmt.sig(value, 3))
+        : el("td", {}, fmt.sig(value, 3));
+      rows.push(el("tr", { "data-seq": s.seq, "data-cv-method": s.cv_method || "" },
         el("td", {}, s.seq), el("td", {}, fmt.sig(s.stress_kpa, 4)),
         el("td", {}, fmt.num(p.e, 4)),
-        el("td", {}, fmt.sig(s.cv_taylor_mm2_per_min, 3)),
-        el("td", {}, fmt.sig(s.cv_casagrande_mm2_per_min, 3)),
+        cvCell("taylor", s.cv_taylor_mm2_per_min),
+        cvCell("casagrande", s.cv_casagrande_mm2_per_min),
         el("td", {}, fmt.sig(s.c_alpha_strain, 3)),
         el("td", {}, fmt.sig(p.mv_per_kpa != null ? p.mv_per_kpa * 1000 : null, 3)),
         el("td", {}, fmt.sig(p.k_m_per_s, 3)),
-        el("td", { class: "flags" }, [...new Set(flags)].map((c) => String(c).replace(/_/g, " ")).join("; "))));
+        el("td", { class: "flags" }, [...new Set(words)].join("; "))));
     }
     body.replaceChildren(...(rows.length ? rows : [el("tr", {}, el("td", { colspan: 9, class: "empty-note" }, "No load step yet."))]));
   }

@@ -34,6 +34,8 @@ pub struct WatchParams {
     pub rule: EopRule,
     /// The time-curve reduction's choices, shared with the reduction of stored load steps.
     pub reduction: ReductionRules,
+    /// The secondary line the ready rule waits for, sooner than the one a step's reduction fits its d100 to.
+    pub ready_line: ReadyLine,
     /// Consecutive evaluations that must agree before `ready` is declared (hysteresis; it never flaps back).
     pub confirmations: u8,
     /// Load check tolerance as a fraction of the expected force (ASTM D4546 §7.1: ±0.5 %) [ref: load-check].
@@ -60,6 +62,7 @@ impl Default for WatchParams {
         WatchParams {
             rule: EopRule::Constructions,
             reduction: ReductionRules::default(),
+            ready_line: ReadyLine::default(),
             confirmations: 2,
             load_tolerance: 0.005,
             load_floor_kn: 0.001,
@@ -69,6 +72,26 @@ impl Default for WatchParams {
             fallback_hold_s: 86_400,
             min_hold_s: 900,
         }
+    }
+}
+
+/// The secondary line that shows primary consolidation has ended, for the ready rule. A step's reduction
+/// fits its d100 to a line from 1.5·t100 over 0.3 log cycle (≥ 3·t100), where the primary's tail no longer
+/// steepens it [ref: casagrande-log-time, computed]; to say the load step is over, a straight tail flatter than
+/// the rule's share of the tangent from 1.25·t100 over 0.2 log cycle suffices: by its end (≥ 1.98·t100,
+/// T ≥ 2.18 on the ideal curve) U ≥ 99.7 % [ref: terzaghi-series, computed]. While the step runs, the board's
+/// live reduction uses this line; the stored step's reduction refits with the stricter one.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct ReadyLine {
+    /// The line starts no earlier than this × its t100.
+    pub from_t100: f64,
+    /// It spans at least this many log cycles.
+    pub decades: f64,
+}
+
+impl Default for ReadyLine {
+    fn default() -> Self {
+        ReadyLine { from_t100: 1.25, decades: 0.2 }
     }
 }
 
@@ -295,7 +318,7 @@ fn ready_eta_min(r: &IncrementReduction, params: &WatchParams) -> Option<f64> {
         Some(s) if taylor_t100.is_none_or(|t| s.t_start_min >= t) => s.t_start_min,
         _ => SECONDARY_START_OVER_T100 * t100.max(taylor_t100.unwrap_or(0.0)),
     };
-    let secondary_done = start * 10f64.powf(params.reduction.min_secondary_decades);
+    let secondary_done = start * 10f64.powf(params.ready_line.decades);
     let past = 1.05 * casagrande_t100.unwrap_or(0.0).max(taylor_t100.unwrap_or(0.0));
     Some(secondary_done.max(past).max(params.min_hold_s as f64 / 60.0))
 }
@@ -545,7 +568,9 @@ impl FrameWatch {
         };
         let from_kpa = self.stress_kpa;
         let specimen = SpecimenState { height_mm, at_reading_mm: d_onset.unwrap_or(0.0) };
-        let params = self.params.reduction.increment_params(specimen, from_kpa, stress_kpa, None);
+        let mut params = self.params.reduction.increment_params(specimen, from_kpa, stress_kpa, None);
+        params.casagrande.secondary_from_t100 = self.params.ready_line.from_t100;
+        params.casagrande.secondary_min_decades = self.params.ready_line.decades;
         let mut curve = TimeCurve::new(params.bins_per_decade).expect("default bins are valid");
         if let Some(d) = d_onset {
             let _ = curve.push(0.0, d);
@@ -672,7 +697,7 @@ impl FrameWatch {
             let taylor_t100 = result.taylor.t90_min.map(|t90| T100_OVER_T90 * t90);
             let secondary = c.secondary.as_ref().is_some_and(|s| {
                 s.points >= 3
-                    && (s.t_end_min / s.t_start_min).log10() >= params.reduction.min_secondary_decades - 1e-9
+                    && (s.t_end_min / s.t_start_min).log10() >= params.ready_line.decades - 1e-9
                     && taylor_t100.is_some_and(|t100| s.t_start_min >= t100)
             });
             // With the same 5 % margin on the log-time t100.
@@ -707,7 +732,7 @@ impl FrameWatch {
                 "movement has levelled off (primary too small for the constructions)".to_string()
             } else {
                 "secondary line over ≥ 0.3 log cycle; t ≥ t100 by both constructions"
-                    .replace("0.3", &format!("{}", params.reduction.min_secondary_decades))
+                    .replace("0.3", &format!("{}", params.ready_line.decades))
             };
             return self.declare_ready(at_us, how);
         }

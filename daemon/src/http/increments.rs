@@ -509,6 +509,12 @@ struct Analysis {
     /// Where the reduction came from: `live-watch` (the running increment, as the watch sees it, re-seats
     /// stitched) or `stored-readings` (the increment's readings reduced now).
     source: &'static str,
+    /// The cv the step's checks trust (`reduction.cv_choice`), mm²/min; null when neither construction holds.
+    cv_mm2_per_min: Option<f64>,
+    /// `"taylor"` or `"casagrande"`; null with the flag `cv_not_chosen`.
+    cv_method: Option<&'static str>,
+    /// Why, in words.
+    cv_reason: Option<String>,
     reduction: Option<IncrementReduction>,
     constructions: Option<Constructions>,
     unavailable: Option<String>,
@@ -556,6 +562,9 @@ async fn analysis(
                 stress_kpa: inc.stress_kpa,
                 running,
                 source,
+                cv_mm2_per_min: reduction.as_ref().and_then(|r| r.cv_choice.cv_mm2_per_min),
+                cv_method: reduction.as_ref().and_then(|r| r.cv_choice.method_name()),
+                cv_reason: reduction.as_ref().map(|r| r.cv_choice.reason.clone()),
                 constructions: reduction.as_ref().map(constructions),
                 reduction,
                 unavailable,

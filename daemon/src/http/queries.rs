@@ -221,12 +221,19 @@ pub(crate) struct IncrementSummary {
     pub cv_taylor_mm2_per_min: Option<f64>,
     /// cv by log t, mm²/min.
     pub cv_casagrande_mm2_per_min: Option<f64>,
-    /// cv used for k (the end-of-primary construction's), mm²/min.
+    /// The cv proposed for the step (the one k uses), mm²/min: the construction the checks trust.
     pub cv_mm2_per_min: Option<f64>,
+    /// Which construction that is: `"taylor"` or `"casagrande"`; null (with the flag `cv_not_chosen`)
+    /// when neither holds.
+    pub cv_method: Option<&'static str>,
+    /// Why that one, in words.
+    pub cv_reason: Option<String>,
     /// Cα on the strain basis.
     pub c_alpha_strain: Option<f64>,
     /// Quality flags, by code.
     pub flags: Vec<String>,
+    /// The same flags in words, in the same order.
+    pub flag_messages: Vec<String>,
     /// The core's reduction of the increment's time curve (not serialised here: the analysis route gives it).
     #[serde(skip)]
     pub curve: Option<IncrementReduction>,
@@ -331,10 +338,11 @@ pub(crate) fn reduce_test(
         .zip(reduced.steps)
         .zip(&curves)
         .map(|((row, step), curve)| {
-            let mut flags: Vec<String> =
-                step.curve.iter().flat_map(|c| c.flags.iter().map(|f| f.code().to_string())).collect();
-            flags.extend(step.deflection_flags.iter().map(|f| f.code().to_string()));
+            let own = step.curve.iter().flat_map(|c| c.flags.iter()).chain(&step.deflection_flags);
+            let mut flags: Vec<String> = own.clone().map(|f| f.code().to_string()).collect();
+            let mut flag_messages: Vec<String> = own.map(ToString::to_string).collect();
             flags.extend(step.seating_deflection_flags.iter().map(|f| format!("{} (seating stress)", f.code())));
+            flag_messages.extend(step.seating_deflection_flags.iter().map(|f| format!("{f} (seating stress)")));
             if let Some(why) = &step.curve_refused {
                 tracing::debug!("increment {} of test {id}: {why}", row.seq);
             }
@@ -350,8 +358,11 @@ pub(crate) fn reduce_test(
                 cv_taylor_mm2_per_min: c.and_then(|c| c.cv_taylor).map(|e| e.cv_mm2_per_min),
                 cv_casagrande_mm2_per_min: c.and_then(|c| c.cv_casagrande).map(|e| e.cv_mm2_per_min),
                 cv_mm2_per_min: step.cv_for_k.map(|e| e.cv_mm2_per_min),
+                cv_method: c.and_then(|c| c.cv_choice.method_name()),
+                cv_reason: c.map(|c| c.cv_choice.reason.clone()),
                 c_alpha_strain: c.and_then(|c| c.secondary).map(|s| s.c_alpha_strain),
                 flags,
+                flag_messages,
                 curve_refused: step.curve_refused.as_ref().map(ToString::to_string),
                 curve: step.curve,
                 row,

@@ -146,11 +146,16 @@ td.l,th.l{{text-align:left}}.plot{{max-width:640px;width:100%}}.caution{{border:
     html += "</table>";
 
     html += "<h2>Increments</h2><table><tr><th>#</th><th>σ′ kPa</th><th>settlement mm</th><th>at end of primary mm</th>\
-<th>t50 min</th><th>t90 min</th><th>cv (√t) mm²/min</th><th>cv (log t) mm²/min</th><th>Cα</th><th class=\"l\">flags</th></tr>";
+<th>t50 min</th><th>t90 min</th><th>cv (√t) mm²/min</th><th>cv (log t) mm²/min</th><th>cv proposed mm²/min</th>\
+<th>Cα</th><th class=\"l\">flags</th></tr>";
     for i in &r.increments {
+        let proposed = match (i.cv_mm2_per_min, i.cv_method) {
+            (Some(cv), Some(method)) => format!("{} ({})", num(Some(cv), 3), method_words(method)),
+            _ => "none".to_string(),
+        };
         let _ = write!(
             html,
-            "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td class=\"l\">{}</td></tr>",
+            "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td class=\"l\">{}</td></tr>",
             i.row.seq,
             num(Some(i.row.stress_kpa), 1),
             num(i.settlement_mm, 3),
@@ -159,11 +164,23 @@ td.l,th.l{{text-align:left}}.plot{{max-width:640px;width:100%}}.caution{{border:
             num(i.t90_min, 2),
             num(i.cv_taylor_mm2_per_min, 3),
             num(i.cv_casagrande_mm2_per_min, 3),
+            proposed,
             sci(i.c_alpha_strain),
-            escape(&i.flags.join(", "))
+            escape(&i.flag_messages.join("; "))
         );
     }
     html += "</table>";
+    // Which construction each step's cv comes from, and why: the engineer's first question.
+    let reasons: Vec<String> = r
+        .increments
+        .iter()
+        .filter_map(|i| i.cv_reason.as_ref().map(|why| format!("<li>Step {}: {}</li>", i.row.seq, escape(why))))
+        .collect();
+    if !reasons.is_empty() {
+        html += "<h3>cv proposed per step</h3><ul class=\"reasons\">";
+        html += &reasons.concat();
+        html += "</ul>";
+    }
 
     html += "<h2>Void ratio and effective stress</h2>";
     match &r.compression {
@@ -245,4 +262,13 @@ async fn report(State(state): State<AppState>, Path(id): Path<String>) -> Result
 
 pub(super) fn router() -> Router<AppState> {
     Router::new().route("/tests/{id}/report", get(report))
+}
+
+/// A construction's name for a reader: "√t" or "log t".
+fn method_words(method: &str) -> &'static str {
+    match method {
+        "taylor" => "√t",
+        "casagrande" => "log t",
+        _ => "?",
+    }
 }

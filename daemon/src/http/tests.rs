@@ -443,9 +443,23 @@ async fn analysis_of_a_stored_increment_finds_t90_of_the_curve_it_was_built_from
     assert!(c["sqrt_time"]["markers"].as_array().unwrap().iter().any(|m| m["name"] == "t90"));
     assert!(!c["log_time"]["points"].as_array().unwrap().is_empty());
     assert!(analysis["caution"].as_str().unwrap().contains("qualified engineer"));
+    // The proposed cv at the top level is the trusted construction's own cv, with its reason in words; the
+    // step's summary and k carry the same.
+    let method = analysis["cv_method"].as_str().expect("a cv_method on a curve run past its secondary line");
+    assert!(["taylor", "casagrande"].contains(&method), "{method}");
+    let own = analysis["reduction"][format!("cv_{method}")]["cv_mm2_per_min"].as_f64().unwrap();
+    assert_eq!(analysis["cv_mm2_per_min"].as_f64(), Some(own));
+    assert_eq!(analysis["reduction"]["cv_choice"]["method"], method);
+    assert!(!analysis["cv_reason"].as_str().unwrap().is_empty());
+    // Terzaghi: cv = 1 mm²/min in the curve the test was built from.
+    assert!((own - 1.0).abs() < 0.1, "proposed cv {own}");
 
     let (status, compression) = call(&b.state, "GET", &format!("/api/tests/{test_id}/compression"), None).await;
     assert_eq!(status, StatusCode::OK, "{compression}");
+    assert_eq!(compression["increments"][0]["cv_method"], method);
+    assert_eq!(compression["increments"][0]["cv_mm2_per_min"].as_f64(), Some(own));
+    let words = compression["increments"][0]["flag_messages"].as_array().unwrap();
+    assert_eq!(words.len(), compression["increments"][0]["flags"].as_array().unwrap().len());
     let settlement = compression["increments"][0]["settlement_mm"].as_f64().unwrap();
     assert!((settlement - 0.5).abs() < 0.01, "{settlement}");
     // e0 = (H0 − Hs)/Hs with Hs = 95 g / (2.70 × 1e-3 g/mm³ × 3166.92 mm²) = 11.110 mm.

@@ -12,5 +12,6 @@ mod hub_tests;
 
 pub use hub::{Hub, HubError};
 pub use oedolog_core::watch::{
-    EopRule, Finding, FrameWatch, OnsetSource, Phase, Reseat, SpecimenSize, WatchError, WatchParams, WatchStatus,
+    EopRule, Finding, FrameWatch, OnsetSource, Phase, ReadyLine, Reseat, SpecimenSize, WatchError, WatchParams,
+    WatchStatus,
 };

@@ -23,7 +23,7 @@ pub(crate) const TANGENT_WINDOW_DECADES: f64 = 0.4;
 /// The steepest slope of the ideal U–log T curve, per log cycle (at T = 0.404) [ref: casagrande-log-time,
 /// computed]: the inflection tangent's slope over this estimates the primary.
 const IDEAL_INFLECTION_SLOPE: f64 = 0.687;
-/// The secondary line starts no earlier than this × t100 (its own intersection with the tangent). The
+/// By default the secondary line starts no earlier than this × t100 (its own intersection with the tangent). The
 /// primary tail left after t100 steepens a line fitted over it and pulls d100 down: on the ideal curve a line
 /// over 1.0–3.16 × t100 puts d100 4–5.5 % of the primary low, over 1.5–3.16 × t100 1.7–2.2 %, over 2–4 ×
 /// t100 0.5–0.7 % (Cα 0–13 % of the primary per log cycle) [ref: casagrande-log-time, computed].
@@ -43,6 +43,9 @@ pub(crate) struct CasagrandeParams {
     pub(crate) secondary_min_points: usize,
     /// Least span of the secondary line in log cycles: 0.3 [ref: eop-detection, common practice].
     pub(crate) secondary_min_decades: f64,
+    /// The secondary line starts no earlier than this × the t100 where it meets the tangent
+    /// ([`SECONDARY_START_OVER_T100`] for a step's reduction; the live watch's ready rule starts it sooner).
+    pub(crate) secondary_from_t100: f64,
     /// The secondary line must be flatter than this fraction of the inflection tangent. On the ideal curve
     /// the log-t slope has fallen to 0.49 of its maximum by T = 1.10, where the tangent meets U = 1
     /// [ref: casagrande-log-time, computed], so a straight tail steeper than half the tangent is still primary.
@@ -55,6 +58,7 @@ impl Default for CasagrandeParams {
             offset_pairs: 5,
             secondary_min_points: 3,
             secondary_min_decades: 0.3,
+            secondary_from_t100: SECONDARY_START_OVER_T100,
             max_secondary_slope_ratio: 0.5,
         }
     }
@@ -66,6 +70,7 @@ impl CasagrandeParams {
         check_range("casagrande.offset_pairs", self.offset_pairs as f64, 1.0, 100.0, "1 to 100")?;
         check_range("casagrande.secondary_min_points", self.secondary_min_points as f64, 3.0, 1000.0, "3 to 1000")?;
         check_range("casagrande.secondary_min_decades", self.secondary_min_decades, 0.05, 5.0, "0.05 to 5 log cycles")?;
+        check_range("casagrande.secondary_from_t100", self.secondary_from_t100, 1.0, 3.0, "1 to 3 (× t100)")?;
         check_range("casagrande.max_secondary_slope_ratio", self.max_secondary_slope_ratio, 0.05, 1.0, "0.05 to 1")?;
         Ok(())
     }
@@ -359,7 +364,7 @@ enum Search {
 
 /// The secondary line: the longest straight tail after node `after` (residual rule, tolerance at least
 /// [`SECONDARY_TOLERANCE_SHARE`] of the primary the tangent implies), started no earlier than
-/// [`SECONDARY_START_OVER_T100`] × the t100 where it meets the tangent — the start moves on and the line is
+/// `secondary_from_t100` × the t100 where it meets the tangent — the start moves on and the line is
 /// refitted until it does — spanning ≥ `secondary_min_decades` with ≥ `secondary_min_points` nodes, and at
 /// most `max_secondary_slope_ratio` of the tangent's slope.
 fn secondary_line(curve: &PreparedCurve, after: usize, tangent: &Line, params: &CasagrandeParams) -> Search {
@@ -404,7 +409,7 @@ fn secondary_line(curve: &PreparedCurve, after: usize, tangent: &Line, params: &
         };
         // A line that never meets the tangent is the caller's to flag.
         let Some((x100, _)) = tangent.intersection(&line) else { return Search::Found(found) };
-        let start_x = x100 + SECONDARY_START_OVER_T100.log10();
+        let start_x = x100 + params.secondary_from_t100.log10();
         if curve.log_t[first] + 1e-12 >= start_x {
             return Search::Found(found);
         }

@@ -23,6 +23,9 @@ pub struct ReductionRules {
     pub gauge_resolution_mm: f64,
     /// The Casagrande secondary line must span at least this many log cycles [ref: casagrande-log-time].
     pub min_secondary_decades: f64,
+    /// It starts no earlier than this × its t100: 1.5, where the primary's tail no longer steepens it by
+    /// more than 2 % of the primary in d100 [ref: casagrande-log-time, computed].
+    pub secondary_from_t100: f64,
     /// The secondary line may be at most this fraction of the inflection tangent's slope. Soft soils with a
     /// large Cα relative to the primary of a step need more than the ideal curve's 0.49
     /// [ref: secondary-compression, computed]; collinearity over the window keeps a curving primary tail out.
@@ -38,6 +41,7 @@ impl Default for ReductionRules {
         ReductionRules {
             gauge_resolution_mm: 0.001,
             min_secondary_decades: 0.3,
+            secondary_from_t100: 1.5,
             max_secondary_slope_ratio: 0.6,
             drainage: Drainage::Double,
             compression: CompressionParams::default(),
@@ -59,6 +63,7 @@ impl ReductionRules {
         let mut params = IncrementParams::with_specimen(specimen.height_mm, specimen.at_reading_mm, self.drainage);
         params.gauge_resolution_mm = self.gauge_resolution_mm;
         params.casagrande.secondary_min_decades = self.min_secondary_decades;
+        params.casagrande.secondary_from_t100 = self.secondary_from_t100;
         params.casagrande.max_secondary_slope_ratio = self.max_secondary_slope_ratio;
         params.solids_height_mm = solids_height_mm;
         params.load_increment_ratio = super::compression::load_increment_ratio(previous_kpa, stress_kpa);
