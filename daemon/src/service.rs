@@ -175,6 +175,8 @@ pub fn assemble(config: &Config, clock: Arc<dyn Clock>, options: Options) -> Res
         caches: Default::default(),
         alarms,
         guard: Arc::new(crate::http::Guard::new(config.http.listen, config.http.public_origins.clone())),
+        streams: Default::default(),
+        connections: Default::default(),
     };
     Ok(Assembled { state, keys, writer_thread, open_alarms })
 }
@@ -231,12 +233,9 @@ impl Assembled {
         tasks.push(tokio::spawn(
             AlarmTask::new(sources, config.alarms.clone(), state.alarms.clone(), open_alarms).run(),
         ));
+        let connections = state.connections.clone();
         let app = router(state);
-        tasks.push(tokio::spawn(async move {
-            if let Err(error) = axum::serve(listener, app).await {
-                tracing::error!("http server stopped: {error}");
-            }
-        }));
+        tasks.push(tokio::spawn(crate::http::serve(listener, app, crate::http::ServeLimits::default(), connections)));
         drop(sinks);
         Ok(Running { live, lab, hub, writer, http_addr, writer_thread, tasks, clock })
     }

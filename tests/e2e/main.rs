@@ -7,6 +7,7 @@ mod analyze;
 mod api;
 mod daemon;
 mod demo_truth;
+mod flood;
 mod peers_mbpoll;
 mod peers_pymodbus;
 mod protocol_vs_pymodbus;

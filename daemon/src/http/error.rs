@@ -64,6 +64,9 @@ pub enum ApiError {
     /// A viewer tried to act: 403.
     #[error("user `{0}` is a viewer: reading only (an operator may act)")]
     Forbidden(String),
+    /// A limit of the daemon reached (event streams): 503 with `Retry-After`.
+    #[error("{0}")]
+    Busy(String),
     /// Something failed inside; logged, never sent.
     #[error("internal error: {0}")]
     Internal(String),
@@ -92,6 +95,7 @@ impl ApiError {
             ApiError::Conflict(_) => StatusCode::CONFLICT,
             ApiError::Unauthorized => StatusCode::UNAUTHORIZED,
             ApiError::Forbidden(_) => StatusCode::FORBIDDEN,
+            ApiError::Busy(_) => StatusCode::SERVICE_UNAVAILABLE,
             ApiError::Internal(_) => StatusCode::INTERNAL_SERVER_ERROR,
         }
     }
@@ -138,6 +142,9 @@ impl IntoResponse for ApiError {
             response
                 .headers_mut()
                 .insert(header::WWW_AUTHENTICATE, HeaderValue::from_static("Basic realm=\"oedolog\""));
+        }
+        if status == StatusCode::SERVICE_UNAVAILABLE {
+            response.headers_mut().insert(header::RETRY_AFTER, HeaderValue::from_static("5"));
         }
         response
     }

@@ -87,6 +87,27 @@ pub(crate) fn render(state: &AppState) -> String {
         let _ = writeln!(out, "# TYPE oedolog_clock_wall_offset_seconds gauge");
         let _ = writeln!(out, "oedolog_clock_wall_offset_seconds {offset}");
     }
+    let _ = writeln!(
+        out,
+        "# HELP oedolog_http_connections_open HTTP connections open now (capped; at the cap the quietest gives way)."
+    );
+    let _ = writeln!(out, "# TYPE oedolog_http_connections_open gauge");
+    let _ = writeln!(out, "oedolog_http_connections_open {}", state.connections.get());
+    let _ = writeln!(
+        out,
+        "# HELP oedolog_http_connections_evicted_total Quiet HTTP connections closed to make room for new ones."
+    );
+    let _ = writeln!(out, "# TYPE oedolog_http_connections_evicted_total counter");
+    let _ = writeln!(out, "oedolog_http_connections_evicted_total {}", state.connections.evicted());
+    let _ = writeln!(
+        out,
+        "# HELP oedolog_http_connections_refused_total HTTP connections answered 503 because every open one was busy."
+    );
+    let _ = writeln!(out, "# TYPE oedolog_http_connections_refused_total counter");
+    let _ = writeln!(out, "oedolog_http_connections_refused_total {}", state.connections.refused());
+    let _ = writeln!(out, "# HELP oedolog_event_streams_open Event streams (/api/stream) open now.");
+    let _ = writeln!(out, "# TYPE oedolog_event_streams_open gauge");
+    let _ = writeln!(out, "oedolog_event_streams_open {}", state.streams.open());
     let _ = writeln!(out, "# HELP oedolog_uptime_seconds Clock seconds since the daemon started.");
     let _ = writeln!(out, "# TYPE oedolog_uptime_seconds gauge");
     let _ = writeln!(out, "oedolog_uptime_seconds {}", (state.clock.now_us() - state.started_us) as f64 / 1e6);

@@ -21,6 +21,7 @@ mod metrics;
 mod overview;
 mod queries;
 mod report;
+mod serve;
 mod web;
 
 #[cfg(test)]
@@ -45,9 +46,11 @@ use crate::watch::Hub;
 pub use auth::{Caller, constant_time_eq};
 pub use cache::Caches;
 pub use error::ApiError;
+pub use events::{MAX_STREAMS, MAX_STREAMS_PER_USER, StreamSlots};
 pub use frames::{FrameView, frame_state};
 pub use guard::Guard;
 pub use increments::{STANDARD_GRAVITY_M_PER_S2, hanger_stress_kpa};
+pub use serve::{ConnectionCount, ServeLimits, serve};
 
 /// What the handlers share.
 #[derive(Clone)]
@@ -78,6 +81,10 @@ pub struct AppState {
     pub alarms: crate::alarms::AlarmBoard,
     /// Which `Host` and `Origin` name this daemon.
     pub guard: Arc<Guard>,
+    /// The open event streams, by user.
+    pub streams: Arc<StreamSlots>,
+    /// The open HTTP connections (counted by [`serve`]).
+    pub connections: Arc<ConnectionCount>,
 }
 
 thread_local! {

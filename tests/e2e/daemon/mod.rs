@@ -74,6 +74,12 @@ impl Daemon {
     pub(crate) fn start_with(binary: &Path, config: &Path, extra: &[&str], ready_timeout: Duration) -> Result<Daemon> {
         let mut command = Command::new(binary);
         command.arg("run").arg("--config").arg(config).args(extra);
+        Daemon::start_command(command, ready_timeout)
+    }
+
+    /// Runs `command` (an `oedolog run` however wrapped) and waits up to `ready_timeout` for its
+    /// `listening on http://` line.
+    pub(crate) fn start_command(command: Command, ready_timeout: Duration) -> Result<Daemon> {
         let mut process = ChildGuard::spawn("oedolog", command)?;
         let line =
             process.wait_for_line(Stream::Stdout, ready_timeout, |line| line.starts_with("listening on http://"))?;
