@@ -283,7 +283,8 @@
       const cvCell = (method, value) => s.cv_method === method
         ? el("td", { class: "proposed", title: "Proposed: " + (s.cv_reason || "") }, fmt.sig(value, 3))
         : el("td", {}, fmt.sig(value, 3));
-      rows.push(el("tr", { "data-seq": s.seq, "data-cv-method": s.cv_method || "" },
+      if (s.void) words.unshift("void: " + s.void.reason + (s.void.by ? " (" + s.void.by + ")" : "") + ", left out of the reduction");
+      rows.push(el("tr", { "data-seq": s.seq, "data-cv-method": s.cv_method || "", class: s.void ? "void" : "" },
         el("td", {}, s.seq), el("td", {}, fmt.sig(s.stress_kpa, 4)),
         el("td", {}, fmt.num(p.e, 4)),
         cvCell("taylor", s.cv_taylor_mm2_per_min),
@@ -294,6 +295,40 @@
         el("td", { class: "flags" }, [...new Set(words)].join("; "))));
     }
     body.replaceChildren(...(rows.length ? rows : [el("tr", {}, el("td", { colspan: 9, class: "empty-note" }, "No load step yet."))]));
+    renderStepTools();
+  }
+
+  // Marking a mistaken load step void keeps it and its readings and leaves it out of the reduction; a void
+  // step can be counted again. Both are journalled under the user's name.
+  let stepToolsKey = null;
+  function renderStepTools() {
+    const host = document.getElementById("step-tools");
+    const key = JSON.stringify(summaries.map((s) => [s.seq, !!s.void]));
+    if (key === stepToolsKey) return;
+    stepToolsKey = key;
+    if (!summaries.length) { host.replaceChildren(); return; }
+    const form = el("form", { class: "act", id: "void-form", novalidate: true },
+      el("div", { class: "row2" },
+        el("div", { class: "field" }, el("label", { for: "f-void-seq" }, "Step"),
+          el("select", { id: "f-void-seq", name: "seq" }, ...summaries.filter((s) => !s.void).map((s) => el("option", { value: s.seq }, s.seq + " — " + fmt.sig(s.stress_kpa, 4) + " kPa")))),
+        field("reason", "Why it is void", { autocomplete: "off", maxlength: 500 })),
+      el("button", { class: "btn quiet", type: "submit" }, "Mark the step void"),
+      el("span", { class: "form-msg", "data-role": "msg" }));
+    form.addEventListener("submit", (ev) => {
+      ev.preventDefault();
+      submit(form, base() + "/increments/" + form.elements.seq.value + "/void", { reason: form.elements.reason.value.trim() }).then(() => { stepToolsKey = null; loadCompression(); });
+    });
+    const restores = summaries.filter((s) => s.void).map((s) => {
+      const f = el("form", { class: "act", "data-restore": s.seq },
+        el("button", { class: "btn quiet", type: "submit" }, "Count step " + s.seq + " again"),
+        el("span", { class: "form-msg", "data-role": "msg" }));
+      f.addEventListener("submit", (ev) => { ev.preventDefault(); submit(f, base() + "/increments/" + s.seq + "/restore", {}).then(() => { stepToolsKey = null; loadCompression(); }); });
+      return f;
+    });
+    host.replaceChildren(el("details", {}, el("summary", {}, "A load step was a mistake?"),
+      el("p", { class: "muted" }, "A void step keeps its readings and stays in this list; it is left out of the void-ratio curve, Cc, Cr, σ′p and the stress before the next step."),
+      ...(summaries.some((s) => !s.void) ? [form] : []), ...restores));
+    if (O.readOnly) host.querySelectorAll("input, button, select").forEach((e) => (e.disabled = true));
   }
 
   // ---- actions ---------------------------------------------------------------------------------------------
@@ -376,7 +411,12 @@
       el("button", { class: "btn", type: "submit" }, "The weights are on — mark applied"),
       el("span", { class: "form-msg", "data-role": "msg" }));
     form.addEventListener("submit", (ev) => { ev.preventDefault(); submit(form, base() + "/increments/current/applied", {}); });
-    return [el("h2", {}, "Load step " + t.increment + " armed: " + fmt.sig(t.stress_kpa, 4) + " kPa"), el("p", {}, "Put the weights on now. oedolog also finds the start of the step from the load cell by itself."), form];
+    const withdraw = el("form", { class: "act", id: "withdraw-form" },
+      el("button", { class: "btn quiet", type: "submit" }, "Wrong stress — withdraw step " + t.increment),
+      el("span", { class: "form-msg", "data-role": "msg" }));
+    withdraw.addEventListener("submit", (ev) => { ev.preventDefault(); submit(withdraw, base() + "/increments/current/withdraw", {}); });
+    return [el("h2", {}, "Load step " + t.increment + " armed: " + fmt.sig(t.stress_kpa, 4) + " kPa"), el("p", {}, "Put the weights on now. oedolog also finds the start of the step from the load cell by itself."), form,
+      el("p", { class: "muted" }, "Armed the wrong stress? Withdraw it before the load goes on, then arm the right one."), withdraw];
   }
 
   function reseatForm(r) {
@@ -406,6 +446,7 @@
     document.body.dataset.readonly = "true";
     const host = document.getElementById("actions");
     host.querySelectorAll("input, button, textarea").forEach((e) => (e.disabled = true));
+    document.querySelectorAll("#step-tools input, #step-tools button, #step-tools select").forEach((e) => (e.disabled = true));
     document.querySelectorAll("#frame-alarms [data-ack]").forEach((b) => b.remove());
     if (!host.querySelector("[data-role=readonly]")) host.prepend(el("p", { class: "form-msg bad", "data-role": "readonly" }, "This account may view only: actions are for an operator."));
   }

@@ -198,6 +198,51 @@ impl Lab {
         Ok(())
     }
 
+    /// The operator withdrew the armed increment of frame `index`, which never began: its row gone, the
+    /// test back on its previous increment (or seating), journalled with `actor`.
+    pub fn withdraw(&self, index: usize, now_us: i64, actor: Option<String>) -> Result<i64, StoreError> {
+        let Some(test) = self.snapshot()[index].clone() else {
+            return Err(StoreError::Refused("no test runs on this frame".into()));
+        };
+        let key = self.keys[index];
+        let seq = test.increment;
+        let stress = test.stress_kpa.map_or("no stress".to_string(), |s| format!("{s} kPa"));
+        let message = format!("increment {seq} ({stress}) withdrawn before its load went on");
+        let step = Step { test_id: test.test_id, frame_key: key, seq };
+        let (state, previous) = lab_book::withdraw_increment(&self.writer, step, now_us, actor, message)?;
+        self.update(index, |t| {
+            t.state = state;
+            t.increment = previous.map_or(0, |i| i.seq);
+            t.stress_kpa = previous.map(|i| i.stress_kpa);
+            t.onset_us = previous.and_then(|i| i.onset_us);
+            t.armed_us = previous.and_then(|i| i.armed_us);
+            t.ready_us = previous.and_then(|i| i.ready_us);
+            t.from_kpa = previous.and_then(|i| i.from_kpa);
+        });
+        Ok(seq)
+    }
+
+    /// Marks increment `seq` of frame `index`'s running test void with `reason`, or counts it again
+    /// (`reason` `None`), journalled with `actor`.
+    pub fn set_void(
+        &self,
+        index: usize,
+        seq: i64,
+        reason: Option<String>,
+        now_us: i64,
+        actor: Option<String>,
+    ) -> Result<(), StoreError> {
+        let Some(test) = self.snapshot()[index].clone() else {
+            return Err(StoreError::Refused("no test runs on this frame".into()));
+        };
+        let step = Step { test_id: test.test_id, frame_key: self.keys[index], seq };
+        let message = match &reason {
+            Some(why) => format!("increment {seq} marked void, left out of the reduction: {why}"),
+            None => format!("increment {seq} counted again in the reduction"),
+        };
+        lab_book::set_increment_void(&self.writer, step, now_us, actor, reason, message)
+    }
+
     /// The watch found the onset of the armed increment: t0 stored, the previous increment ended, state `primary`.
     pub fn set_onset(
         &self,

@@ -199,7 +199,25 @@ async fn run(command: Command) -> anyhow::Result<()> {
                     .await
                     .map_err(|e| anyhow::anyhow!("{e}"))
                     .context("starting the demo")?;
-            println!("dashboard at http://{}/", running.http_addr);
+            // A demo on every interface (0.0.0.0, ::) is reached on this machine through loopback, and from
+            // others through its name: print addresses a browser can open.
+            let addr = running.http_addr;
+            if addr.ip().is_unspecified() {
+                println!("dashboard at http://127.0.0.1:{}/", addr.port());
+                // The address of the default route, found without sending anything (192.0.2.1 is TEST-NET-1,
+                // RFC 5737); a host name needs [http] public_origins to pass the Host check.
+                let routed = std::net::UdpSocket::bind("0.0.0.0:0")
+                    .and_then(|s| s.connect("192.0.2.1:9").and_then(|_| s.local_addr()))
+                    .map(|a| a.ip())
+                    .ok()
+                    .filter(|ip| !ip.is_loopback() && !ip.is_unspecified());
+                match routed {
+                    Some(ip) => println!("  from other machines: http://{ip}:{}/", addr.port()),
+                    None => println!("  from other machines: http://<this machine's IP address>:{}/", addr.port()),
+                }
+            } else {
+                println!("dashboard at http://{addr}/");
+            }
             let why = shutdown_signal().await;
             running.stop(why);
             Ok(())

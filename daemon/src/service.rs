@@ -182,14 +182,27 @@ pub fn assemble(config: &Config, clock: Arc<dyn Clock>, options: Options) -> Res
 }
 
 /// Assembles and starts everything the configuration describes.
+///
+/// The HTTP port is bound first, so a start refused for a busy port creates no database and starts no bus.
 pub async fn start(config: &Config, clock: Arc<dyn Clock>, options: Options) -> Result<Running, StartError> {
-    assemble(config, clock, options)?.start(config).await
+    let listener = bind(config.http.listen).await?;
+    assemble(config, clock, options)?.start_on(config, listener).await
+}
+
+async fn bind(addr: std::net::SocketAddr) -> Result<TcpListener, StartError> {
+    TcpListener::bind(addr).await.map_err(|source| StartError::Bind { addr, source })
 }
 
 impl Assembled {
     /// Starts the assembled daemon: the watch thread fed by acquisition, the bus tasks, the clock's step
     /// journal, the webhooks, the alarm task and the HTTP server on `config.http.listen`.
     pub async fn start(self, config: &Config) -> Result<Running, StartError> {
+        let listener = bind(config.http.listen).await?;
+        self.start_on(config, listener).await
+    }
+
+    /// [`Assembled::start`] serving HTTP on `listener`, already bound to `config.http.listen`.
+    pub async fn start_on(self, config: &Config, listener: TcpListener) -> Result<Running, StartError> {
         let Assembled { state, keys, writer_thread, open_alarms } = self;
         let (writer, clock, hub, live, lab) =
             (state.writer.clone(), state.clock.clone(), state.hub.clone(), state.live.clone(), state.lab.clone());
@@ -214,9 +227,6 @@ impl Assembled {
             crate::notify::NotifyPolicy::default(),
         )?;
         tasks.push(notify);
-        let listener = TcpListener::bind(config.http.listen)
-            .await
-            .map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
         let http_addr =
             listener.local_addr().map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
         state.guard.bound(http_addr);

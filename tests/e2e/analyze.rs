@@ -440,7 +440,7 @@ fn broken_files_fail_with_status_1_naming_the_line_and_field() {
         (
             "stress.toml",
             good.replace("stress_kpa = 50", "stress_kpa = 0"),
-            "line 12, column 14: increment[1].stress_kpa: 0 is not allowed (allowed above 0, up to 1e6 kPa)",
+            "line 12, column 14: increment[1].stress_kpa: 0 is not allowed (allowed from 0.1 kPa (the resolution stresses are stated to) up to 100000 kPa)",
         ),
         (
             "gs.toml",

@@ -13,5 +13,6 @@ pub mod alarms;
 pub mod analysis;
 pub mod diagnostics;
 pub mod offline;
+pub mod quantity;
 pub mod replay;
 pub mod watch;

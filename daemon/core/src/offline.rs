@@ -20,14 +20,13 @@ use crate::analysis::{
     StepInput, StepReduction, TestInput, TestSpecimen, phase_relations, reduce_increment, reduce_test,
 };
 use crate::diagnostics::{at_prefix, field_at, line_column};
+use crate::quantity::{MAX_STRESS_KPA, STRESS_ALLOWED, STRESS_RESOLUTION_KPA};
 
 /// The one header a time-curve CSV may have: minutes since the load went on, compression positive in mm.
 #[cfg(test)]
 const CSV_HEADER: &str = "time_min,displacement_mm";
 /// Largest drainage path `analyze increment` accepts, mm (a 2 m specimen is no oedometer specimen).
 pub(crate) const MAX_DRAINAGE_PATH_MM: f64 = 1000.0;
-/// Largest stress a test file may give, kPa (the analysis refuses more).
-const MAX_STRESS_KPA: f64 = 1e6;
 
 // ---------------------------------------------------------------------------------------------------------
 // Errors
@@ -826,17 +825,13 @@ fn check_specimen(check: &Checker<'_>, file: &TestFile) -> Result<CheckedSpecime
         error => OfflineError::Analysis { path: path.to_path_buf(), error },
     })?;
     let seating_stress_kpa = match &s.seating_stress_kpa {
-        Some(v) => check.range(v, "specimen.seating_stress_kpa", 0.0, MAX_STRESS_KPA, "0 to 1e6 kPa")?,
+        Some(v) => check.range(v, "specimen.seating_stress_kpa", 0.0, MAX_STRESS_KPA, "0 to 100000 kPa")?,
         None => 0.0,
     };
     let sigma_v0_kpa = match &s.sigma_v0_kpa {
-        Some(v) => Some(check.range(
-            v,
-            "specimen.sigma_v0_kpa",
-            f64::MIN_POSITIVE,
-            MAX_STRESS_KPA,
-            "above 0, up to 1e6 kPa",
-        )?),
+        Some(v) => {
+            Some(check.range(v, "specimen.sigma_v0_kpa", STRESS_RESOLUTION_KPA, MAX_STRESS_KPA, STRESS_ALLOWED)?)
+        }
         None => None,
     };
     let final_water_content = match &s.final_water_content {
@@ -866,9 +861,9 @@ fn read_steps(
         let stress = check.range(
             &inc.stress_kpa,
             &format!("increment[{i}].stress_kpa"),
-            f64::MIN_POSITIVE,
+            STRESS_RESOLUTION_KPA,
             MAX_STRESS_KPA,
-            "above 0, up to 1e6 kPa",
+            STRESS_ALLOWED,
         )?;
         let settlement = *inc.settlement_mm.get_ref();
         if !specimen.settlement_ok(settlement) {
@@ -909,6 +904,7 @@ fn reduce_file_test(
         .iter()
         .zip(curves)
         .map(|(&(stress_kpa, settlement_mm), curve)| StepInput {
+            void: false,
             stress_kpa,
             settlement_mm: Some(settlement_mm),
             readings: curve.as_deref(),

@@ -486,8 +486,12 @@ impl NotifyEvent {
             EventKind::Ready => Some(NotifyEvent::Ready),
             EventKind::AlarmRaised | EventKind::AlarmAcknowledged | EventKind::AlarmCleared => Some(NotifyEvent::Alarm),
             EventKind::Onset => Some(NotifyEvent::Onset),
-            EventKind::Armed => Some(NotifyEvent::Armed),
-            EventKind::TestStarted | EventKind::TestFinished | EventKind::TestResumed => Some(NotifyEvent::Test),
+            EventKind::Armed | EventKind::StepWithdrawn => Some(NotifyEvent::Armed),
+            EventKind::TestStarted
+            | EventKind::TestFinished
+            | EventKind::TestResumed
+            | EventKind::StepVoided
+            | EventKind::StepRestored => Some(NotifyEvent::Test),
             EventKind::BusDown | EventKind::BusUp => Some(NotifyEvent::Bus),
             EventKind::ReseatProposed | EventKind::ReseatResolved => Some(NotifyEvent::Reseat),
             EventKind::LoadOff | EventKind::LoadBack | EventKind::LoadChangeUnarmed => Some(NotifyEvent::Load),
@@ -680,6 +684,22 @@ impl Checker<'_> {
         }
     }
 
+    fn within(
+        &mut self,
+        value: &Spanned<f64>,
+        field: &str,
+        range: std::ops::RangeInclusive<f64>,
+        what: &str,
+    ) -> Option<f64> {
+        let v = *value.get_ref();
+        if v.is_finite() && range.contains(&v) {
+            Some(v)
+        } else {
+            self.at(value.span(), field, format!("{v} is not allowed ({what})"));
+            None
+        }
+    }
+
     fn positive(&mut self, value: &Spanned<f64>, field: &str, what: &str) -> Option<f64> {
         let v = *value.get_ref();
         if v.is_finite() && v > 0.0 {
@@ -730,6 +750,12 @@ fn unescape(text: &str) -> Result<Vec<u8>, String> {
     }
     Ok(out)
 }
+
+/// Oedometer rings of 20 to 200 mm (common practice: 50–75 mm rings are usual; the API's specimen
+/// diameter takes the same range).
+const RING_DIAMETER_MM: std::ops::RangeInclusive<f64> = 20.0..=200.0;
+/// Their areas, mm²: π·10² to π·100² (computed).
+const RING_AREA_MM2: std::ops::RangeInclusive<f64> = 314.0..=31_416.0;
 
 fn valid_id(id: &str) -> bool {
     !id.is_empty() && id.len() <= 32 && id.chars().all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_')
@@ -1027,6 +1053,7 @@ fn check_notify(c: &mut Checker<'_>, notify: &raw::RawNotify) -> NotifyConfig {
 fn check_users(c: &mut Checker<'_>, http: &raw::RawHttp) -> Vec<User> {
     let mut users = Vec::new();
     let mut names = HashSet::new();
+    let mut tokens: HashMap<String, String> = HashMap::new();
     for (i, u) in http.users.iter().enumerate() {
         let u = u.get_ref();
         let field = |name: &str| format!("http.user[{i}].{name}");
@@ -1049,14 +1076,23 @@ fn check_users(c: &mut Checker<'_>, http: &raw::RawHttp) -> Vec<User> {
             }
         };
         let token = u.token.get_ref();
-        if token.chars().count() < MIN_TOKEN_CHARS || token.chars().any(|ch| ch.is_control() || ch == ' ') {
-            // The token itself is never echoed.
+        // The token itself is never echoed.
+        if token.chars().count() < MIN_TOKEN_CHARS || !token.chars().all(|ch| ch.is_ascii_graphic()) {
             c.at(
                 u.token.span(),
                 field("token"),
                 format!(
-                    "too short or has spaces (allowed: at least {MIN_TOKEN_CHARS} printable characters, no spaces)"
+                    "too short, or has spaces or characters outside ASCII, which an Authorization header cannot carry (allowed: at least {MIN_TOKEN_CHARS} printable ASCII characters, no spaces)"
                 ),
+            );
+        } else if let Some(first) = tokens.get(token).cloned().or_else(|| {
+            tokens.insert(token.clone(), name.clone());
+            None
+        }) {
+            c.at(
+                u.token.span(),
+                field("token"),
+                format!("the same token as user `{first}`: it would sign in as whoever is listed first (allowed: a token of its own for each user)"),
             );
         }
         if let Some(role) = role {
@@ -1284,9 +1320,14 @@ fn check_frame(
         }
     };
     let ring_area_mm2 = match (&f.ring_area_mm2, &f.ring_diameter_mm) {
-        (Some(a), None) => c.positive(a, &field("ring_area_mm2"), "allowed a positive area in mm², e.g. 3117"),
+        (Some(a), None) => c.within(
+            a,
+            &field("ring_area_mm2"),
+            RING_AREA_MM2,
+            "allowed 314 to 31416 mm² (rings of 20 to 200 mm), e.g. 3167 for a 63.5 mm ring",
+        ),
         (None, Some(d)) => c
-            .positive(d, &field("ring_diameter_mm"), "allowed a positive diameter in mm, e.g. 63.5")
+            .within(d, &field("ring_diameter_mm"), RING_DIAMETER_MM, "allowed 20 to 200 mm, e.g. 63.5")
             .map(|d| std::f64::consts::PI * d * d / 4.0),
         (Some(a), Some(_)) => {
             c.at(a.span(), field("ring_area_mm2"), "give ring_area_mm2 or ring_diameter_mm, not both");
@@ -1318,6 +1359,8 @@ fn check_frame(
             c.int::<u64>(v, &field("fast_window_s"), 0..86_401, "allowed 0 to 86400 s").unwrap_or(600),
         ),
     };
+    let channel_spans =
+        [Some(f.displacement.span()), f.load.as_ref().map(|l| l.span()), f.temperature.as_ref().map(|t| t.span())];
     let displacement = check_channel(c, f.displacement, &field("displacement"), line_gauge, (-1.0, 100.0), (0.0, 1.0));
     let load = match f.load {
         Some(l) => {
@@ -1343,6 +1386,36 @@ fn check_frame(
         }
     });
     let deflection = f.deflection.and_then(|d| check_deflection(c, d, &field("deflection")));
+    // Two channels reading the same register would each take the other's value for theirs.
+    let maps = [
+        ("displacement", displacement.as_ref().and_then(|ch| ch.register.as_ref())),
+        ("load", load.as_ref().and_then(|ch| ch.register.as_ref())),
+        ("temperature", temperature.as_ref().and_then(|ch| ch.register.as_ref())),
+    ];
+    for (j, (name, map)) in maps.iter().enumerate() {
+        let Some(map) = map else { continue };
+        let words =
+            |m: &RegisterMap| (u32::from(m.address), u32::from(m.address) + u32::from(m.value_type.words()) - 1);
+        let (first, last) = words(map);
+        for (other, other_map) in maps[..j].iter() {
+            let Some(other_map) = other_map.filter(|o| o.table == map.table) else { continue };
+            let (o_first, o_last) = words(other_map);
+            if first <= o_last && o_first <= last {
+                let table = match map.table {
+                    oedolog_protocol::registers::RegisterTable::Holding => "holding",
+                    oedolog_protocol::registers::RegisterTable::Input => "input",
+                };
+                let span = channel_spans[j].clone().unwrap_or(f.id.span());
+                c.at(
+                    span,
+                    field(&format!("{name}.register")),
+                    format!(
+                        "{table} registers {first}–{last} overlap the {other}'s {o_first}–{o_last} on this frame (allowed: registers of its own for each channel)"
+                    ),
+                );
+            }
+        }
+    }
     if c.problems.len() > before {
         return None;
     }

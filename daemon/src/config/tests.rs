@@ -147,7 +147,7 @@ fn broken_files_each_get_a_message_naming_the_field_and_what_is_allowed() {
             "zero ring",
             |s| replace("ring_diameter_mm = 63.5", "ring_diameter_mm = 0.0")(s),
             "frame[0].ring_diameter_mm",
-            "allowed a positive diameter",
+            "allowed 20 to 200 mm",
             15,
         ),
         (
@@ -387,6 +387,14 @@ fn bad_http_users_and_an_open_address_without_users_are_refused_at_their_line() 
             6,
         ),
         ("colon in a name", user("ol:ga", "viewer", "0123456789abcdef"), "http.user[0].name", "no `:`", 2),
+        (
+            "two users sharing a token",
+            user("vera", "viewer", "0123456789abcdef") + &user("olga", "operator", "0123456789abcdef"),
+            "http.user[1].token",
+            "the same token as user `vera`",
+            8,
+        ),
+        ("non-ASCII token", user("olga", "operator", "0123456789abcdéf"), "http.user[0].token", "outside ASCII", 4),
         ("open without users", "listen = \"0.0.0.0:8321\"\n".into(), "http.listen", "[[http.user]]", 1),
     ];
     for (what, tail, field, words, line) in cases {
@@ -446,8 +454,8 @@ fn webhook_urls_default_to_port_80_and_path_slash_and_name_the_journal_kinds_of_
         (NotifyEvent::Ready, &["ready"]),
         (NotifyEvent::Alarm, &["alarm-raised", "alarm-acknowledged", "alarm-cleared"]),
         (NotifyEvent::Onset, &["onset"]),
-        (NotifyEvent::Armed, &["armed"]),
-        (NotifyEvent::Test, &["test-started", "test-finished", "test-resumed"]),
+        (NotifyEvent::Armed, &["armed", "step-withdrawn"]),
+        (NotifyEvent::Test, &["test-started", "test-finished", "test-resumed", "step-voided", "step-restored"]),
         (NotifyEvent::Bus, &["bus-down", "bus-up"]),
         (NotifyEvent::Reseat, &["reseat-proposed", "reseat-resolved"]),
         (NotifyEvent::Load, &["load-off", "load-back", "load-change-unarmed"]),
@@ -510,4 +518,46 @@ fn public_origins_are_scheme_host_and_port_only_and_refused_at_their_line() {
         );
         assert_eq!(problem.line, base_lines + 3, "{bad}: {problem}");
     }
+}
+
+#[test]
+fn implausible_rings_and_overlapping_registers_are_refused_naming_the_frame_s_index() {
+    let second = "\n[[frame]]\nid = \"F2\"\nbus = \"line-a\"\nunit = 2\nring_diameter_mm = 63.5\n\
+                  [frame.displacement]\nregister = { table = \"input\", address = 0, type = \"i32\" }\n\
+                  [frame.load]\nregister = { table = \"input\", address = 2, type = \"i32\" }\n";
+    let cases: Vec<(&str, String, &str, &str)> = vec![
+        (
+            "a ring of 0.001 mm",
+            BASE.replacen("ring_diameter_mm = 63.5", "ring_diameter_mm = 0.001", 1),
+            "frame[0].ring_diameter_mm",
+            "allowed 20 to 200 mm",
+        ),
+        (
+            "a ring area of 3 mm²",
+            BASE.replacen("ring_diameter_mm = 63.5", "ring_area_mm2 = 3.0", 1),
+            "frame[0].ring_area_mm2",
+            "allowed 314 to 31416 mm²",
+        ),
+        (
+            "the load cell on the gauge's second word",
+            BASE.replacen("address = 2, type = \"i32\"", "address = 1, type = \"i32\"", 1),
+            "frame[0].load.register",
+            "input registers 1–2 overlap the displacement's 0–1",
+        ),
+        (
+            "a type error in the second frame",
+            format!("{BASE}{second}").replacen("unit = 2", "unit = 2\npoll_ms = \"fast\"", 1),
+            "frame[1].poll_ms",
+            "invalid type",
+        ),
+    ];
+    for (what, text, field, words) in cases {
+        let error = Config::parse(&text, Purpose::Run).expect_err(what);
+        let problem = error.problems.iter().find(|p| p.field == field).unwrap_or_else(|| panic!("{what}: {error}"));
+        assert!(problem.message.contains(words), "{what}: {}", problem.message);
+    }
+    // The same addresses in the other table do not overlap, and the second frame's maps are its own.
+    let other_table = BASE.replacen("table = \"input\", address = 2", "table = \"holding\", address = 0", 1);
+    assert!(Config::parse(&other_table, Purpose::Run).is_ok());
+    assert!(Config::parse(&format!("{BASE}{second}"), Purpose::Run).is_ok());
 }

@@ -34,8 +34,45 @@ fn between_backticks(message: &str) -> Option<String> {
     Some(message[start..end].to_string())
 }
 
-/// Parses `bytes` as JSON into `T`, mapping serde's errors to the API's.
+/// Characters no typed text may hold: controls (newline and tab aside where allowed), and the
+/// bidirectional embeddings, overrides and isolates that make text read other than it is stored.
+fn refused_char(c: char, multiline: bool) -> bool {
+    (c.is_control() && !(multiline && (c == '\n' || c == '\t')))
+        || ('\u{202a}'..='\u{202e}').contains(&c)
+        || ('\u{2066}'..='\u{2069}').contains(&c)
+}
+
+/// A text field a person typed (a note, a reason, a specimen name): trimmed, `min` to `max` characters,
+/// refused whole (naming the field and the character) if it holds a control character — newlines and
+/// tabs are allowed where `multiline` — or a bidirectional override.
+pub(crate) fn typed_text(field: &str, text: &str, min: usize, max: usize, multiline: bool) -> Result<String, ApiError> {
+    let text = text.trim();
+    if let Some(c) = text.chars().find(|&c| refused_char(c, multiline)) {
+        let allowed = if multiline {
+            "printable text, newlines and tabs (no other control characters or direction overrides)"
+        } else {
+            "printable text on one line (no control characters or direction overrides)"
+        };
+        return Err(ApiError::invalid(field, format!("holds the character U+{:04X}", c as u32), allowed));
+    }
+    let chars = text.chars().count();
+    if chars < min || chars > max {
+        return Err(ApiError::invalid(field, format!("{chars} characters"), format!("{min} to {max} characters")));
+    }
+    Ok(text.to_string())
+}
+
+/// Parses `bytes` as JSON into `T`, mapping serde's errors to the API's. The body must be a JSON object
+/// (serde would also take an array for a struct).
 pub(crate) fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
+    let first = bytes.iter().find(|b| !b.is_ascii_whitespace());
+    if first.is_some_and(|b| *b != b'{') {
+        return Err(ApiError::BadRequest {
+            error: "the body is not a JSON object".into(),
+            field: None,
+            allowed: Some("a JSON object, e.g. {}".into()),
+        });
+    }
     serde_json::from_slice(bytes).map_err(|error| {
         let message = error.to_string();
         // Drop serde's " at line 1 column 5": the field names the place.

@@ -152,7 +152,10 @@ impl IntoResponse for ApiError {
 
 impl From<StoreError> for ApiError {
     fn from(error: StoreError) -> Self {
-        ApiError::Internal(error.to_string())
+        match error {
+            StoreError::Refused(why) => ApiError::Conflict(why),
+            other => ApiError::Internal(other.to_string()),
+        }
     }
 }
 
@@ -162,7 +165,7 @@ impl From<HubError> for ApiError {
             HubError::NoFrame => ApiError::NotFound("no such frame".into()),
             HubError::Watch(WatchError::State(..)) => ApiError::Conflict(error.to_string()),
             HubError::Watch(WatchError::Value { field, message }) => ApiError::invalid(field, message.clone(), message),
-            HubError::Store(e) => ApiError::Internal(e.to_string()),
+            HubError::Store(e) => ApiError::from(e),
         }
     }
 }

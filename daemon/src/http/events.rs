@@ -128,10 +128,10 @@ async fn list(
 fn resume_from(headers: &HeaderMap, query: &HashMap<String, String>) -> Result<Option<i64>, ApiError> {
     if let Some(v) = headers.get("last-event-id") {
         let text = v.to_str().unwrap_or("");
-        return text.trim().parse::<i64>().map(Some).map_err(|_| ApiError::BadRequest {
+        return text.trim().parse::<i64>().ok().filter(|id| *id >= 0).map(Some).ok_or_else(|| ApiError::BadRequest {
             error: format!("Last-Event-ID `{text}` is not an event id"),
             field: Some("Last-Event-ID".into()),
-            allowed: Some("a whole number (the id of the last event received)".into()),
+            allowed: Some("a whole number from 0 (the id of the last event received), as for ?after=".into()),
         });
     }
     query.get("after").map(|_| int_param(query, "after", 0, 0, i64::MAX)).transpose()

@@ -24,12 +24,8 @@ use crate::store::{Event, EventKind, Reader, journal};
 use axum::body::Bytes;
 use oedolog_core::analysis::IncrementReduction;
 
-/// Standard gravity gn = 9.80665 m/s² (3rd CGPM, 1901), for hanger masses.
-pub const STANDARD_GRAVITY_M_PER_S2: f64 = 9.806_65;
-/// Largest stress an increment may ask for, kPa (a generous bound for laboratory oedometers).
-const MAX_STRESS_KPA: f64 = 100_000.0;
-/// Largest hanger mass, kg.
-const MAX_HANGER_KG: f64 = 2_000.0;
+use oedolog_core::quantity::{FrameCapacity, MAX_HANGER_KG, check_stress};
+pub use oedolog_core::quantity::{STANDARD_GRAVITY_M_PER_S2, hanger_stress_kpa};
 
 /// `POST /api/frames/{id}/increments`: exactly one of the two.
 #[derive(Debug, Deserialize)]
@@ -41,9 +37,13 @@ pub(crate) struct Arm {
     pub hanger_mass_kg: Option<f64>,
 }
 
-/// The stress a hanger mass gives: m·gn·lever ratio / area; N/mm² = MPa, so ×1000 for kPa.
-pub fn hanger_stress_kpa(mass_kg: f64, lever_ratio: f64, ring_area_mm2: f64) -> f64 {
-    mass_kg * STANDARD_GRAVITY_M_PER_S2 * lever_ratio / ring_area_mm2 * 1000.0
+/// What frame `frame` can put on its specimen (the shared rule of `oedolog_core::quantity`).
+pub(crate) fn frame_capacity(frame: &crate::config::Frame) -> Option<FrameCapacity> {
+    let lever = match frame.loading {
+        Loading::DeadWeight { lever_ratio } => Some(lever_ratio),
+        Loading::Pneumatic | Loading::Motor => None,
+    };
+    FrameCapacity::of(frame.ring_area_mm2, frame.load.as_ref().map(|l| l.range.end), lever)
 }
 
 #[derive(Debug, Serialize)]
@@ -64,13 +64,10 @@ async fn arm(
 ) -> Result<(StatusCode, Json<Armed>), ApiError> {
     let index = state.frame_index(&id)?;
     let frame = &state.frames[index];
+    let capacity = frame_capacity(frame);
     let stress_kpa = match (body.stress_kpa, body.hanger_mass_kg) {
-        (Some(s), None) => {
-            if !(s.is_finite() && s > 0.0 && s <= MAX_STRESS_KPA) {
-                return Err(ApiError::invalid("stress_kpa", format!("{s} is out of range"), "0 < stress ≤ 100000 kPa"));
-            }
-            s
-        }
+        (Some(s), None) => check_stress(s, capacity.as_ref())
+            .map_err(|r| ApiError::invalid("stress_kpa", format!("{} kPa is not allowed", r.value), r.allowed))?,
         (None, Some(m)) => {
             let Loading::DeadWeight { lever_ratio } = frame.loading else {
                 return Err(ApiError::invalid(
@@ -83,14 +80,13 @@ async fn arm(
                 return Err(ApiError::invalid("hanger_mass_kg", format!("{m} is out of range"), "0 < mass ≤ 2000 kg"));
             }
             let s = hanger_stress_kpa(m, lever_ratio, frame.ring_area_mm2);
-            if s > MAX_STRESS_KPA {
-                return Err(ApiError::invalid(
+            check_stress(s, capacity.as_ref()).map_err(|r| {
+                ApiError::invalid(
                     "hanger_mass_kg",
-                    format!("{m} kg gives {s:.0} kPa"),
-                    "a mass giving at most 100000 kPa",
-                ));
-            }
-            s
+                    format!("{m} kg gives {s:.1} kPa"),
+                    format!("a mass giving {}", r.allowed),
+                )
+            })?
         }
         _ => {
             return Err(ApiError::invalid(
@@ -150,6 +146,82 @@ async fn applied(
     Ok(Json(serde_json::json!({ "test_id": test_id, "seq": seq, "reported_at": rfc3339(now) })))
 }
 
+/// `POST /api/frames/{id}/increments/current/withdraw` (body `{}`): the armed step goes, if its load has
+/// not gone on.
+async fn withdraw(
+    State(state): State<AppState>,
+    Path(id): Path<String>,
+    caller: Option<Extension<Caller>>,
+    JsonBody(_): JsonBody<Empty>,
+) -> Result<Json<serde_json::Value>, ApiError> {
+    let index = state.frame_index(&id)?;
+    let who = actor(caller.as_ref());
+    let (seq, test) = state
+        .blocking(move |state| {
+            if state.lab.snapshot()[index].is_none() {
+                return Err(ApiError::Conflict(format!("no test runs on frame `{id}`")));
+            }
+            let seq = state.hub.withdraw(index, who)?;
+            Ok((seq, state.lab.snapshot()[index].clone()))
+        })
+        .await?;
+    Ok(Json(serde_json::json!({
+        "frame": state.frames[index].id,
+        "withdrawn": seq,
+        "state": test.as_ref().map(|t| t.state),
+        "increment": test.as_ref().map(|t| t.increment),
+    })))
+}
+
+/// An empty object, the body of actions that take no values.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct Empty {}
+
+/// `POST /api/frames/{id}/increments/{seq}/void`: the step is kept and shown, and left out of the
+/// reduction.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct Void {
+    /// Why, for the journal and the report: 3–500 characters.
+    reason: String,
+}
+
+async fn void(
+    State(state): State<AppState>,
+    Path((id, seq)): Path<(String, String)>,
+    caller: Option<Extension<Caller>>,
+    JsonBody(body): JsonBody<Void>,
+) -> Result<Json<serde_json::Value>, ApiError> {
+    let reason = super::body::typed_text("reason", &body.reason, 3, 500, false)?;
+    set_void(state, id, seq, Some(reason), caller).await
+}
+
+/// `POST /api/frames/{id}/increments/{seq}/restore` (body `{}`): a void step counts again.
+async fn restore(
+    State(state): State<AppState>,
+    Path((id, seq)): Path<(String, String)>,
+    caller: Option<Extension<Caller>>,
+    JsonBody(_): JsonBody<Empty>,
+) -> Result<Json<serde_json::Value>, ApiError> {
+    set_void(state, id, seq, None, caller).await
+}
+
+async fn set_void(
+    state: AppState,
+    id: String,
+    seq: String,
+    reason: Option<String>,
+    caller: Option<Extension<Caller>>,
+) -> Result<Json<serde_json::Value>, ApiError> {
+    let index = state.frame_index(&id)?;
+    let seq = seq_of(&seq)?;
+    let who = actor(caller.as_ref());
+    let void = reason.is_some();
+    state.blocking(move |state| Ok(state.hub.set_void(index, seq, reason, who)?)).await?;
+    Ok(Json(serde_json::json!({ "frame": state.frames[index].id, "seq": seq, "void": void })))
+}
+
 /// `POST /api/frames/{id}/reseat`.
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -185,11 +257,7 @@ async fn note(
     JsonBody(body): JsonBody<Note>,
 ) -> Result<(StatusCode, Json<queries::EventView>), ApiError> {
     let index = state.frame_index(&id)?;
-    let text = body.text.trim().to_string();
-    let chars = text.chars().count();
-    if chars == 0 || chars > 2000 {
-        return Err(ApiError::invalid("text", format!("{chars} characters"), "1 to 2000 characters"));
-    }
+    let text = super::body::typed_text("text", &body.text, 1, 2000, true)?;
     let who = actor(caller.as_ref());
     let key = state.lab.key(index);
     let now = state.clock.now_us();
@@ -579,6 +647,9 @@ pub(super) fn router() -> Router<AppState> {
     Router::new()
         .route("/api/frames/{id}/increments", post(arm))
         .route("/api/frames/{id}/increments/current/applied", post(applied))
+        .route("/api/frames/{id}/increments/current/withdraw", post(withdraw))
+        .route("/api/frames/{id}/increments/{seq}/void", post(void))
+        .route("/api/frames/{id}/increments/{seq}/restore", post(restore))
         .route("/api/frames/{id}/reseat", post(reseat))
         .route("/api/frames/{id}/notes", post(note))
         .route("/api/frames/{id}/increments/{seq}/readings", get(readings))

@@ -62,13 +62,11 @@ fn in_range(field: &str, value: f64, low: f64, high: f64, unit: &str) -> Result<
 
 /// Checks a new test's data; the warnings do not refuse it.
 pub(crate) fn validate(t: &NewTest) -> Result<Vec<Warning>, ApiError> {
-    let specimen = t.specimen.trim();
-    if specimen.is_empty() || specimen.chars().count() > 100 {
+    if t.specimen.trim().is_empty() {
         return Err(ApiError::invalid("specimen", "must name the specimen", "1 to 100 characters"));
     }
-    if t.description.chars().count() > 500 {
-        return Err(ApiError::invalid("description", "too long", "up to 500 characters"));
-    }
+    super::body::typed_text("specimen", &t.specimen, 1, 100, false)?;
+    super::body::typed_text("description", &t.description, 0, 500, true)?;
     in_range("height_mm", t.height_mm, 5.0, 100.0, " mm")?;
     in_range("diameter_mm", t.diameter_mm, 20.0, 200.0, " mm")?;
     if !(t.dry_mass_g.is_finite() && t.dry_mass_g > 0.0) {
@@ -165,9 +163,7 @@ async fn finish(
 ) -> Result<Json<serde_json::Value>, ApiError> {
     let index = state.frame_index(&id)?;
     let reason = body.and_then(|b| b.reason).unwrap_or_default();
-    if reason.chars().count() > 500 {
-        return Err(ApiError::invalid("reason", "too long", "up to 500 characters"));
-    }
+    let reason = super::body::typed_text("reason", &reason, 0, 500, true)?;
     let who = actor(caller.as_ref());
     let key = state.lab.key(index);
     let test_id = state

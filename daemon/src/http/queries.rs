@@ -111,12 +111,25 @@ pub(crate) struct IncrementView {
     pub ready_at: Option<String>,
     /// When the next increment began or the test finished.
     pub ended_at: Option<String>,
+    /// Set when an operator marked the step void: it is kept and shown, and left out of the reduction.
+    pub void: Option<VoidMark>,
     /// t0, µs.
     #[serde(skip)]
     pub onset_us: Option<i64>,
     /// End, µs.
     #[serde(skip)]
     pub ended_us: Option<i64>,
+}
+
+/// Who marked a step void, when and why.
+#[derive(Clone, Debug, Serialize)]
+pub(crate) struct VoidMark {
+    /// RFC 3339 UTC.
+    pub at: String,
+    /// The user, when there are users.
+    pub by: Option<String>,
+    /// Why.
+    pub reason: String,
 }
 
 impl From<StoredIncrement> for IncrementView {
@@ -131,6 +144,11 @@ impl From<StoredIncrement> for IncrementView {
             onset_source: i.onset_source,
             ready_at: i.ready_us.map(rfc3339),
             ended_at: i.ended_us.map(rfc3339),
+            void: i.void_us.map(|at| VoidMark {
+                at: rfc3339(at),
+                by: i.void_by.clone(),
+                reason: i.void_reason.clone().unwrap_or_default(),
+            }),
             onset_us: i.onset_us,
             ended_us: i.ended_us,
         }
@@ -315,6 +333,7 @@ pub(crate) fn reduce_test(
         .map(|(row, curve)| {
             let readings = curve.as_ref().map(|c| &c.readings[..]);
             StepInput {
+                void: row.void.is_some(),
                 stress_kpa: row.stress_kpa,
                 settlement_mm: zero.zip(readings.and_then(|r| r.last())).map(|(z, d)| d.1 - z),
                 readings,

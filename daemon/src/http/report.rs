@@ -166,7 +166,15 @@ td.l,th.l{{text-align:left}}.plot{{max-width:640px;width:100%}}.caution{{border:
             num(i.cv_casagrande_mm2_per_min, 3),
             proposed,
             sci(i.c_alpha_strain),
-            escape(&i.flag_messages.join("; "))
+            escape(&match &i.row.void {
+                Some(v) => {
+                    let by = v.by.as_deref().map_or(String::new(), |b| format!(" by {b}"));
+                    let mut words = vec![format!("VOID{by} ({}): {}; left out of the reduction", v.at, v.reason)];
+                    words.extend(i.flag_messages.iter().cloned());
+                    words.join("; ")
+                }
+                None => i.flag_messages.join("; "),
+            })
         );
     }
     html += "</table>";

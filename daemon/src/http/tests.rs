@@ -1163,3 +1163,182 @@ async fn pages_json_and_errors_carry_the_security_headers() {
         assert_eq!(headers[header::REFERRER_POLICY], "same-origin", "{path}");
     }
 }
+
+#[tokio::test]
+async fn a_stress_is_held_to_the_shared_rule_and_the_frame_s_capacity_changing_nothing() {
+    let b = bench(false);
+    let (status, _) = call(&b.state, "POST", "/api/frames/F1/tests", Some(specimen())).await;
+    assert_eq!(status, StatusCode::CREATED);
+    // The probe's 1e-300 kPa, and stresses below the 0.1 kPa resolution.
+    for tiny in [1e-300, 0.0, 0.05] {
+        let (status, error) =
+            call(&b.state, "POST", "/api/frames/F1/increments", Some(json!({ "stress_kpa": tiny }))).await;
+        assert_eq!(
+            (status, error["field"].as_str()),
+            (StatusCode::UNPROCESSABLE_ENTITY, Some("stress_kpa")),
+            "{error}"
+        );
+        assert!(error["allowed"].as_str().unwrap().starts_with("from 0.1 kPa"), "{error}");
+    }
+    // F1's load cell reads up to 100 kN (the default range) over π·63.5²/4 = 3166.92 mm²: 31 576.4 kPa (computed).
+    let (status, error) =
+        call(&b.state, "POST", "/api/frames/F1/increments", Some(json!({"stress_kpa": 40_000.0}))).await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY, "{error}");
+    let allowed = error["allowed"].as_str().unwrap();
+    assert!(allowed.contains("capacity of 31576 kPa") && allowed.contains("100 kN"), "{error}");
+    // A hanger mass over the capacity says what it would give.
+    let (status, error) =
+        call(&b.state, "POST", "/api/frames/F1/increments", Some(json!({"hanger_mass_kg": 1500.0}))).await;
+    assert_eq!(
+        (status, error["field"].as_str()),
+        (StatusCode::UNPROCESSABLE_ENTITY, Some("hanger_mass_kg")),
+        "{error}"
+    );
+    assert!(error["error"].as_str().unwrap().contains("1500 kg gives 46448.8 kPa"), "{error}");
+    assert_eq!(count(&b.state, Table::Increments), 0, "nothing stored");
+    let (status, _) = call(&b.state, "POST", "/api/frames/F1/increments", Some(json!({"stress_kpa": 0.1}))).await;
+    assert_eq!(status, StatusCode::CREATED, "the resolution itself is allowed");
+}
+
+#[tokio::test]
+async fn a_mistaken_armed_step_is_withdrawn_and_journalled_and_one_that_began_is_not() {
+    let b = bench(true);
+    let as_operator = |method: &'static str, path: String, body: Option<Value>| {
+        let state = b.state.clone();
+        async move {
+            let (status, _, text) = send(&state, request(method, &path, body, Who::Operator)).await;
+            (status, serde_json::from_str::<Value>(&text).unwrap_or(Value::String(text)))
+        }
+    };
+    let (status, _) = as_operator("POST", "/api/frames/F1/tests".into(), Some(specimen())).await;
+    assert_eq!(status, StatusCode::CREATED);
+    let (status, error) = as_operator("POST", "/api/frames/F1/increments/current/withdraw".into(), None).await;
+    assert_eq!(status, StatusCode::CONFLICT, "nothing armed under seating: {error}");
+    let (status, _) =
+        as_operator("POST", "/api/frames/F1/increments".into(), Some(json!({"stress_kpa": 5000.0}))).await;
+    assert_eq!(status, StatusCode::CREATED);
+    let (status, answer) = as_operator("POST", "/api/frames/F1/increments/current/withdraw".into(), None).await;
+    assert_eq!(status, StatusCode::OK, "{answer}");
+    assert_eq!(
+        (answer["withdrawn"].clone(), answer["state"].clone(), answer["increment"].clone()),
+        (json!(1), json!("seating"), json!(0))
+    );
+    settle(&b);
+    assert_eq!(count(&b.state, Table::Increments), 0, "the row is gone");
+    let (_, frame) = as_operator("GET", "/api/frames/F1".into(), None).await;
+    assert_eq!(frame["test"]["state"], "seating", "{frame}");
+    let (_, events) = as_operator("GET", "/api/events?frame=F1".into(), None).await;
+    let last = events.as_array().unwrap().last().unwrap().clone();
+    assert_eq!((last["kind"].as_str(), last["actor"].as_str()), (Some("step-withdrawn"), Some("olga")), "{last}");
+    assert!(last["message"].as_str().unwrap().contains("5000 kPa"), "{last}");
+    // Armed again; once the onset is found the step has begun: withdrawing is refused, the watch keeps it.
+    let (status, armed) =
+        as_operator("POST", "/api/frames/F1/increments".into(), Some(json!({"stress_kpa": 50.0}))).await;
+    assert_eq!((status, armed["seq"].clone()), (StatusCode::CREATED, json!(1)), "the number is free again");
+    b.state.lab.set_onset(0, START_US + 1_000_000, OnsetSource::LoadStep, "t0 (test)".into()).unwrap();
+    let (status, error) = as_operator("POST", "/api/frames/F1/increments/current/withdraw".into(), None).await;
+    assert_eq!(status, StatusCode::CONFLICT, "{error}");
+    assert!(error["error"].as_str().unwrap().contains("mark it void"), "{error}");
+    assert_eq!(count(&b.state, Table::Increments), 1);
+    // A viewer may not withdraw.
+    let (status, _, _) =
+        send(&b.state, request("POST", "/api/frames/F1/increments/current/withdraw", None, Who::Viewer)).await;
+    assert_eq!(status, StatusCode::FORBIDDEN);
+}
+
+#[tokio::test]
+async fn a_void_step_is_kept_journalled_and_left_out_of_the_reduction_until_restored() {
+    let b = bench(false);
+    let test_id = test_with_curve(&b).await;
+    let compression = |b: &Bench| {
+        let state = b.state.clone();
+        async move { call(&state, "GET", &format!("/api/tests/{test_id}/compression"), None).await.1 }
+    };
+    let before = compression(&b).await;
+    assert_eq!(before["compression"]["points"].as_array().map(Vec::len), Some(1), "{before}");
+    for (bad, field) in [
+        (json!({"reason": "no"}), "reason"),
+        (json!({"reason": "typed\u{0}slip"}), "reason"),
+        (json!({"reason": "abc\u{202e}def"}), "reason"),
+        (json!({"why": "a slip"}), "why"),
+    ] {
+        let (status, error) = call(&b.state, "POST", "/api/frames/F1/increments/1/void", Some(bad.clone())).await;
+        assert_eq!(
+            (status, error["field"].as_str()),
+            (StatusCode::UNPROCESSABLE_ENTITY, Some(field)),
+            "{bad}: {error}"
+        );
+    }
+    let (status, _) =
+        call(&b.state, "POST", "/api/frames/F1/increments/7/void", Some(json!({"reason": "a slip"}))).await;
+    assert_eq!(status, StatusCode::CONFLICT, "no step 7");
+    let events_before = count(&b.state, Table::Events);
+    let (status, answer) = call(
+        &b.state,
+        "POST",
+        "/api/frames/F1/increments/1/void",
+        Some(json!({"reason": "wrong weights on the hanger"})),
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{answer}");
+    settle(&b);
+    assert_eq!(count(&b.state, Table::Events), events_before + 1);
+    let after = compression(&b).await;
+    let step = &after["increments"][0];
+    assert_eq!(step["void"]["reason"], "wrong weights on the hanger", "{after}");
+    assert!(step["t90_min"].is_null() && step["cv_mm2_per_min"].is_null(), "nothing of it reduced: {step}");
+    assert_eq!(step["reading_count"].as_u64().map(|n| n > 0), Some(true), "its readings are kept");
+    assert!(after["compression"].is_null(), "the only step is void: no curve: {after}");
+    let (status, _) =
+        call(&b.state, "POST", "/api/frames/F1/increments/1/void", Some(json!({"reason": "again"}))).await;
+    assert_eq!(status, StatusCode::CONFLICT, "already void");
+    let (_, _, report) = send(&b.state, request("GET", &format!("/tests/{test_id}/report"), None, Who::Nobody)).await;
+    assert!(report.contains("VOID") && report.contains("wrong weights on the hanger"), "the report says so");
+    let (status, _) = call(&b.state, "POST", "/api/frames/F1/increments/1/restore", None).await;
+    assert_eq!(status, StatusCode::OK);
+    let restored = compression(&b).await;
+    assert!(restored["increments"][0]["void"].is_null());
+    assert_eq!(restored["compression"]["points"], before["compression"]["points"], "counted again as before");
+    let (_, events) = call(&b.state, "GET", "/api/events?frame=F1", None).await;
+    let kinds: Vec<&str> = events.as_array().unwrap().iter().filter_map(|e| e["kind"].as_str()).collect();
+    assert!(kinds.ends_with(&["step-voided", "step-restored"]), "{kinds:?}");
+}
+
+#[tokio::test]
+async fn typed_text_refuses_control_characters_and_bodies_must_be_objects() {
+    let b = bench(false);
+    let events_before = count(&b.state, Table::Events);
+    for text in ["bell\u{7}", "nul\u{0}here", "right\u{202e}to left", "isolate\u{2066}x"] {
+        let (status, error) = call(&b.state, "POST", "/api/frames/F1/notes", Some(json!({ "text": text }))).await;
+        assert_eq!(
+            (status, error["field"].as_str()),
+            (StatusCode::UNPROCESSABLE_ENTITY, Some("text")),
+            "{text:?}: {error}"
+        );
+        assert!(error["error"].as_str().unwrap().starts_with("holds the character U+"), "{error}");
+    }
+    let (status, error) = call(&b.state, "POST", "/api/frames/F1/notes", Some(json!(["an array note"]))).await;
+    assert_eq!(status, StatusCode::BAD_REQUEST, "{error}");
+    assert!(error["allowed"].as_str().unwrap().contains("JSON object"), "{error}");
+    let mut start = specimen();
+    start["specimen"] = json!("BH2\u{1b}[31m");
+    let (status, error) = call(&b.state, "POST", "/api/frames/F1/tests", Some(start)).await;
+    assert_eq!((status, error["field"].as_str()), (StatusCode::UNPROCESSABLE_ENTITY, Some("specimen")), "{error}");
+    assert_eq!(count(&b.state, Table::Events), events_before, "nothing journalled");
+    let (status, _) =
+        call(&b.state, "POST", "/api/frames/F1/notes", Some(json!({"text": "two lines\n\tindented"}))).await;
+    assert_eq!(status, StatusCode::CREATED, "newlines and tabs are allowed in a note");
+}
+
+#[tokio::test]
+async fn a_negative_last_event_id_is_refused_like_a_negative_after() {
+    let b = bench(false);
+    for (header, query) in [(Some("-5"), ""), (None, "?after=-5")] {
+        let mut builder = Request::builder().uri(format!("/api/stream{query}"));
+        if let Some(h) = header {
+            builder = builder.header("last-event-id", h);
+        }
+        let (status, _, body) = send(&b.state, builder.body(Body::empty()).unwrap()).await;
+        assert_eq!(status, StatusCode::BAD_REQUEST, "{header:?} {query}: {body}");
+    }
+}

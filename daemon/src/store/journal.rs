@@ -61,6 +61,12 @@ stored_names! {
         AlarmCleared = "alarm-cleared",
         /// A webhook refused a notification for good.
         NotifyFailed = "notify-failed",
+        /// An armed load step that never began was withdrawn.
+        StepWithdrawn = "step-withdrawn",
+        /// A load step was marked void (kept, left out of the reduction).
+        StepVoided = "step-voided",
+        /// A void load step was counted again.
+        StepRestored = "step-restored",
     }
 }
 

@@ -100,10 +100,16 @@ pub fn open_test(reader: &Reader, frame_key: i64) -> Result<Option<OpenTest>, St
         )
         .optional()?;
     let Some(mut test) = test else { return Ok(None) };
-    test.increment = conn
+    test.increment = current_increment(conn, test.test_id)?;
+    Ok(Some(test))
+}
+
+/// The newest increment of test `test_id`, if it has one.
+fn current_increment(conn: &rusqlite::Connection, test_id: i64) -> Result<Option<CurrentIncrement>, StoreError> {
+    Ok(conn
         .query_row(
             "SELECT seq, stress_kpa, onset_us, armed_us, ready_us, from_kpa FROM increments WHERE test_id = ?1 ORDER BY seq DESC LIMIT 1",
-            [test.test_id],
+            [test_id],
             |r| {
                 Ok(CurrentIncrement {
                     seq: r.get(0)?,
@@ -115,8 +121,7 @@ pub fn open_test(reader: &Reader, frame_key: i64) -> Result<Option<OpenTest>, St
                 })
             },
         )
-        .optional()?;
-    Ok(Some(test))
+        .optional()?)
 }
 
 /// A test to start.
@@ -271,6 +276,104 @@ pub fn arm_increment(
         journal::insert(
             conn,
             &Event { at_us, frame_key: Some(step.frame_key), kind: EventKind::Armed, message, actor, data: None },
+        )?;
+        Ok(())
+    })
+}
+
+/// Withdraws the armed increment `step`, which never began (no onset): its row deleted, the test back in
+/// the state its previous increment left (`seating` without one), and the `step-withdrawn` entry, in one
+/// writer job; returns that state and the increment now current. Fails with [`StoreError::Refused`] when the step has begun or is not the test's last.
+pub fn withdraw_increment(
+    writer: &Writer,
+    step: Step,
+    at_us: i64,
+    actor: Option<String>,
+    message: String,
+) -> Result<(TestState, Option<CurrentIncrement>), StoreError> {
+    writer.run(move |conn| {
+        let last: Option<(i64, Option<i64>)> = conn
+            .query_row(
+                "SELECT seq, onset_us FROM increments WHERE test_id = ?1 ORDER BY seq DESC LIMIT 1",
+                [step.test_id],
+                |r| Ok((r.get(0)?, r.get(1)?)),
+            )
+            .optional()?;
+        match last {
+            Some((seq, None)) if seq == step.seq => {}
+            Some((seq, Some(_))) if seq == step.seq => {
+                return Err(StoreError::Refused(format!(
+                    "increment {seq} has begun (its onset was found): mark it void instead"
+                )));
+            }
+            _ => return Err(StoreError::Refused(format!("increment {} is not the test's armed step", step.seq))),
+        }
+        conn.execute("DELETE FROM increments WHERE test_id = ?1 AND seq = ?2", params![step.test_id, step.seq])?;
+        let previous = current_increment(conn, step.test_id)?;
+        let state = match previous {
+            None => TestState::Seating,
+            Some(CurrentIncrement { ready_us: None, .. }) => TestState::Primary,
+            Some(CurrentIncrement { ready_us: Some(_), .. }) => TestState::Ready,
+        };
+        conn.execute("UPDATE tests SET state = ?2 WHERE id = ?1", params![step.test_id, state])?;
+        journal::insert(
+            conn,
+            &Event {
+                at_us,
+                frame_key: Some(step.frame_key),
+                kind: EventKind::StepWithdrawn,
+                message,
+                actor,
+                data: Some(serde_json::json!({ "seq": step.seq })),
+            },
+        )?;
+        Ok((state, previous))
+    })
+}
+
+/// Marks increment `step` void (`reason` given) or counts it again (`reason` `None`), with the
+/// `step-voided` or `step-restored` entry, in one writer job; [`StoreError::Refused`] when there is no
+/// such step or it is already so.
+pub fn set_increment_void(
+    writer: &Writer,
+    step: Step,
+    at_us: i64,
+    actor: Option<String>,
+    reason: Option<String>,
+    message: String,
+) -> Result<(), StoreError> {
+    writer.run(move |conn| {
+        let found: Option<Option<i64>> = conn
+            .query_row(
+                "SELECT void_us FROM increments WHERE test_id = ?1 AND seq = ?2",
+                params![step.test_id, step.seq],
+                |r| r.get(0),
+            )
+            .optional()?;
+        match (found, reason.is_some()) {
+            (None, _) => return Err(StoreError::Refused(format!("this test has no increment {}", step.seq))),
+            (Some(Some(_)), true) => {
+                return Err(StoreError::Refused(format!("increment {} is already void", step.seq)));
+            }
+            (Some(None), false) => return Err(StoreError::Refused(format!("increment {} is not void", step.seq))),
+            _ => {}
+        }
+        let (void_us, by) = if reason.is_some() { (Some(at_us), actor.clone()) } else { (None, None) };
+        conn.execute(
+            "UPDATE increments SET void_us = ?3, void_by = ?4, void_reason = ?5 WHERE test_id = ?1 AND seq = ?2",
+            params![step.test_id, step.seq, void_us, by, reason],
+        )?;
+        let kind = if reason.is_some() { EventKind::StepVoided } else { EventKind::StepRestored };
+        journal::insert(
+            conn,
+            &Event {
+                at_us,
+                frame_key: Some(step.frame_key),
+                kind,
+                message,
+                actor,
+                data: Some(serde_json::json!({ "seq": step.seq, "reason": reason })),
+            },
         )?;
         Ok(())
     })

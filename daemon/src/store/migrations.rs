@@ -12,6 +12,7 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
     ("0002_watch.sql", include_str!("../../../migrations/0002_watch.sql")),
     ("0003_notify.sql", include_str!("../../../migrations/0003_notify.sql")),
     ("0004_alarms.sql", include_str!("../../../migrations/0004_alarms.sql")),
+    ("0005_void_steps.sql", include_str!("../../../migrations/0005_void_steps.sql")),
 ];
 
 /// The schema version this binary writes.

@@ -74,6 +74,9 @@ pub enum StoreError {
     /// The writer thread has stopped.
     #[error("the store's writer has stopped")]
     WriterGone,
+    /// The change is not allowed on what is stored (nothing of it was stored).
+    #[error("{0}")]
+    Refused(String),
     /// The transaction holding a change could not be committed; nothing of it was stored.
     #[error("the change could not be committed: {0}")]
     CommitFailed(String),

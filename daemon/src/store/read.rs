@@ -114,12 +114,19 @@ pub struct StoredIncrement {
     pub ready_us: Option<i64>,
     /// When the next increment began or the test finished, UTC µs.
     pub ended_us: Option<i64>,
+    /// When an operator marked it void (left out of the reduction), UTC µs.
+    pub void_us: Option<i64>,
+    /// Who marked it void.
+    pub void_by: Option<String>,
+    /// Why.
+    pub void_reason: Option<String>,
 }
 
 /// The increments of test `test_id`, in order.
 pub fn increments(reader: &Reader, test_id: i64) -> Result<Vec<StoredIncrement>, StoreError> {
     let mut statement = reader.conn().prepare_cached(
-        "SELECT seq, stress_kpa, from_kpa, armed_us, reported_us, onset_us, onset_source, ready_us, ended_us
+        "SELECT seq, stress_kpa, from_kpa, armed_us, reported_us, onset_us, onset_source, ready_us, ended_us,
+                void_us, void_by, void_reason
          FROM increments WHERE test_id = ?1 ORDER BY seq",
     )?;
     let rows = statement.query_map([test_id], |r| {
@@ -133,6 +140,9 @@ pub fn increments(reader: &Reader, test_id: i64) -> Result<Vec<StoredIncrement>,
             onset_source: r.get::<_, Option<StoredOnset>>(6)?.map(|s| s.0),
             ready_us: r.get(7)?,
             ended_us: r.get(8)?,
+            void_us: r.get(9)?,
+            void_by: r.get(10)?,
+            void_reason: r.get(11)?,
         })
     })?;
     Ok(rows.collect::<Result<_, _>>()?)

@@ -237,6 +237,33 @@ impl Hub {
         Ok(())
     }
 
+    /// Withdraws the armed increment of frame `index` before its load went on; returns its number.
+    pub fn withdraw(&self, index: usize, actor: Option<String>) -> Result<i64, HubError> {
+        let now = self.clock.now_us();
+        let mut state = self.lock();
+        let watch = state.watches.get_mut(index).ok_or(HubError::NoFrame)?;
+        if watch.phase() != Phase::Armed {
+            // The watch says why in its own words (and changes nothing).
+            watch.withdraw()?;
+        }
+        // The store first: if it refuses (the onset was just found), the watch stays armed.
+        let seq = self.lab.withdraw(index, now, actor)?;
+        watch.withdraw()?;
+        Ok(seq)
+    }
+
+    /// Marks increment `seq` of frame `index`'s test void (with `reason`) or counts it again.
+    pub fn set_void(
+        &self,
+        index: usize,
+        seq: i64,
+        reason: Option<String>,
+        actor: Option<String>,
+    ) -> Result<(), HubError> {
+        self.areas_mm2.get(index).ok_or(HubError::NoFrame)?;
+        Ok(self.lab.set_void(index, seq, reason, self.clock.now_us(), actor)?)
+    }
+
     /// Answers a proposed gauge re-seat of frame `index`.
     pub fn resolve_reseat(&self, index: usize, accept: bool, actor: Option<String>) -> Result<(), HubError> {
         let notes = {

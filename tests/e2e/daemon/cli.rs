@@ -96,3 +96,44 @@ fn log_lines_on_a_pipe_carry_no_colour_codes() {
     assert!(!log.contains('\u{1b}'), "an escape code in piped log output: {line:?}\n{log}");
     assert!(line.contains("INFO"), "the level is still written out: {line:?}");
 }
+
+#[test]
+fn a_demo_refused_for_a_busy_port_creates_no_database() {
+    let dir = temp_dir();
+    let taken = std::net::TcpListener::bind("127.0.0.1:0").unwrap();
+    let port = taken.local_addr().unwrap().port();
+    let db = dir.path().join("refused.sqlite");
+    let mut command = Command::new(workspace_binary("oedolog"));
+    command.args(["demo", "--frames", "1", "--listen", &format!("127.0.0.1:{port}"), "--db"]).arg(&db);
+    let finished = run_to_end("oedolog demo", command).unwrap();
+    assert!(!finished.status.success(), "{}", finished.stderr);
+    assert!(
+        finished.stderr.contains("Address already in use") || finished.stderr.contains("cannot listen"),
+        "{}",
+        finished.stderr
+    );
+    assert!(!db.exists(), "the refused start left {}", db.display());
+    assert!(!finished.stderr.contains("writer has stopped"), "no bus was started: {}", finished.stderr);
+}
+
+#[test]
+fn a_demo_on_every_interface_prints_an_address_a_browser_can_open() {
+    let dir = temp_dir();
+    let config = write_config(
+        dir.path(),
+        "[[http.user]]\nname = \"ana\"\nrole = \"operator\"\ntoken = \"e2e-operator-token-0123\"\n",
+    );
+    let mut command = Command::new(workspace_binary("oedolog"));
+    command.args(["demo", "--frames", "1", "--listen", "0.0.0.0:0", "--config"]).arg(&config).arg("--db");
+    command.arg(dir.path().join("open.sqlite"));
+    let mut demo = oedolog_tests::ChildGuard::spawn("oedolog demo", command).unwrap();
+    let line = demo
+        .wait_for_line(oedolog_tests::Stream::Stdout, oedolog_tests::READY_TIMEOUT, |l| l.starts_with("dashboard at "))
+        .unwrap();
+    let url = line.trim_start_matches("dashboard at ").trim();
+    assert!(url.starts_with("http://127.0.0.1:") && url.ends_with('/'), "{line}");
+    let addr: std::net::SocketAddr = url.trim_start_matches("http://").trim_end_matches('/').parse().unwrap();
+    let (status, head, _) =
+        crate::api::http(addr, "GET", "/api/frames", Some("Bearer e2e-operator-token-0123"), None).unwrap();
+    assert_eq!(status, 200, "{head}");
+}

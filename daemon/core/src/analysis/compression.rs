@@ -12,6 +12,7 @@ use super::fit::{Line, LineAccumulator, fit_line, residual_sum_of_squares};
 use super::flags::{Flag, push_unique};
 use super::interp::Pchip;
 use super::{AnalysisError, check_positive, check_range};
+use crate::quantity::{MAX_STRESS_KPA, STRESS_ALLOWED, STRESS_RESOLUTION_KPA};
 
 /// Unit weight of water γw, kN/m³, for k = cv·mv·γw [ref: permeability, common practice].
 pub(crate) const UNIT_WEIGHT_WATER_KN_PER_M3: f64 = 9.81;
@@ -286,7 +287,7 @@ pub(crate) fn reduce_compression(
             allowed: "less than the initial height (e0 > 0)",
         });
     }
-    check_range("seating_stress_kpa", input.seating_stress_kpa, 0.0, 1e6, "0 to 1e6 kPa")?;
+    check_range("seating_stress_kpa", input.seating_stress_kpa, 0.0, MAX_STRESS_KPA, "0 to 100000 kPa")?;
     check_range("virgin_points", params.virgin_points as f64, 2.0, 1000.0, "2 to 1000")?;
     check_range("unit_weight_water_kn_per_m3", params.unit_weight_water_kn_per_m3, 9.0, 10.5, "9 to 10.5 kN/m³")?;
     if let Some(r) = params.e_per_log_cycle {
@@ -303,7 +304,7 @@ pub(crate) fn reduce_compression(
     let e0 = (h0 - hs) / hs;
     let max_settlement = h0 - hs;
     for p in input.points {
-        check_range("stress_kpa", p.stress_kpa, 1e-6, 1e6, "above 0, up to 1e6 kPa")?;
+        check_range("stress_kpa", p.stress_kpa, STRESS_RESOLUTION_KPA, MAX_STRESS_KPA, STRESS_ALLOWED)?;
         check_range("settlement_mm", p.settlement_mm, -h0, max_settlement, "between −H0 and H0 − Hs")?;
         if let Some(s) = p.settlement_eop_mm {
             check_range("settlement_eop_mm", s, -h0, max_settlement, "between −H0 and H0 − Hs")?;
@@ -1244,12 +1245,17 @@ mod tests {
                 let (mut s, mut swell) = (peak, 0.0);
                 let mut down = Vec::new();
                 for &(ratio, de) in unload {
+                    // A lab unloads to the seating stress at the lowest, never below the stated resolution.
+                    if s / ratio < STRESS_RESOLUTION_KPA {
+                        break;
+                    }
                     s /= ratio;
                     swell += de;
                     states.push((s, e_peak + swell));
                     down.push(s);
                 }
-                for (j, &s) in down.iter().rev().skip(1).chain([peak].iter()).enumerate() {
+                let reload: &[f64] = if down.is_empty() { &[] } else { &[peak] };
+                for (j, &s) in down.iter().rev().skip(1).chain(reload.iter()).enumerate() {
                     let back = swell * (j + 1) as f64 / down.len() as f64;
                     states.push((s, e_peak + swell - back));
                 }

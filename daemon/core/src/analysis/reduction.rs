@@ -105,6 +105,9 @@ pub struct TestSpecimen {
 /// One load step as recorded.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct StepInput<'a> {
+    /// An operator marked the step void: it is kept in the list and left out of the reduction (no
+    /// time-curve construction, no point on the compression curve, not the stress before the next step).
+    pub void: bool,
     /// Effective vertical stress of the step, kPa.
     pub stress_kpa: f64,
     /// Cumulative compression from the test's zero at the end of the step, as the gauge measured it
@@ -131,7 +134,7 @@ pub struct TestInput<'a> {
 impl TestInput<'_> {
     /// The stress before step `index`: the previous step's, or the seating stress.
     pub(crate) fn previous_kpa(&self, index: usize) -> f64 {
-        index.checked_sub(1).map_or(self.specimen.seating_stress_kpa, |i| self.steps[i].stress_kpa)
+        self.steps[..index].iter().rev().find(|s| !s.void).map_or(self.specimen.seating_stress_kpa, |s| s.stress_kpa)
     }
 
     /// The phase relations, when the dry mass and Gs are known (`Some(Err)` when they are refused).
@@ -206,6 +209,28 @@ pub struct StepReduction {
     pub deflection_flags: Vec<Flag>,
     /// Remarks of the deflection lookup at the seating stress.
     pub seating_deflection_flags: Vec<Flag>,
+    /// An operator marked the step void: nothing of it was reduced.
+    pub void: bool,
+}
+
+impl StepReduction {
+    /// A void step: its stress, and nothing reduced.
+    fn void(stress_kpa: f64, previous_kpa: f64) -> StepReduction {
+        StepReduction {
+            stress_kpa,
+            previous_kpa,
+            settlement_mm: None,
+            settlement_measured_mm: None,
+            apparatus_deflection_mm: None,
+            settlement_eop_mm: None,
+            curve: None,
+            curve_refused: None,
+            cv_for_k: None,
+            deflection_flags: Vec::new(),
+            seating_deflection_flags: Vec::new(),
+            void: true,
+        }
+    }
 }
 
 /// Why a test has no e–log σ′ curve.
@@ -263,6 +288,10 @@ pub fn reduce_test_with(
     let mut apparatus_corrected = input.deflection.is_some();
     let mut steps = Vec::with_capacity(input.steps.len());
     for (index, step) in input.steps.iter().enumerate() {
+        if step.void {
+            steps.push(StepReduction::void(step.stress_kpa, input.previous_kpa(index)));
+            continue;
+        }
         let (deflection_mm, deflection_flags, seating_deflection_flags) =
             input.deflection(index).unwrap_or((None, Vec::new(), Vec::new()));
         apparatus_corrected &= deflection_mm.is_some() || step.settlement_mm.is_none();
@@ -293,6 +322,7 @@ pub fn reduce_test_with(
             curve_refused,
             deflection_flags,
             seating_deflection_flags,
+            void: false,
         });
     }
     let any_curve = steps.iter().any(|s| s.curve.is_some());
@@ -368,9 +398,9 @@ mod tests {
         let a = curve(0.0, 0.10, 5.0);
         let b = curve(0.10, 0.30, 8.0);
         let steps = [
-            StepInput { stress_kpa: 25.0, settlement_mm: Some(0.10), readings: Some(&a) },
-            StepInput { stress_kpa: 50.0, settlement_mm: Some(0.40), readings: Some(&b) },
-            StepInput { stress_kpa: 100.0, settlement_mm: None, readings: None },
+            StepInput { void: false, stress_kpa: 25.0, settlement_mm: Some(0.10), readings: Some(&a) },
+            StepInput { void: false, stress_kpa: 50.0, settlement_mm: Some(0.40), readings: Some(&b) },
+            StepInput { void: false, stress_kpa: 100.0, settlement_mm: None, readings: None },
         ];
         let rules = ReductionRules::default();
         let input = TestInput { specimen: specimen(), steps: &steps, deflection: None, rules: &rules };
@@ -390,7 +420,7 @@ mod tests {
     #[test]
     fn the_gauge_is_tied_to_the_height_at_the_last_reading() {
         let a = curve(3.0, 0.20, 5.0);
-        let steps = [StepInput { stress_kpa: 25.0, settlement_mm: Some(0.20), readings: Some(&a) }];
+        let steps = [StepInput { void: false, stress_kpa: 25.0, settlement_mm: Some(0.20), readings: Some(&a) }];
         let rules = ReductionRules::default();
         let input = TestInput { specimen: specimen(), steps: &steps, deflection: None, rules: &rules };
         let params = input.step_params(0, None).unwrap();
@@ -404,7 +434,7 @@ mod tests {
     #[test]
     fn without_dry_mass_the_steps_reduce_but_the_curve_says_why_it_is_missing() {
         let a = curve(0.0, 0.10, 5.0);
-        let steps = [StepInput { stress_kpa: 25.0, settlement_mm: Some(0.10), readings: Some(&a) }];
+        let steps = [StepInput { void: false, stress_kpa: 25.0, settlement_mm: Some(0.10), readings: Some(&a) }];
         let rules = ReductionRules::default();
         let input = TestInput {
             specimen: TestSpecimen { dry_mass_g: None, ..specimen() },
@@ -415,5 +445,28 @@ mod tests {
         let r = reduce_test(&input);
         assert!(r.steps[0].curve.is_some());
         assert_eq!(r.compression, Err(CurveUnavailable::NeedsSolids));
+    }
+
+    #[test]
+    fn a_void_step_is_listed_but_reduced_for_nothing_and_the_next_step_follows_the_one_before() {
+        let a = curve(0.0, 0.10, 5.0);
+        let slip = curve(0.10, 0.05, 5.0);
+        let b = curve(0.15, 0.30, 5.0);
+        let steps = [
+            StepInput { void: false, stress_kpa: 25.0, settlement_mm: Some(0.10), readings: Some(&a) },
+            StepInput { void: true, stress_kpa: 0.2, settlement_mm: Some(0.15), readings: Some(&slip) },
+            StepInput { void: false, stress_kpa: 100.0, settlement_mm: Some(0.45), readings: Some(&b) },
+        ];
+        let rules = ReductionRules::default();
+        let input = TestInput { specimen: specimen(), steps: &steps, deflection: None, rules: &rules };
+        assert_eq!(input.previous_kpa(2), 25.0, "the step after a void one follows the last that counts");
+        assert_eq!(input.step_params(2, None).unwrap().load_increment_ratio, Some(3.0), "(100 − 25)/25");
+        let r = reduce_test(&input);
+        assert_eq!(r.steps.len(), 3, "the void step stays in the list");
+        assert!(r.steps[1].void && r.steps[1].curve.is_none() && r.steps[1].settlement_mm.is_none());
+        assert_eq!(r.steps[2].previous_kpa, 25.0);
+        assert_eq!(r.curve_steps, [0, 2]);
+        let stresses: Vec<f64> = r.compression.unwrap().points.iter().map(|p| p.stress_kpa).collect();
+        assert!(!stresses.contains(&0.2), "{stresses:?}");
     }
 }
