@@ -74,7 +74,7 @@
   // Display words of our own for the daemon's states; each has a glyph so colour is never the only cue.
   O.STATES = {
     ready: { word: "Ready", hint: "ready for the next load", glyph: "◆" },
-    armed: { word: "Load due", hint: "waiting for the weights", glyph: "▽" },
+    armed: { word: "Armed", hint: "next load step armed: put the weights on", glyph: "▽" },
     primary: { word: "Settling", hint: "primary consolidation", glyph: "◐" },
     seating: { word: "Seating", hint: "seating load on", glyph: "◔" },
     idle: { word: "Free", hint: "no test running", glyph: "○" },

@@ -145,7 +145,7 @@
       { label: "reading mm", stroke: INK, width: 2, spanGaps: true, points: { show: false }, value: (u, v) => fmt.num(v, 3) },
       { label: "binned mm", stroke: NODE, width: 0, paths: () => null, points: { show: true, size: 5, stroke: NODE, fill: "#fff" }, value: (u, v) => fmt.num(v, 3) },
     ];
-    const yAxis = Object.assign({}, baseAxis, { label: "settlement gauge, mm", size: 62, values: (u, vals) => vals.map((v) => v.toFixed(3)) });
+    const yAxis = Object.assign({}, baseAxis, { label: "gauge reading, mm (compression down)", size: 62, values: (u, vals) => vals.map((v) => v.toFixed(3)) });
     makeChart("logt", "chart-logt", {
       scales: { x: { time: false, distr: 3 }, y: { dir: -1 } },
       axes: [Object.assign({}, baseAxis, { label: "time since loading, min (log scale)" }), yAxis],
@@ -164,8 +164,8 @@
       "t50 " + fmt.sig(cas.t50_min ?? tay.t50_min, 3) + " min",
       "t90 " + fmt.sig(tay.t90_min, 3) + " min",
       "d100 " + fmt.num(cas.d100_mm ?? tay.d100_mm, 3) + " mm",
-      "cv (√t) " + fmt.sig(cvT && cvT.cv_mm2_per_min, 3) + " mm²/min",
-      "cv (log t) " + fmt.sig(cvC && cvC.cv_mm2_per_min, 3) + " mm²/min",
+      "cv(√t) " + fmt.sig(cvT && cvT.cv_mm2_per_min, 3) + " mm²/min",
+      "cv(log t) " + fmt.sig(cvC && cvC.cv_mm2_per_min, 3) + " mm²/min",
     ];
     const choice = red && red.cv_choice;
     if (choice) bits.push(choice.cv_mm2_per_min != null ? "proposed " + fmt.sig(choice.cv_mm2_per_min, 3) + " mm²/min — " + choice.reason : "no cv proposed — " + choice.reason);
@@ -303,14 +303,29 @@
   let stepToolsKey = null;
   function renderStepTools() {
     const host = document.getElementById("step-tools");
-    const key = JSON.stringify(summaries.map((s) => [s.seq, !!s.void]));
-    if (key === stepToolsKey) return;
+    // Rebuilt only when a step turns void or counts again; a new load step only adds its option, so a form
+    // being filled in is never replaced under the user's hands.
+    const options = () => summaries.filter((s) => !s.void).map((s) => el("option", { value: s.seq }, s.seq + " — " + fmt.sig(s.stress_kpa, 4) + " kPa"));
+    const key = JSON.stringify(summaries.filter((s) => s.void).map((s) => s.seq)) + (summaries.length ? "+" : "");
+    if (key === stepToolsKey) {
+      const select = host.querySelector("#f-void-seq");
+      if (select && select.options.length !== summaries.filter((s) => !s.void).length) {
+        const picked = select.value;
+        select.replaceChildren(...options());
+        if ([...select.options].some((o) => o.value === picked)) select.value = picked;
+      }
+      return;
+    }
     stepToolsKey = key;
     if (!summaries.length) { host.replaceChildren(); return; }
+    // A new load step re-renders the tools: keep them open, and keep what was being typed.
+    const wasOpen = !!host.querySelector("details[open]");
+    const typed = host.querySelector("#void-form [name=reason]")?.value || "";
+    const picked = host.querySelector("#f-void-seq")?.value;
     const form = el("form", { class: "act", id: "void-form", novalidate: true },
       el("div", { class: "row2" },
         el("div", { class: "field" }, el("label", { for: "f-void-seq" }, "Step"),
-          el("select", { id: "f-void-seq", name: "seq" }, ...summaries.filter((s) => !s.void).map((s) => el("option", { value: s.seq }, s.seq + " — " + fmt.sig(s.stress_kpa, 4) + " kPa")))),
+          el("select", { id: "f-void-seq", name: "seq" }, ...options())),
         field("reason", "Why it is void", { autocomplete: "off", maxlength: 500 })),
       el("button", { class: "btn quiet", type: "submit" }, "Mark the step void"),
       el("span", { class: "form-msg", "data-role": "msg" }));
@@ -325,7 +340,9 @@
       f.addEventListener("submit", (ev) => { ev.preventDefault(); submit(f, base() + "/increments/" + s.seq + "/restore", {}).then(() => { stepToolsKey = null; loadCompression(); }); });
       return f;
     });
-    host.replaceChildren(el("details", {}, el("summary", {}, "A load step was a mistake?"),
+    form.elements.reason.value = typed;
+    if (picked && [...form.elements.seq.options].some((o) => o.value === picked)) form.elements.seq.value = picked;
+    host.replaceChildren(el("details", wasOpen ? { open: true } : {}, el("summary", {}, "A load step was a mistake?"),
       el("p", { class: "muted" }, "A void step keeps its readings and stays in this list; it is left out of the void-ratio curve, Cc, Cr, σ′p and the stress before the next step."),
       ...(summaries.some((s) => !s.void) ? [form] : []), ...restores));
     if (O.readOnly) host.querySelectorAll("input, button, select").forEach((e) => (e.disabled = true));
@@ -511,8 +528,8 @@
     const t = frame.test, w = frame.watch || {};
     const facts = [
       ["Specimen", t ? t.specimen : "—"], ["Load step", t ? t.increment + " · " + fmt.sig(t.stress_kpa, 4) + " kPa" : "—"],
-      ["From", t && t.from_kpa != null ? fmt.sig(t.from_kpa, 4) + " kPa" : "—"], ["In this step", fmt.span(frame.increment_elapsed_s)],
-      ["Settlement gauge", fmt.num(frame.displacement_mm, 3) + " mm"], ["Load cell", fmt.num(frame.load_kn, 4) + " kN"],
+      ["Stress before this step", t && t.from_kpa != null ? fmt.sig(t.from_kpa, 4) + " kPa" : "—"], ["In this step", fmt.span(frame.increment_elapsed_s)],
+      ["Gauge reading", fmt.num(frame.displacement_mm, 3) + " mm"], ["Load cell", fmt.num(frame.load_kn, 4) + " kN"],
       ["Temperature", fmt.num(frame.temperature_c, 1) + " °C"], ["Last reading", frame.reading_age_s == null ? "never" : fmt.span(frame.reading_age_s) + " ago"],
       ["t50 / t90", fmt.sig(w.t50_min, 3) + " / " + fmt.sig(w.t90_min, 3) + " min"],
     ];

@@ -35,7 +35,7 @@
         el("dt", {}, "Stress"), el("dd", {}, t && t.stress_kpa !== null ? fmt.num(t.stress_kpa, 1) + " kPa" : "—"),
         el("dt", {}, "Load step"), el("dd", {}, t ? String(t.increment) : "—"),
         el("dt", {}, "In this step"), el("dd", {}, fmt.span(f.increment_elapsed_s)),
-        el("dt", {}, "Settlement gauge"), el("dd", {}, f.displacement_mm === null ? "—" : fmt.num(f.displacement_mm, 3) + " mm"),
+        el("dt", {}, "Gauge reading"), el("dd", {}, f.displacement_mm === null ? "—" : fmt.num(f.displacement_mm, 3) + " mm"),
         el("dt", {}, "Last reading"), el("dd", {}, f.reading_age_s === null ? "never" : fmt.span(f.reading_age_s) + " ago")),
       alarms.length ? el("div", { class: "alarms" }, alarms.map((a) => el("span", { class: "alarm " + a.code + (a.acknowledged ? " acked" : ""), "data-alarm": a.code, title: a.message || a.text }, a.text))) : null);
   }

@@ -102,7 +102,7 @@ impl Lab {
                     frame_key: Some(key),
                     kind: EventKind::TestResumed,
                     message: format!(
-                        "test {} ({}) resumed in state {}, increment {}: {gap}",
+                        "test {} ({}) resumed in state {}, load step {}: {gap}",
                         t.test_id, t.specimen, t.state, t.increment
                     ),
                     actor: None,
@@ -183,7 +183,7 @@ impl Lab {
         let key = self.keys[index];
         let seq = test.increment + 1;
         let from_kpa = test.stress_kpa.unwrap_or(test.seating_kpa);
-        let message = format!("increment {seq}: {stress_kpa} kPa armed (from {from_kpa} kPa)");
+        let message = format!("load step {seq}: {stress_kpa} kPa armed (from {from_kpa} kPa)");
         let step = Step { test_id: test.test_id, frame_key: key, seq };
         lab_book::arm_increment(&self.writer, step, stress_kpa, from_kpa, now_us, actor, message)?;
         self.update(index, |t| {
@@ -207,7 +207,7 @@ impl Lab {
         let key = self.keys[index];
         let seq = test.increment;
         let stress = test.stress_kpa.map_or("no stress".to_string(), |s| format!("{s} kPa"));
-        let message = format!("increment {seq} ({stress}) withdrawn before its load went on");
+        let message = format!("load step {seq} ({stress}) withdrawn before its load went on");
         let step = Step { test_id: test.test_id, frame_key: key, seq };
         let (state, previous) = lab_book::withdraw_increment(&self.writer, step, now_us, actor, message)?;
         self.update(index, |t| {
@@ -237,8 +237,8 @@ impl Lab {
         };
         let step = Step { test_id: test.test_id, frame_key: self.keys[index], seq };
         let message = match &reason {
-            Some(why) => format!("increment {seq} marked void, left out of the reduction: {why}"),
-            None => format!("increment {seq} counted again in the reduction"),
+            Some(why) => format!("load step {seq} marked void, left out of the reduction: {why}"),
+            None => format!("load step {seq} counted again in the reduction"),
         };
         lab_book::set_increment_void(&self.writer, step, now_us, actor, reason, message)
     }

@@ -188,6 +188,24 @@ try {
   await page.screenshot({ path: path.join(shots, "frame-phone.png"), fullPage: true });
   await page.setViewportSize({ width: 1440, height: 900 });
 
+  await step("a load step is marked void with a reason, struck through, and counted again", async () => {
+    await page.click("#step-tools summary");
+    await page.selectOption("#f-void-seq", "1");
+    await page.fill("#void-form [name=reason]", "x\u0007");
+    await page.click("#void-form button[type=submit]");
+    await page.waitForFunction(() => document.querySelector("#void-form").dataset.status, null, { timeout: 10000 });
+    const refused = await page.evaluate(() => ({ status: document.querySelector("#void-form").dataset.status, err: document.querySelector('#void-form [data-err-for="reason"]').textContent }));
+    check(refused.status === "422" && /U\+0007/.test(refused.err), "a reason with a control character was not refused beside its field: " + JSON.stringify(refused));
+    await page.fill("#void-form [name=reason]", "browser test: hanger weights miscounted");
+    await page.click("#void-form button[type=submit]");
+    await page.waitForSelector('#inc-table tr.void[data-seq="1"]', { timeout: 15000 });
+    const row = await page.textContent('#inc-table tr[data-seq="1"] td.flags');
+    check(/void: browser test: hanger weights miscounted/.test(row), "the void step's remark: " + row);
+    await page.screenshot({ path: path.join(shots, "step-void.png"), fullPage: true });
+    await page.click('#step-tools [data-restore="1"] button');
+    await page.waitForFunction(() => document.querySelector('#inc-table tr[data-seq="1"]') && !document.querySelector('#inc-table tr.void[data-seq="1"]'), null, { timeout: 15000 });
+  });
+
   await step("operator finishes a test, starts one with the form, arms a load", async () => {
     chosen = await page.evaluate(() => window.oedolog.frame.id);
     finishedTest = await page.evaluate(() => window.oedolog.frame.test.test_id);
@@ -228,6 +246,14 @@ try {
     check(/never changes the load/i.test(armed.safety), "no caution beside the applied action");
     const tile = await api(page, "GET", "/api/frames");
     check(tile.data.find((f) => f.id === chosen).state === "armed", "the API does not show the frame armed");
+    // The wrong stress: withdrawn before the load goes on, then the right one armed.
+    await page.click("#withdraw-form button[type=submit]");
+    await page.waitForSelector("#arm-form", { timeout: 15000 });
+    const back = await page.evaluate(() => window.oedolog.frame.test.state);
+    check(back === "seating", "after withdrawing, the test is " + back);
+    await page.fill("#f-stress_kpa", "25");
+    await page.click("#arm-form button[type=submit]");
+    await page.waitForFunction(() => document.getElementById("head").dataset.state === "armed", null, { timeout: 15000 });
   }, 60000);
 
   await step("a note goes into the frame's journal", async () => {

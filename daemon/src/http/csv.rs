@@ -1,5 +1,11 @@
 //! A small RFC 4180 CSV writer: CRLF line ends, fields with a comma, quote, CR or LF quoted and their quotes
-//! doubled. Numbers are written with `.` decimals and no thousands separator; empty for missing values.
+//! doubled. Numbers are written to seven significant figures with `.` decimals and no thousands separator; empty for missing values.
+
+/// `x` to seven significant figures: more than any gauge, load cell or construction resolves (a 0.1 µm
+/// gauge over 30 mm is six), and no float noise such as `0.17100000000000004`.
+fn significant(x: f64) -> f64 {
+    format!("{x:.6e}").parse().unwrap_or(x)
+}
 
 /// One CSV document being written.
 #[derive(Default)]
@@ -26,7 +32,7 @@ impl Csv {
             }
             match cell {
                 Cell::Text(t) => self.text.push_str(&quote(t)),
-                Cell::Number(Some(x)) if x.is_finite() => self.text.push_str(&x.to_string()),
+                Cell::Number(Some(x)) if x.is_finite() => self.text.push_str(&significant(*x).to_string()),
                 Cell::Number(_) => {}
                 Cell::Int(n) => self.text.push_str(&n.to_string()),
             }
@@ -71,5 +77,17 @@ mod unit {
             Cell::Int(-3),
         ]);
         assert_eq!(csv.finish(), "a,\"b,c\"\r\n\"say \"\"hi\"\"\",\"two\nlines\",0.5,,-3\r\n");
+    }
+
+    #[test]
+    fn numbers_carry_seven_significant_figures_and_no_float_noise() {
+        let mut csv = Csv::default();
+        csv.row(&[
+            Cell::Number(Some(0.1 + 0.07100000000000004 - 0.1)),
+            Cell::Number(Some(0.171_000_000_000_000_04)),
+            Cell::Number(Some(12.345_678_9)),
+            Cell::Number(Some(1.234_567_89e-10)),
+        ]);
+        assert_eq!(csv.finish(), "0.071,0.171,12.34568,0.0000000001234568\r\n");
     }
 }

@@ -138,7 +138,7 @@ async fn applied(
             }
             let (test_id, seq) = (test.test_id, test.increment);
             let message =
-                format!("increment {seq}: the operator reports the load is on (t0 is still found from the readings)");
+                format!("load step {seq}: the operator reports the load is on (t0 is still found from the readings)");
             lab_book::report_load(&state.writer, Step { test_id, frame_key: key, seq }, now, who, message)?;
             Ok((test_id, seq))
         })

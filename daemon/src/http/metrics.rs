@@ -14,7 +14,7 @@ use super::AppState;
 use super::frames::views;
 
 /// Every state a frame can be in, so each series exists even at zero.
-const STATES: [&str; 7] = ["offline", "idle", "seating", "armed", "primary", "ready", "finished"];
+pub(crate) const STATES: [&str; 7] = ["offline", "idle", "seating", "armed", "primary", "ready", "finished"];
 
 /// A label value escaped as the exposition format says: backslash, double quote and line feed.
 fn label(value: &str) -> String {

@@ -23,6 +23,7 @@ mod queries;
 mod report;
 mod serve;
 mod web;
+mod words;
 
 #[cfg(test)]
 mod tests;

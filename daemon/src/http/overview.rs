@@ -9,40 +9,68 @@ use axum::routing::get;
 
 use super::AppState;
 use super::frames::views;
+use super::words;
 use crate::clock::rfc3339;
+
+/// Frame ids are `[A-Za-z0-9_-]` (the config checks), so nothing needs escaping in a link; anything else is
+/// percent-encoded all the same.
+fn url_path_escape(id: &str) -> String {
+    id.bytes()
+        .map(|b| {
+            if b.is_ascii_alphanumeric() || b == b'-' || b == b'_' {
+                (b as char).to_string()
+            } else {
+                format!("%{b:02X}")
+            }
+        })
+        .collect()
+}
 
 pub(crate) fn escape(text: &str) -> String {
     text.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;").replace('"', "&quot;")
 }
 
-/// A plain overview page until the dashboard lands: every frame, its state and latest values.
+/// A date and time to the minute, for a person: "2026-12-03 10:41 UTC".
+pub(crate) fn minute(us: i64) -> String {
+    let text = rfc3339(us);
+    format!("{} {} UTC", &text[..10], &text[11..16])
+}
+
+/// The plain overview: every frame with the board's state words, its load step and latest values, each
+/// linking to its frame page.
 async fn overview(State(state): State<AppState>) -> impl IntoResponse {
     let mut rows = String::new();
+    let now = state.clock.now_us();
     for v in views(&state) {
         let value = |x: Option<f64>, digits: usize| x.map_or("—".to_string(), |x| format!("{x:.digits$}"));
+        let step = match v.test.as_ref() {
+            None => "—".to_string(),
+            Some(t) if t.increment == 0 => format!("{} · seating", escape(&t.specimen)),
+            Some(t) => format!("{} · load step {} · {} kPa", escape(&t.specimen), t.increment, value(t.stress_kpa, 1)),
+        };
+        let into = v.increment_elapsed_s.map(words::span);
+        let timing = match (v.state.as_str(), v.watch.as_ref()) {
+            ("ready", Some(w)) => match w.ready_us {
+                Some(at) => format!("ready for {}", words::span((now - at) as f64 / 1e6)),
+                None => "ready".to_string(),
+            },
+            (_, Some(w)) if w.ready_eta_us.is_some_and(|eta| eta > now) => format!(
+                "{} in · end of primary in ~{}",
+                into.clone().unwrap_or_else(|| "—".into()),
+                words::span((w.ready_eta_us.unwrap_or(now) - now) as f64 / 1e6)
+            ),
+            _ => into.map_or("—".to_string(), |i| format!("{i} in")),
+        };
         rows += &format!(
-            "<tr><td>{}</td><td class=\"s-{}\">{}</td><td>{}</td><td>{} mm</td><td>{} kN</td><td>{}</td><td>{}</td></tr>\n",
+            "<tr><td><a href=\"/frame.html?id={id}\">{}</a></td><td class=\"s-{}\" title=\"{}\">{}</td><td>{step}</td><td>{} mm</td><td>{} kN</td><td>{timing}</td><td>{}</td></tr>\n",
             escape(&v.name),
             escape(&v.state),
-            escape(&v.state),
-            v.test.as_ref().map_or("—".to_string(), |t| format!(
-                "{} · step {} · {} kPa",
-                escape(&t.specimen),
-                t.increment,
-                value(t.stress_kpa, 1)
-            )),
+            escape(words::state_hint(&v.state)),
+            escape(words::state_word(&v.state)),
             value(v.displacement_mm, 3),
             value(v.load_kn, 4),
-            match (v.state.as_str(), v.watch.as_ref().and_then(|w| w.ready_eta_us)) {
-                ("ready", _) => "ready for the next load".to_string(),
-                (_, Some(eta)) if eta > state.clock.now_us() => format!(
-                    "{} · ready in ~{:.1} h",
-                    v.increment_elapsed_s.map_or("—".to_string(), |s| format!("{:.1} h", s / 3600.0)),
-                    (eta - state.clock.now_us()) as f64 / 3.6e9
-                ),
-                _ => v.increment_elapsed_s.map_or("—".to_string(), |s| format!("{:.1} h", s / 3600.0)),
-            },
-            v.reading_age_s.map_or("never".to_string(), |s| format!("{s:.0} s ago")),
+            v.reading_age_s.map_or("never".to_string(), |s| format!("{} ago", words::span(s))),
+            id = url_path_escape(&v.id),
         );
     }
     let banner = if state.clock.is_simulated() {
@@ -60,10 +88,10 @@ body{{font-family:system-ui,sans-serif;margin:1.5rem;color:#1d2a30;background:#f
 td,th{{padding:.45rem .6rem;border-bottom:1px solid #d9d4c7;text-align:left}}th{{font-weight:600;color:#4a5a60}}\
 .sim{{background:#fff3c4;border:1px solid #e0c860;padding:.5rem .8rem;border-radius:.3rem}}\
 .s-offline{{color:#9b2c2c}}.s-ready{{color:#1f6f43;font-weight:700}}.s-primary{{color:#2b5d8a}}</style></head><body>\
-<h1>oedolog</h1>{banner}<p>Now: {}</p><table><thead><tr><th>Frame</th><th>State</th><th>Test</th><th>Settlement gauge</th><th>Load</th>\
-<th>Into increment</th><th>Last reading</th></tr></thead><tbody>{rows}</tbody></table>\
+<h1>oedolog</h1>{banner}<p>Now: {}</p><table><thead><tr><th>Frame</th><th>State</th><th>Test and load step</th><th>Gauge reading</th><th>Load</th>\
+<th>Time in the load step</th><th>Last reading</th></tr></thead><tbody>{rows}</tbody></table>\
 <p><small>Results are proposals for a qualified engineer to review. oedolog never changes the load on a frame.</small></p></body></html>",
-        rfc3339(state.clock.now_us()),
+        minute(state.clock.now_us()),
     );
     ([(header::CACHE_CONTROL, "no-store")], Html(page))
 }

@@ -165,7 +165,7 @@ pub(crate) fn increment(conn: &Reader, test_id: i64, seq: i64) -> Result<Increme
     increments(conn, test_id)?
         .into_iter()
         .find(|i| i.seq == seq)
-        .ok_or_else(|| ApiError::NotFound(format!("test {test_id} has no increment {seq}")))
+        .ok_or_else(|| ApiError::NotFound(format!("test {test_id} has no load step {seq}")))
 }
 
 pub(crate) use crate::store::Poll;
@@ -362,6 +362,11 @@ pub(crate) fn reduce_test(
             let mut flag_messages: Vec<String> = own.map(ToString::to_string).collect();
             flags.extend(step.seating_deflection_flags.iter().map(|f| format!("{} (seating stress)", f.code())));
             flag_messages.extend(step.seating_deflection_flags.iter().map(|f| format!("{f} (seating stress)")));
+            // One remark once, in the order found (two constructions may raise the same one).
+            let mut seen = std::collections::HashSet::new();
+            flags.retain(|f| seen.insert(f.clone()));
+            let mut seen = std::collections::HashSet::new();
+            flag_messages.retain(|m| seen.insert(m.clone()));
             if let Some(why) = &step.curve_refused {
                 tracing::debug!("increment {} of test {id}: {why}", row.seq);
             }

@@ -100,7 +100,9 @@ pub(crate) fn e_log_svg(c: &CompressionReduction) -> String {
     svg
 }
 
-pub(crate) fn render(r: &TestSummary, now_us: i64) -> String {
+/// The report of test `r`, printed at `now_us`; `simulated` is the clock's speed when time was simulated (the
+/// demo), which the report then states at its top.
+pub(crate) fn render(r: &TestSummary, now_us: i64, simulated: Option<f64>) -> String {
     let t = &r.test;
     let mut html = String::new();
     let _ = write!(
@@ -109,7 +111,7 @@ pub(crate) fn render(r: &TestSummary, now_us: i64) -> String {
 <title>Test {} — {}</title><style>\
 body{{font-family:system-ui,sans-serif;margin:1.5rem;color:#1d2a30}}table{{border-collapse:collapse;margin:.5rem 0 1rem}}\
 td,th{{padding:.25rem .5rem;border:1px solid #c9c4b7;text-align:right;font-variant-numeric:tabular-nums}}th{{background:#efece4}}\
-td.l,th.l{{text-align:left}}.plot{{max-width:640px;width:100%}}.caution{{border:1px solid #c9a13b;background:#fff8e0;padding:.5rem .8rem}}\
+td{{white-space:nowrap}}td.l,th.l{{text-align:left;white-space:normal}}.sim{{border:1px solid #e0c860;background:#fff3c4;padding:.4rem .7rem}}.plot{{max-width:640px;width:100%}}.caution{{border:1px solid #c9a13b;background:#fff8e0;padding:.5rem .8rem}}\
 @media print{{body{{margin:0;font-size:10pt}}.noprint{{display:none}}h2{{page-break-after:avoid}}table{{page-break-inside:avoid}}}}\
 </style></head><body>",
         t.id,
@@ -123,6 +125,13 @@ td.l,th.l{{text-align:left}}.plot{{max-width:640px;width:100%}}.caution{{border:
         t.id,
         t.id
     );
+    if let Some(speed) = simulated {
+        let _ = write!(
+            html,
+            "<p class=\"sim\"><strong>Simulated test.</strong> The frames were emulated and the clock ran {speed}× faster than real time: \
+dates and durations below are simulated, not the lab's.</p>"
+        );
+    }
     html += "<h2>Specimen</h2><table>";
     let mut row = |k: &str, v: String| {
         let _ = write!(html, "<tr><th class=\"l\">{k}</th><td class=\"l\">{v}</td></tr>");
@@ -145,9 +154,9 @@ td.l,th.l{{text-align:left}}.plot{{max-width:640px;width:100%}}.caution{{border:
     row("Finished", t.finished_at.as_deref().map_or("running".into(), escape));
     html += "</table>";
 
-    html += "<h2>Increments</h2><table><tr><th>#</th><th>σ′ kPa</th><th>settlement mm</th><th>at end of primary mm</th>\
-<th>t50 min</th><th>t90 min</th><th>cv (√t) mm²/min</th><th>cv (log t) mm²/min</th><th>cv proposed mm²/min</th>\
-<th>Cα</th><th class=\"l\">flags</th></tr>";
+    html += "<h2>Load steps</h2><table><tr><th>Step</th><th>σ′ kPa</th><th>settlement mm</th><th>at end of primary mm</th>\
+<th>t50 min</th><th>t90 min</th><th>cv(√t) mm²/min</th><th>cv(log t) mm²/min</th><th>cv proposed mm²/min</th>\
+<th>Cα(ε)</th><th class=\"l\">remarks</th></tr>";
     for i in &r.increments {
         let proposed = match (i.cv_mm2_per_min, i.cv_method) {
             (Some(cv), Some(method)) => format!("{} ({})", num(Some(cv), 3), method_words(method)),
@@ -201,7 +210,7 @@ td.l,th.l{{text-align:left}}.plot{{max-width:640px;width:100%}}.caution{{border:
         }
         Some(c) => {
             html += &e_log_svg(c);
-            html += "<table><tr><th>σ′ kPa</th><th class=\"l\">branch</th><th>e</th><th>strain</th><th>mv 1/kPa</th><th>k m/s</th></tr>";
+            html += "<table><tr><th>σ′ kPa</th><th class=\"l\">branch</th><th>e</th><th>strain</th><th>mv m²/MN</th><th>k m/s</th></tr>";
             for p in &c.points {
                 let branch =
                     serde_json::to_value(p.branch).ok().and_then(|v| v.as_str().map(String::from)).unwrap_or_default();
@@ -212,7 +221,7 @@ td.l,th.l{{text-align:left}}.plot{{max-width:640px;width:100%}}.caution{{border:
                     escape(&branch),
                     num(Some(p.e), 4),
                     num(Some(p.strain), 4),
-                    sci(p.mv_per_kpa),
+                    num(p.mv_per_kpa.map(|mv| mv * 1000.0), 3),
                     sci(p.k_m_per_s)
                 );
             }
@@ -265,7 +274,8 @@ async fn report(State(state): State<AppState>, Path(id): Path<String>) -> Result
     let id = test_id(&id)?;
     let now = state.clock.now_us();
     let reduced = state.reduce_test(id).await?;
-    Ok(([(header::CACHE_CONTROL, "no-store")], Html(render(&reduced, now))))
+    let simulated = state.clock.is_simulated().then(|| state.clock.speed());
+    Ok(([(header::CACHE_CONTROL, "no-store")], Html(render(&reduced, now, simulated))))
 }
 
 pub(super) fn router() -> Router<AppState> {

@@ -303,10 +303,10 @@ pub fn withdraw_increment(
             Some((seq, None)) if seq == step.seq => {}
             Some((seq, Some(_))) if seq == step.seq => {
                 return Err(StoreError::Refused(format!(
-                    "increment {seq} has begun (its onset was found): mark it void instead"
+                    "load step {seq} has begun (its onset was found): mark it void instead"
                 )));
             }
-            _ => return Err(StoreError::Refused(format!("increment {} is not the test's armed step", step.seq))),
+            _ => return Err(StoreError::Refused(format!("load step {} is not the test's armed step", step.seq))),
         }
         conn.execute("DELETE FROM increments WHERE test_id = ?1 AND seq = ?2", params![step.test_id, step.seq])?;
         let previous = current_increment(conn, step.test_id)?;
@@ -351,11 +351,11 @@ pub fn set_increment_void(
             )
             .optional()?;
         match (found, reason.is_some()) {
-            (None, _) => return Err(StoreError::Refused(format!("this test has no increment {}", step.seq))),
+            (None, _) => return Err(StoreError::Refused(format!("this test has no load step {}", step.seq))),
             (Some(Some(_)), true) => {
-                return Err(StoreError::Refused(format!("increment {} is already void", step.seq)));
+                return Err(StoreError::Refused(format!("load step {} is already void", step.seq)));
             }
-            (Some(None), false) => return Err(StoreError::Refused(format!("increment {} is not void", step.seq))),
+            (Some(None), false) => return Err(StoreError::Refused(format!("load step {} is not void", step.seq))),
             _ => {}
         }
         let (void_us, by) = if reason.is_some() { (Some(at_us), actor.clone()) } else { (None, None) };

@@ -161,10 +161,10 @@ impl Hub {
             let result = match note {
                 Finding::Onset { seq, onset_us, source } => {
                     let how = if source == OnsetSource::LoadStep { "the load-cell step" } else { "the first sharp deformation" };
-                    self.lab.set_onset(index, onset_us, source, format!("increment {seq}: load on at t0 found from {how}"))
+                    self.lab.set_onset(index, onset_us, source, format!("load step {seq}: load on at t0 found from {how}"))
                 }
                 Finding::Ready { seq, at_us, how } => {
-                    self.lab.set_ready(index, at_us, format!("increment {seq}: end of primary — ready for the next load ({how})"))
+                    self.lab.set_ready(index, at_us, format!("load step {seq}: end of primary — ready for the next load ({how})"))
                 }
                 Finding::LoadOff { measured_kn, expected_kn } => self.event(
                     key,

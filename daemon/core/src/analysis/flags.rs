@@ -241,7 +241,7 @@ impl fmt::Display for Flag {
             Flag::NetSwelling => f.write_str("net swelling: the time-curve constructions need compression"),
             Flag::SmallPrimary { primary_mm, resolution_mm } => write!(
                 f,
-                "primary compression {primary_mm:.4} mm is under 50 gauge resolutions ({resolution_mm} mm): \
+                "primary compression {primary_mm:.4} mm is under 50 gauge resolutions ({resolution_mm:.4} mm): \
                  constructions unreliable"
             ),
             Flag::FitWindowTooShort { construction, points, needed } => {
@@ -254,22 +254,26 @@ impl fmt::Display for Flag {
             }
             Flag::T50NotFound => f.write_str("d50 not reached between readings: t50 undetermined"),
             Flag::OffsetOutsideParabola { t1_min } => {
-                write!(f, "no 1:4 time pair inside the parabolic start; d0 from t1 = {t1_min} min only, may be biased")
+                write!(
+                    f,
+                    "no 1:4 time pair inside the parabolic start; d0 from t1 = {} only, may be biased",
+                    minutes(*t1_min)
+                )
             }
             Flag::NoOffsetPair => f.write_str("no time pair t1, 4·t1 within the readings: log-time d0 undetermined"),
             Flag::IntersectionOutsideData => f.write_str("d100 intersection lies outside the readings"),
             Flag::LoadIncrementRatioLow { lir } => write!(f, "LIR {lir:.2} < 0.7: cv unreliable"),
             Flag::SpansPreconsolidation { sigma_p_kpa } => {
-                write!(f, "increment spans σ′p ≈ {sigma_p_kpa:.0} kPa: cv and end of primary unreliable")
+                write!(f, "the load step spans σ′p ≈ {sigma_p_kpa:.0} kPa: cv and end of primary unreliable")
             }
             Flag::MethodsDisagree { ratio } => {
-                write!(f, "cv by √t is {ratio:.2} × cv by log t: the methods disagree by more than a factor of 2")
+                write!(f, "cv(√t) is {ratio:.2} × cv(log t): the methods disagree by more than a factor of 2")
             }
             Flag::SecondarySlopeNegative => f.write_str("secondary line slopes towards swelling: Cα negative"),
             Flag::HeightUnknown => f.write_str("specimen height not given: Cα undetermined"),
             Flag::DeflectionOutsideCalibration { stress_kpa, min_kpa, max_kpa } => write!(
                 f,
-                "stress {stress_kpa} kPa outside the calibrated {min_kpa}–{max_kpa} kPa: \
+                "stress {stress_kpa:.1} kPa outside the calibrated {min_kpa:.1}–{max_kpa:.1} kPa: \
                  deflection not extrapolated, no correction"
             ),
             Flag::UnloadingBranchMissing => {
@@ -300,7 +304,7 @@ impl fmt::Display for Flag {
             }
             Flag::PreconsolidationOutsideData { method, sigma_p_kpa } => write!(
                 f,
-                "σ′p ({method}): the construction lands at {sigma_p_kpa:.3} kPa, outside the loading stresses it \
+                "σ′p ({method}): the construction lands at {sigma_p_kpa:.1} kPa, outside the loading stresses it \
                  used: not reported (at most a bound)"
             ),
             Flag::PreconsolidationNoBend { method } => {
@@ -317,13 +321,13 @@ impl fmt::Display for Flag {
                 f.write_str("e does not fall along the loading points: no virgin line, Cc undetermined")
             }
             Flag::EndOfPrimaryMissing { stress_kpa } => {
-                write!(f, "no end of primary at {stress_kpa} kPa: end-of-increment settlement used")
+                write!(f, "no end of primary at {stress_kpa:.1} kPa: the settlement at the end of the load step used")
             }
             Flag::TemperatureOutsideTable { temperature_c } => {
-                write!(f, "temperature {temperature_c} °C outside the viscosity table: cv not corrected to 20 °C")
+                write!(f, "temperature {temperature_c:.1} °C outside the viscosity table: cv not corrected to 20 °C")
             }
             Flag::StraightPartShort { share } => {
-                write!(f, "the √t straight part spans only {:.0} % of the primary: cv by √t not trusted", share * 100.0)
+                write!(f, "the √t straight part spans only {:.0} % of the primary: cv(√t) not trusted", share * 100.0)
             }
             Flag::SecondaryTooSoon { t100_min, from_min, until_min } => write!(
                 f,

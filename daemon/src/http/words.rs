@@ -1,0 +1,65 @@
+//! The words people read for the daemon's states, one table for every screen: the board and the frame page
+//! (`web/common.js`, `O.STATES`, which a test here keeps equal to this table), `/overview` and the report.
+//! Internal codes (`primary`, `armed`) stay in the API and the CSVs; no screen shows them.
+
+/// (state code, word, hint) for every frame state.
+pub(crate) const STATE_WORDS: [(&str, &str, &str); 7] = [
+    ("ready", "Ready", "ready for the next load"),
+    ("armed", "Armed", "next load step armed: put the weights on"),
+    ("primary", "Settling", "primary consolidation"),
+    ("seating", "Seating", "seating load on"),
+    ("idle", "Free", "no test running"),
+    ("finished", "Done", "test finished"),
+    ("offline", "No signal", "no valid reading"),
+];
+
+/// The word for state `code` (the code itself for one this table lacks, which a test forbids).
+pub(crate) fn state_word(code: &str) -> &str {
+    STATE_WORDS.iter().find(|(c, _, _)| *c == code).map_or(code, |(_, w, _)| w)
+}
+
+/// The hint for state `code`.
+pub(crate) fn state_hint(code: &str) -> &str {
+    STATE_WORDS.iter().find(|(c, _, _)| *c == code).map_or("", |(_, _, h)| h)
+}
+
+/// A duration in words for a person: "45 s", "12 min", "3 h 10 min", "2.5 days".
+pub(crate) fn span(seconds: f64) -> String {
+    let s = seconds.max(0.0);
+    if s < 90.0 {
+        format!("{s:.0} s")
+    } else if s < 5400.0 {
+        format!("{:.0} min", s / 60.0)
+    } else if s < 172_800.0 {
+        let h = (s / 3600.0).floor();
+        format!("{h:.0} h {:.0} min", ((s - h * 3600.0) / 60.0).floor())
+    } else {
+        format!("{:.1} days", s / 86_400.0)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_dashboard_s_state_words_are_this_table() {
+        let js = include_str!("../../../web/common.js");
+        for (code, word, hint) in STATE_WORDS {
+            let entry = format!("{code}: {{ word: \"{word}\", hint: \"{hint}\"");
+            assert!(js.contains(&entry), "web/common.js lacks `{entry}`");
+        }
+        let every: Vec<&str> = crate::http::metrics::STATES.to_vec();
+        let mine: Vec<&str> = STATE_WORDS.iter().map(|(c, _, _)| *c).collect();
+        assert_eq!(mine.len(), every.len());
+        assert!(every.iter().all(|c| mine.contains(c)), "a state without a word: {every:?}");
+    }
+
+    #[test]
+    fn spans_read_as_a_person_says_them() {
+        assert_eq!(span(42.0), "42 s");
+        assert_eq!(span(720.0), "12 min");
+        assert_eq!(span(11_400.0), "3 h 10 min");
+        assert_eq!(span(216_000.0), "2.5 days");
+    }
+}
