@@ -189,7 +189,7 @@
       O.health.fetchedAt = Date.now();
       const sim = r.data.simulated_time;
       document.body.dataset.simulated = sim ? "true" : "false";
-      banner("sim-banner", "sim", sim ? "SIMULATED TIME — demo: time is simulated — the clock runs " + r.data.clock_speed + "× faster than real time and the frames are emulated." : null);
+      banner("sim-banner", "sim", sim ? "Demo: simulated time, " + r.data.clock_speed + "× faster than real time; the frames are emulated." : null);
     }
     return r.ok;
   }
