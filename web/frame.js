@@ -152,8 +152,22 @@
       series: series("t min", (u, v) => fmt.sig(v, 3)),
       hooks: { draw: [overlayHook(() => O.constructions.logt)] },
     }, logData);
+    // Taylor's construction lives in the early part: unless the whole step is asked for, √t runs to 2.5·√t90
+    // (or 2.5× the straight part's end), where the construction and its labels have room.
+    const whole = document.getElementById("sqrt-whole").checked;
+    const focus = tay.t90_min ? 2.5 * Math.sqrt(tay.t90_min) : tay.straight ? 2.5 * Math.sqrt(tay.straight.t_end_min) : null;
+    // A chart kept across steps keeps its range functions: they read the step shown now from O.sqrtView.
+    O.sqrtView = { whole, focus, data: sqrtData };
     makeChart("sqrt", "chart-sqrt", {
-      scales: { x: { time: false, range: (u, min, max) => [0, max > 0 ? max : 1] }, y: { dir: -1 } },
+      scales: { x: { time: false, range: (u, min, max) => { const v = O.sqrtView; return (O.sqrtRange = [0, !v.whole && v.focus && v.focus < max ? v.focus : max > 0 ? max : 1]); } }, y: { dir: -1, range: (u, min, max) => {
+        // The y range of what is in view, so zooming in on x does not leave the curve a flat line.
+        const { whole, focus, data } = O.sqrtView;
+        if (whole || !focus) return [min, max];
+        const ys = data[1].filter((y, i) => y != null && data[0][i] <= focus);
+        if (!ys.length) return [min, max];
+        const lo = Math.min(...ys), hi = Math.max(...ys), pad = (hi - lo) * 0.06 || 0.001;
+        return [lo - pad, hi + pad];
+      } } },
       axes: [Object.assign({}, baseAxis, { label: "√time, √min" }), yAxis],
       series: series("√t", (u, v) => (v === null ? "—" : fmt.num(v, 2) + " (" + fmt.sig(v * v, 3) + " min)")),
       hooks: { draw: [overlayHook(() => O.constructions.sqrt)] },
@@ -293,6 +307,8 @@
         el("td", {}, fmt.sig(p.mv_per_kpa != null ? p.mv_per_kpa * 1000 : null, 3)),
         el("td", {}, fmt.sig(p.k_m_per_s, 3)),
         el("td", { class: "flags" }, [...new Set(words)].join("; "))));
+      // On a phone the remarks go on their own full-width line under the step instead of a far-right column.
+      if (words.length) rows.push(el("tr", { class: "remarks-row" + (s.void ? " void" : ""), "data-remarks-for": s.seq }, el("td", { colspan: 8, class: "flags" }, [...new Set(words)].join("; "))));
     }
     body.replaceChildren(...(rows.length ? rows : [el("tr", {}, el("td", { colspan: 9, class: "empty-note" }, "No load step yet."))]));
     renderStepTools();
@@ -317,7 +333,7 @@
       return;
     }
     stepToolsKey = key;
-    if (!summaries.length) { host.replaceChildren(); return; }
+    if (!summaries.length) { host.replaceChildren(); stepToolsKey = null; return; }
     // A new load step re-renders the tools: keep them open, and keep what was being typed.
     const wasOpen = !!host.querySelector("details[open]");
     const typed = host.querySelector("#void-form [name=reason]")?.value || "";
@@ -331,13 +347,13 @@
       el("span", { class: "form-msg", "data-role": "msg" }));
     form.addEventListener("submit", (ev) => {
       ev.preventDefault();
-      submit(form, base() + "/increments/" + form.elements.seq.value + "/void", { reason: form.elements.reason.value.trim() }).then(() => { stepToolsKey = null; loadCompression(); });
+      submit(form, base() + "/increments/" + form.elements.seq.value + "/void", { reason: form.elements.reason.value.trim() }).then((r) => { if (r.ok) { stepToolsKey = null; loadCompression(); } });
     });
     const restores = summaries.filter((s) => s.void).map((s) => {
       const f = el("form", { class: "act", "data-restore": s.seq },
         el("button", { class: "btn quiet", type: "submit" }, "Count step " + s.seq + " again"),
         el("span", { class: "form-msg", "data-role": "msg" }));
-      f.addEventListener("submit", (ev) => { ev.preventDefault(); submit(f, base() + "/increments/" + s.seq + "/restore", {}).then(() => { stepToolsKey = null; loadCompression(); }); });
+      f.addEventListener("submit", (ev) => { ev.preventDefault(); submit(f, base() + "/increments/" + s.seq + "/restore", {}).then((r) => { if (r.ok) { stepToolsKey = null; loadCompression(); } }); });
       return f;
     });
     form.elements.reason.value = typed;
@@ -587,6 +603,7 @@
   }
 
   document.getElementById("comp-linear").addEventListener("change", compressionChart);
+  document.getElementById("sqrt-whole").addEventListener("change", () => loadStep(selectedSeq ?? ((frame && frame.watch && frame.watch.seq) || (frame && frame.test && frame.test.increment))));
   document.getElementById("note-form").addEventListener("submit", async (ev) => {
     ev.preventDefault();
     const form = ev.target;

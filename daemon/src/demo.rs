@@ -238,6 +238,9 @@ pub async fn start(options: DemoOptions) -> Result<(Running, Arc<dyn Clock>), De
         truth,
         benches: vec![Bench::default(); usize::from(options.frames)],
         rng: rand::rngs::SmallRng::seed_from_u64(0x0ed0),
+        writer: running.writer.clone(),
+        daemon_clock: clock.clone(),
+        schedule_noted: vec![false; usize::from(options.frames)],
     };
     tokio::spawn(technician.run());
     Ok((running, clock))
@@ -292,6 +295,12 @@ struct Technician {
     truth: Option<TruthFile>,
     benches: Vec<Bench>,
     rng: rand::rngs::SmallRng,
+    /// The journal, for the note that a frame's schedule is over.
+    writer: crate::store::Writer,
+    /// The daemon's clock, for that note's stamp.
+    daemon_clock: Arc<dyn Clock>,
+    /// Frames whose end of schedule has been noted.
+    schedule_noted: Vec<bool>,
 }
 
 /// The technician comes to a ready frame between these many simulated minutes after it said so (a lab
@@ -319,7 +328,22 @@ impl Technician {
         use rand::Rng as _;
         let unit = oedolog_protocol::UnitId(u8::try_from(index + 1).unwrap_or(u8::MAX));
         let Some((first_due_s, stress_kpa)) = self.sim.with(|s| s.frame(unit).and_then(|f| f.upcoming_load())) else {
-            return; // the schedule has ended
+            // The schedule has ended: once the last step is ready, say so in the frame's journal.
+            if phase == Phase::Ready && !self.schedule_noted[index] {
+                self.schedule_noted[index] = true;
+                let note = crate::store::Event {
+                    at_us: self.daemon_clock.now_us(),
+                    frame_key: Some(self.lab.key(index)),
+                    kind: crate::store::EventKind::Note,
+                    message: "demo: this frame's load schedule is finished; the test stays open for review".into(),
+                    actor: Some("demo technician".into()),
+                    data: None,
+                };
+                if let Err(error) = self.writer.event(note) {
+                    tracing::warn!("demo: {error}");
+                }
+            }
+            return;
         };
         let bench = self.benches[index];
         if bench.put_on_at_s.is_none() {
