@@ -135,6 +135,34 @@ try {
     check(link === "live", "the page is not on the event stream (link state " + link + ")");
   });
 
+  await step("one vocabulary: the board, /overview and the frame page say the same state words, and no code names", async () => {
+    const board = await page.evaluate(() => Object.fromEntries([...document.querySelectorAll(".tile")].map((t) => [t.dataset.frameId, { code: t.dataset.state, word: [...t.querySelector(".state-word").childNodes].filter((n) => n.nodeType === 3).map((n) => n.textContent).join("").trim() }])));
+    const words = await page.evaluate(() => Object.fromEntries(Object.entries(window.oedolog.STATES).map(([k, v]) => [k, v.word])));
+    for (const [id, t] of Object.entries(board)) check(t.word === words[t.code], id + ": the board says " + JSON.stringify(t.word) + " for " + t.code);
+    // Code names look like identifiers: snake_case flags or a bare state code where a word belongs.
+    const codeName = /\b[a-z]+(?:_[a-z0-9]+)+\b/;
+    const boardText = await page.evaluate(() => document.body.innerText);
+    check(!codeName.test(boardText), "the board shows a code name: " + (boardText.match(codeName) || [])[0]);
+    const plain = watch(await context.newPage(), "vocabulary");
+    await plain.goto(demo.base + "/overview");
+    const rows = await plain.evaluate(() => [...document.querySelectorAll("tbody tr")].map((r) => ({ name: r.cells[0].textContent.trim(), code: r.cells[1].className.replace("s-", ""), word: r.cells[1].textContent.trim() })));
+    check(rows.length === Object.keys(board).length, "/overview rows " + rows.length);
+    for (const r of rows) {
+      check(r.word === words[r.code], "/overview says " + JSON.stringify(r.word) + " for " + r.code);
+      check(!Object.keys(words).includes(r.word), "/overview shows the state code " + r.word);
+    }
+    const overviewText = await plain.evaluate(() => document.body.innerText);
+    check(!codeName.test(overviewText), "/overview shows a code name: " + (overviewText.match(codeName) || [])[0]);
+    check(!/\d{2}:\d{2}:\d{2}\.\d{6}/.test(overviewText), "/overview prints microseconds");
+    const id = Object.keys(board)[0];
+    await plain.goto(demo.base + "/frame.html?id=" + id);
+    await plain.waitForFunction(() => window.oedolog.frame && document.querySelectorAll("#inc-table tbody tr[data-seq]").length > 0, null, { timeout: 20000 });
+    const framePage = await plain.evaluate(() => ({ word: [...document.getElementById("state-word").childNodes].filter((n) => n.nodeType === 3).map((n) => n.textContent).join("").trim(), code: document.getElementById("head").dataset.state, text: document.body.innerText }));
+    check(framePage.word === words[framePage.code], "the frame page says " + JSON.stringify(framePage.word) + " for " + framePage.code);
+    check(!codeName.test(framePage.text), "the frame page shows a code name: " + (framePage.text.match(codeName) || [])[0]);
+    await plain.close();
+  });
+
   await page.setViewportSize({ width: 1440, height: 900 });
   await page.screenshot({ path: path.join(shots, "overview-wide.png"), fullPage: true });
   await page.setViewportSize({ width: 390, height: 844 });
