@@ -14,8 +14,7 @@ use super::lab_book::test_id;
 use super::overview::escape;
 use super::queries::TestSummary;
 use super::{ApiError, AppState};
-use crate::clock::rfc3339;
-use oedolog_core::analysis::CompressionReduction;
+use oedolog_core::analysis::{CompressionReduction, IncrementReduction};
 
 fn num(x: Option<f64>, digits: usize) -> String {
     x.filter(|v| v.is_finite()).map_or("—".to_string(), |v| format!("{v:.digits$}"))
@@ -23,6 +22,87 @@ fn num(x: Option<f64>, digits: usize) -> String {
 
 fn sci(x: Option<f64>) -> String {
     x.filter(|v| v.is_finite()).map_or("—".to_string(), |v| format!("{v:.3e}"))
+}
+
+/// One load step's time curve as a small SVG: the binned readings against log time, with Casagrande's d0,
+/// d50 and d100 and its t50 and t100, so each step's construction can be checked on paper.
+pub(crate) fn time_curve_svg(seq: i64, stress_kpa: f64, r: &IncrementReduction) -> String {
+    let pts: Vec<(f64, f64)> = r.nodes.iter().filter(|n| n.t_min > 0.0).map(|n| (n.t_min.log10(), n.d_mm)).collect();
+    if pts.len() < 2 {
+        return String::new();
+    }
+    let c = &r.casagrande;
+    let (w, h, left, right, top, bottom) = (300.0, 190.0, 46.0, 8.0, 20.0, 30.0);
+    let x_lo = pts.iter().map(|p| p.0).fold(f64::INFINITY, f64::min).floor();
+    let x_hi = pts.iter().map(|p| p.0).fold(f64::NEG_INFINITY, f64::max).ceil().max(x_lo + 1.0);
+    let marks = [c.d0_mm, c.d50_mm, c.d100_mm];
+    let d_lo = pts.iter().map(|p| p.1).chain(marks.iter().flatten().copied()).fold(f64::INFINITY, f64::min);
+    let d_hi = pts.iter().map(|p| p.1).chain(marks.iter().flatten().copied()).fold(f64::NEG_INFINITY, f64::max);
+    let pad = ((d_hi - d_lo) * 0.08).max(0.002);
+    let (y_lo, y_hi) = (d_lo - pad, d_hi + pad);
+    let sx = |x: f64| left + (x.clamp(x_lo, x_hi) - x_lo) / (x_hi - x_lo) * (w - left - right);
+    // Compression downwards, as the gauge moves.
+    let sy = |y: f64| top + (y - y_lo) / (y_hi - y_lo) * (h - top - bottom);
+    let mut svg = format!(
+        "<svg class=\"step-plot\" viewBox=\"0 0 {w} {h}\" role=\"img\" aria-label=\"load step {seq}: gauge reading against log time\" xmlns=\"http://www.w3.org/2000/svg\">\
+<text x=\"{left}\" y=\"13\" font-size=\"11\" font-weight=\"600\">Step {seq} · {stress_kpa:.1} kPa</text>\
+<rect x=\"{left}\" y=\"{top}\" width=\"{}\" height=\"{}\" fill=\"none\" stroke=\"#888\"/>",
+        w - left - right,
+        h - top - bottom
+    );
+    let mut decade = x_lo;
+    while decade <= x_hi + 1e-9 {
+        let x = sx(decade);
+        let _ = write!(
+            svg,
+            "<line x1=\"{x:.1}\" y1=\"{top}\" x2=\"{x:.1}\" y2=\"{}\" stroke=\"#e3e3e3\"/><text x=\"{x:.1}\" y=\"{}\" font-size=\"9\" text-anchor=\"middle\">{}</text>",
+            h - bottom,
+            h - bottom + 11.0,
+            10f64.powf(decade)
+        );
+        decade += 1.0;
+    }
+    for (k, y) in [y_lo + pad, y_hi - pad].into_iter().enumerate() {
+        let _ = write!(
+            svg,
+            "<text x=\"{}\" y=\"{:.1}\" font-size=\"9\" text-anchor=\"end\">{y:.3}</text>",
+            left - 3.0,
+            sy(y) + if k == 0 { 8.0 } else { 0.0 }
+        );
+    }
+    for (label, value) in [("d0", c.d0_mm), ("d50", c.d50_mm), ("d100", c.d100_mm)] {
+        if let Some(d) = value {
+            let y = sy(d);
+            let _ = write!(
+                svg,
+                "<line x1=\"{left}\" y1=\"{y:.1}\" x2=\"{}\" y2=\"{y:.1}\" stroke=\"#1f6f43\" stroke-dasharray=\"2 3\"/><text x=\"{}\" y=\"{:.1}\" font-size=\"9\" fill=\"#1f6f43\" text-anchor=\"end\">{label}</text>",
+                w - right,
+                w - right - 2.0,
+                y - 2.0
+            );
+        }
+    }
+    for (label, value) in [("t50", c.t50_min), ("t100", c.t100_min)] {
+        if let Some(t) = value.filter(|t| *t > 0.0) {
+            let x = sx(t.log10());
+            let _ = write!(
+                svg,
+                "<line x1=\"{x:.1}\" y1=\"{top}\" x2=\"{x:.1}\" y2=\"{}\" stroke=\"#1f6f43\" stroke-dasharray=\"2 3\"/><text x=\"{:.1}\" y=\"{}\" font-size=\"9\" fill=\"#1f6f43\">{label}</text>",
+                h - bottom,
+                x + 2.0,
+                top + 10.0
+            );
+        }
+    }
+    let path: Vec<String> = pts.iter().map(|&(x, y)| format!("{:.1},{:.1}", sx(x), sy(y))).collect();
+    let _ = write!(
+        svg,
+        "<polyline points=\"{}\" fill=\"none\" stroke=\"#2b5d8a\" stroke-width=\"1.4\"/><text x=\"{}\" y=\"{}\" font-size=\"9\" text-anchor=\"middle\">minutes (log) · gauge mm, down = compression</text></svg>",
+        path.join(" "),
+        (left + w - right) / 2.0,
+        h - 4.0
+    );
+    svg
 }
 
 /// The e–log σ′ curve as an SVG drawn here: points joined in order, decades on the x axis.
@@ -111,7 +191,8 @@ pub(crate) fn render(r: &TestSummary, now_us: i64, simulated: Option<f64>) -> St
 <title>Test {} — {}</title><style>\
 body{{font-family:system-ui,sans-serif;margin:1.5rem;color:#1d2a30}}table{{border-collapse:collapse;margin:.5rem 0 1rem}}\
 td,th{{padding:.25rem .5rem;border:1px solid #c9c4b7;text-align:right;font-variant-numeric:tabular-nums}}th{{background:#efece4}}\
-td{{white-space:nowrap}}td.l,th.l{{text-align:left;white-space:normal}}.sim{{border:1px solid #e0c860;background:#fff3c4;padding:.4rem .7rem}}.plot{{max-width:640px;width:100%}}.caution{{border:1px solid #c9a13b;background:#fff8e0;padding:.5rem .8rem}}\
+td{{white-space:nowrap}}td.l,th.l{{text-align:left;white-space:normal}}.steps{{display:grid;grid-template-columns:repeat(auto-fill,minmax(260px,1fr));gap:.5rem}}.step-plot{{width:100%;break-inside:avoid}}\
+@page{{size:auto;margin:14mm 12mm}}.sim{{border:1px solid #e0c860;background:#fff3c4;padding:.4rem .7rem}}.plot{{max-width:640px;width:100%}}.caution{{border:1px solid #c9a13b;background:#fff8e0;padding:.5rem .8rem}}\
 @media print{{body{{margin:0;font-size:10pt}}.noprint{{display:none}}h2{{page-break-after:avoid}}table{{page-break-inside:avoid}}}}\
 </style></head><body>",
         t.id,
@@ -150,8 +231,10 @@ dates and durations below are simulated, not the lab's.</p>"
         row("Initial void ratio e0", format!("{:.3}", p.e0));
         row("Dry density", format!("{:.3} Mg/m³", p.dry_density_mg_per_m3));
     }
-    row("Started", escape(&t.started_at));
-    row("Finished", t.finished_at.as_deref().map_or("running".into(), escape));
+    // To the minute, as a person writes it ("2026-12-03 11:52 UTC"), not the API's microseconds.
+    let minute = |s: &str| if s.len() >= 16 { format!("{} {} UTC", &s[..10], &s[11..16]) } else { s.to_string() };
+    row("Started", escape(&minute(&t.started_at)));
+    row("Finished", t.finished_at.as_deref().map_or("running".into(), |f| escape(&minute(f))));
     html += "</table>";
 
     html += "<h2>Load steps</h2><table><tr><th>Step</th><th>σ′ kPa</th><th>settlement mm</th><th>at end of primary mm</th>\
@@ -187,6 +270,19 @@ dates and durations below are simulated, not the lab's.</p>"
         );
     }
     html += "</table>";
+    // Every load step's time curve with its log-time construction, small enough for two or three a row.
+    let plots: Vec<String> = r
+        .increments
+        .iter()
+        .filter(|i| i.row.void.is_none())
+        .filter_map(|i| i.curve.as_ref().map(|c| time_curve_svg(i.row.seq, i.row.stress_kpa, c)))
+        .filter(|svg| !svg.is_empty())
+        .collect();
+    if !plots.is_empty() {
+        html += "<h2>Time curves of the load steps</h2><div class=\"steps\">";
+        html += &plots.join("");
+        html += "</div>";
+    }
     // Which construction each step's cv comes from, and why: the engineer's first question.
     let reasons: Vec<String> = r
         .increments
@@ -265,7 +361,7 @@ dates and durations below are simulated, not the lab's.</p>"
 Follow the governing standard and local codes. oedolog never changes a load on a dead-weight frame: every load is put on by a person.</p></div>\
 <p><small>Printed from oedolog {} at {}.</small></p></body></html>",
         env!("CARGO_PKG_VERSION"),
-        rfc3339(now_us)
+        super::overview::minute(now_us)
     );
     html
 }

@@ -518,6 +518,14 @@ async fn the_report_page_has_the_tables_the_plot_and_the_cautions() {
     ] {
         assert!(html.contains(needle), "report lacks {needle}");
     }
+    // The one load step's time curve, with the log-time construction's marks on it.
+    assert_eq!(html.matches("<svg class=\"step-plot\"").count(), 1, "one small time curve per load step");
+    let plot = &html[html.find("<svg class=\"step-plot\"").unwrap()..];
+    let plot = &plot[..plot.find("</svg>").unwrap()];
+    for mark in ["Step 1 · 50.0 kPa", ">d0<", ">d100<", ">t50<", "<polyline"] {
+        assert!(plot.contains(mark), "the step's plot lacks {mark}");
+    }
+    assert!(!html.contains("Simulated test"), "a real clock's report says nothing of simulation");
     assert_eq!(call(&b.state, "GET", "/tests/999/report", None).await.0, StatusCode::NOT_FOUND);
 }
 
