@@ -40,6 +40,8 @@ pub struct DemoOptions {
     pub notify: crate::config::NotifyConfig,
     /// `[alarms]` of the `--config` file (else the defaults).
     pub alarms: oedolog_core::alarms::AlarmRules,
+    /// `[display]` of the `--config` file (else SI).
+    pub display: oedolog_core::units::DisplayUnits,
     /// Where to write the simulator's answer key (one JSON line per load step), if anywhere.
     pub truth: Option<PathBuf>,
 }
@@ -136,6 +138,7 @@ pub fn demo_config(
         frames,
         notify: options.notify.clone(),
         alarms: options.alarms.clone(),
+        display: options.display,
     }
 }
 

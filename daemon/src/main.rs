@@ -190,12 +190,13 @@ async fn run(command: Command) -> anyhow::Result<()> {
             let users = file.as_ref().map(|c| c.http.users.clone()).unwrap_or_default();
             let notify = file.as_ref().map(|c| c.notify.clone()).unwrap_or_default();
             let alarms = file.as_ref().map(|c| c.alarms.clone()).unwrap_or_default();
+            let display = file.as_ref().map(|c| c.display).unwrap_or_default();
             println!(
                 "demo: {frames} simulated frames, clock {speed}× real time (simulated), database {}",
                 db.display()
             );
             let (running, _clock) =
-                demo::start(demo::DemoOptions { frames, speed, listen, db, users, notify, alarms, truth })
+                demo::start(demo::DemoOptions { frames, speed, listen, db, users, notify, alarms, display, truth })
                     .await
                     .map_err(|e| anyhow::anyhow!("{e}"))
                     .context("starting the demo")?;

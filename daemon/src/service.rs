@@ -167,6 +167,7 @@ pub fn assemble(config: &Config, clock: Arc<dyn Clock>, options: Options) -> Res
         hub,
         clock,
         stale_after,
+        display: config.display,
         started_us: now,
         writer,
         store_path: store_config.path.clone(),

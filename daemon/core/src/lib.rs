@@ -15,4 +15,5 @@ pub mod diagnostics;
 pub mod offline;
 pub mod quantity;
 pub mod replay;
+pub mod units;
 pub mod watch;

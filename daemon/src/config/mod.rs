@@ -85,6 +85,8 @@ pub struct Config {
     pub notify: NotifyConfig,
     /// Alarm thresholds (`[alarms]`).
     pub alarms: oedolog_core::alarms::AlarmRules,
+    /// The units the dashboard starts in (`[display]`); storage and the API stay SI.
+    pub display: oedolog_core::units::DisplayUnits,
 }
 
 /// `[store]`
@@ -817,6 +819,26 @@ impl Config {
     }
 }
 
+/// `[display]`: each unit one of its list, SI where not given.
+fn check_display(c: &mut Checker<'_>, raw: &raw::RawDisplay) -> oedolog_core::units::DisplayUnits {
+    use oedolog_core::units::{
+        CV_UNITS, DisplayUnit, DisplayUnits, K_UNITS, LENGTH_UNITS, STRESS_UNITS, find_unit, names,
+    };
+    let mut one = |value: &Option<Spanned<String>>, field: &str, units: &[DisplayUnit]| match value {
+        None => units[0],
+        Some(v) => find_unit(units, v.get_ref()).unwrap_or_else(|| {
+            c.at(v.span(), field, format!("`{}` is not allowed (allowed: {})", v.get_ref(), names(units)));
+            units[0]
+        }),
+    };
+    DisplayUnits {
+        stress: one(&raw.stress, "display.stress", &STRESS_UNITS),
+        length: one(&raw.length, "display.length", &LENGTH_UNITS),
+        cv: one(&raw.cv, "display.cv", &CV_UNITS),
+        k: one(&raw.k, "display.k", &K_UNITS),
+    }
+}
+
 fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
     let store = match (raw.store, purpose) {
         (Some(s), _) => {
@@ -933,7 +955,8 @@ fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
     }
     let notify = check_notify(c, &raw.notify);
     let alarms = check_alarms(c, &raw.alarms);
-    Config { store, http: HttpConfig { listen, users, public_origins }, log, buses, frames, notify, alarms }
+    let display = check_display(c, &raw.display);
+    Config { store, http: HttpConfig { listen, users, public_origins }, log, buses, frames, notify, alarms, display }
 }
 
 /// `[alarms]`: each threshold within a range that still makes sense; defaults for the rest.

@@ -31,6 +31,23 @@ pub(crate) struct RawConfig {
     /// Alarm thresholds.
     #[serde(default)]
     pub alarms: RawAlarms,
+    /// The units results are shown in.
+    #[serde(default)]
+    pub display: RawDisplay,
+}
+
+/// `[display]`: each key one unit name.
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawDisplay {
+    /// `kPa`, `tsf` or `psf`.
+    pub stress: Option<Spanned<String>>,
+    /// `mm` or `in`.
+    pub length: Option<Spanned<String>>,
+    /// `mm2/min`, `m2/year` or `ft2/day`.
+    pub cv: Option<Spanned<String>>,
+    /// `m/s` or `cm/s`.
+    pub k: Option<Spanned<String>>,
 }
 
 /// `[store]`

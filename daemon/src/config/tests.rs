@@ -561,3 +561,20 @@ fn implausible_rings_and_overlapping_registers_are_refused_naming_the_frame_s_in
     assert!(Config::parse(&other_table, Purpose::Run).is_ok());
     assert!(Config::parse(&format!("{BASE}{second}"), Purpose::Run).is_ok());
 }
+
+#[test]
+fn display_units_are_chosen_by_name_and_an_unknown_one_is_refused_with_the_list() {
+    let config = Config::parse(
+        &format!("{BASE}\n[display]\nstress = \"tsf\"\nlength = \"in\"\ncv = \"m2/year\"\nk = \"cm/s\"\n"),
+        Purpose::Run,
+    )
+    .unwrap_or_else(|e| panic!("{e}"));
+    let d = config.display;
+    assert_eq!([d.stress.name, d.length.name, d.cv.name, d.k.name], ["tsf", "in", "m²/year", "cm/s"]);
+    assert_eq!(Config::parse(BASE, Purpose::Run).unwrap().display, oedolog_core::units::DisplayUnits::default());
+    let error = Config::parse(&format!("{BASE}\n[display]\nstress = \"MPa\"\n"), Purpose::Run).unwrap_err();
+    let problem = error.problems.iter().find(|p| p.field == "display.stress").unwrap_or_else(|| panic!("{error}"));
+    assert!(problem.message.contains("allowed: kPa, tsf, psf"), "{problem}");
+    let error = Config::parse(&format!("{BASE}\n[display]\ntemperature = \"F\"\n"), Purpose::Run).unwrap_err();
+    assert!(error.to_string().contains("unknown field `temperature`"), "{error}");
+}

@@ -66,6 +66,8 @@ pub struct AppState {
     pub clock: Arc<dyn Clock>,
     /// Per frame: how long without a valid reading before it counts as offline.
     pub stale_after: Vec<Duration>,
+    /// The units the lab shows results in (`[display]`); the API stays SI.
+    pub display: oedolog_core::units::DisplayUnits,
     /// When the daemon started, UTC µs.
     pub started_us: i64,
     /// The store's writer (operator actions that are not the lab book's: notes, "load applied").
@@ -162,6 +164,8 @@ async fn healthz(State(state): State<AppState>) -> impl IntoResponse {
         "simulated_time": state.clock.is_simulated(),
         "clock_speed": state.clock.speed(),
         "frames": state.live.snapshot().len(),
+        // The lab's display units: value shown = API value × per_stored.
+        "display": state.display,
     }))
 }
 

@@ -1350,3 +1350,12 @@ async fn a_negative_last_event_id_is_refused_like_a_negative_after() {
         assert_eq!(status, StatusCode::BAD_REQUEST, "{header:?} {query}: {body}");
     }
 }
+
+#[tokio::test]
+async fn healthz_gives_the_lab_s_display_units_with_their_factors() {
+    let b = bench(false);
+    let (status, health) = call(&b.state, "GET", "/healthz", None).await;
+    assert_eq!(status, StatusCode::OK);
+    assert_eq!(health["display"]["stress"], json!({"name": "kPa", "per_stored": 1.0}), "{health}");
+    assert_eq!(health["display"]["cv"]["name"], "mm²/min");
+}
