@@ -8,7 +8,7 @@ use std::sync::{Arc, RwLock};
 
 use serde::Serialize;
 
-use crate::store::lab_book::{self, NewTest, Step};
+use crate::store::lab_book::{self, CurrentIncrement, NewTest, Step};
 use crate::store::{ChannelKind, Event, EventKind, Reader, StoreError, TestState, Writer, latest_reading};
 use oedolog_core::watch::OnsetSource;
 
@@ -66,23 +66,36 @@ pub struct Lab {
     writer: Writer,
 }
 
+impl RunningTest {
+    /// Takes `increment` (as stored) as the current one; `None`: none yet, under seating.
+    fn set_current(&mut self, increment: Option<CurrentIncrement>) {
+        self.increment = increment.map_or(0, |i| i.seq);
+        self.stress_kpa = increment.map(|i| i.stress_kpa);
+        self.onset_us = increment.and_then(|i| i.onset_us);
+        self.armed_us = increment.and_then(|i| i.armed_us);
+        self.ready_us = increment.and_then(|i| i.ready_us);
+        self.from_kpa = increment.and_then(|i| i.from_kpa);
+    }
+}
+
 fn load_running(conn: &Reader, frame_key: i64) -> Result<Option<RunningTest>, StoreError> {
     let Some(test) = lab_book::open_test(conn, frame_key)? else { return Ok(None) };
-    let increment = test.increment;
-    Ok(Some(RunningTest {
+    let mut running = RunningTest {
         test_id: test.test_id,
         specimen: test.specimen,
         state: test.state,
-        increment: increment.map_or(0, |i| i.seq),
-        stress_kpa: increment.map(|i| i.stress_kpa),
-        onset_us: increment.and_then(|i| i.onset_us),
-        armed_us: increment.and_then(|i| i.armed_us),
-        ready_us: increment.and_then(|i| i.ready_us),
-        from_kpa: increment.and_then(|i| i.from_kpa),
+        increment: 0,
+        stress_kpa: None,
+        onset_us: None,
+        armed_us: None,
+        ready_us: None,
+        from_kpa: None,
         started_us: test.started_us,
         height_mm: test.height_mm,
         seating_kpa: test.seating_kpa,
-    }))
+    };
+    running.set_current(test.increment);
+    Ok(Some(running))
 }
 
 impl Lab {
@@ -212,12 +225,7 @@ impl Lab {
         let (state, previous) = lab_book::withdraw_increment(&self.writer, step, now_us, actor, message)?;
         self.update(index, |t| {
             t.state = state;
-            t.increment = previous.map_or(0, |i| i.seq);
-            t.stress_kpa = previous.map(|i| i.stress_kpa);
-            t.onset_us = previous.and_then(|i| i.onset_us);
-            t.armed_us = previous.and_then(|i| i.armed_us);
-            t.ready_us = previous.and_then(|i| i.ready_us);
-            t.from_kpa = previous.and_then(|i| i.from_kpa);
+            t.set_current(previous);
         });
         Ok(seq)
     }

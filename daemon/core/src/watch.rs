@@ -451,6 +451,18 @@ impl FrameWatch {
     /// The operator withdraws the armed stress before its load went on (a slip): the watch goes back to
     /// what it was doing — the running increment (primary or ready), or seating before the first.
     pub fn withdraw(&mut self) -> Result<(), WatchError> {
+        self.may_withdraw()?;
+        self.armed = None;
+        self.phase = match &self.live {
+            Some(live) if live.ready_us.is_some() => Phase::Ready,
+            Some(_) => Phase::Primary,
+            None => Phase::Seating,
+        };
+        Ok(())
+    }
+
+    /// Whether [`FrameWatch::withdraw`] would be allowed now, and why not.
+    pub fn may_withdraw(&self) -> Result<(), WatchError> {
         if self.phase != Phase::Armed {
             let now = match self.phase {
                 Phase::Idle => "idle",
@@ -461,12 +473,6 @@ impl FrameWatch {
             };
             return Err(WatchError::State(now, "only an armed step whose load has not gone on can be withdrawn"));
         }
-        self.armed = None;
-        self.phase = match &self.live {
-            Some(live) if live.ready_us.is_some() => Phase::Ready,
-            Some(_) => Phase::Primary,
-            None => Phase::Seating,
-        };
         Ok(())
     }
 

@@ -32,8 +32,15 @@ pub(crate) fn escape(text: &str) -> String {
 
 /// A date and time to the minute, for a person: "2026-12-03 10:41 UTC".
 pub(crate) fn minute(us: i64) -> String {
-    let text = rfc3339(us);
-    format!("{} {} UTC", &text[..10], &text[11..16])
+    minute_text(&rfc3339(us))
+}
+
+/// An RFC 3339 stamp of the API to the minute, as [`minute`] writes it.
+pub(crate) fn minute_text(stamp: &str) -> String {
+    match (stamp.get(..10), stamp.get(11..16)) {
+        (Some(day), Some(time)) => format!("{day} {time} UTC"),
+        _ => stamp.to_string(),
+    }
 }
 
 /// The plain overview: every frame with the board's state words, its load step and latest values, each

@@ -11,7 +11,7 @@ use axum::response::{Html, IntoResponse};
 use axum::routing::get;
 
 use super::lab_book::test_id;
-use super::overview::escape;
+use super::overview::{escape, minute_text};
 use super::queries::TestSummary;
 use super::{ApiError, AppState};
 use oedolog_core::analysis::{CompressionReduction, IncrementReduction};
@@ -22,6 +22,24 @@ fn num(x: Option<f64>, digits: usize) -> String {
 
 fn sci(x: Option<f64>) -> String {
     x.filter(|v| v.is_finite()).map_or("—".to_string(), |v| format!("{v:.3e}"))
+}
+
+/// Vertical grid lines at each decade from `x_lo` to `x_hi` (log10 values), between `ys`, labelled below
+/// with the decade's value in `font` px.
+fn decade_grid(svg: &mut String, x_lo: f64, x_hi: f64, sx: impl Fn(f64) -> f64, ys: (f64, f64), font: f64) {
+    let mut decade = x_lo;
+    while decade <= x_hi + 1e-9 {
+        let x = sx(decade);
+        let _ = write!(
+            svg,
+            "<line x1=\"{x:.1}\" y1=\"{}\" x2=\"{x:.1}\" y2=\"{}\" stroke=\"#ddd\"/><text x=\"{x:.1}\" y=\"{:.1}\" font-size=\"{font}\" text-anchor=\"middle\">{}</text>",
+            ys.0,
+            ys.1,
+            ys.1 + font * 1.25,
+            10f64.powf(decade)
+        );
+        decade += 1.0;
+    }
 }
 
 /// One load step's time curve as a small SVG: the binned readings against log time, with Casagrande's d0,
@@ -50,18 +68,7 @@ pub(crate) fn time_curve_svg(seq: i64, stress_kpa: f64, r: &IncrementReduction) 
         w - left - right,
         h - top - bottom
     );
-    let mut decade = x_lo;
-    while decade <= x_hi + 1e-9 {
-        let x = sx(decade);
-        let _ = write!(
-            svg,
-            "<line x1=\"{x:.1}\" y1=\"{top}\" x2=\"{x:.1}\" y2=\"{}\" stroke=\"#e3e3e3\"/><text x=\"{x:.1}\" y=\"{}\" font-size=\"9\" text-anchor=\"middle\">{}</text>",
-            h - bottom,
-            h - bottom + 11.0,
-            10f64.powf(decade)
-        );
-        decade += 1.0;
-    }
+    decade_grid(&mut svg, x_lo, x_hi, sx, (top, h - bottom), 9.0);
     for (k, y) in [y_lo + pad, y_hi - pad].into_iter().enumerate() {
         let _ = write!(
             svg,
@@ -130,18 +137,7 @@ pub(crate) fn e_log_svg(c: &CompressionReduction) -> String {
         w - left - right,
         h - top - bottom
     );
-    let mut decade = x_lo;
-    while decade <= x_hi + 1e-9 {
-        let x = sx(decade);
-        let _ = write!(
-            svg,
-            "<line x1=\"{x:.1}\" y1=\"{top}\" x2=\"{x:.1}\" y2=\"{}\" stroke=\"#ddd\"/><text x=\"{x:.1}\" y=\"{}\" font-size=\"11\" text-anchor=\"middle\">{}</text>",
-            h - bottom,
-            h - bottom + 14.0,
-            10f64.powf(decade)
-        );
-        decade += 1.0;
-    }
+    decade_grid(&mut svg, x_lo, x_hi, sx, (top, h - bottom), 11.0);
     for k in 0..=4 {
         let e = y_lo + (y_hi - y_lo) * f64::from(k) / 4.0;
         let _ = write!(
@@ -232,9 +228,8 @@ dates and durations below are simulated, not the lab's.</p>"
         row("Dry density", format!("{:.3} Mg/m³", p.dry_density_mg_per_m3));
     }
     // To the minute, as a person writes it ("2026-12-03 11:52 UTC"), not the API's microseconds.
-    let minute = |s: &str| if s.len() >= 16 { format!("{} {} UTC", &s[..10], &s[11..16]) } else { s.to_string() };
-    row("Started", escape(&minute(&t.started_at)));
-    row("Finished", t.finished_at.as_deref().map_or("running".into(), |f| escape(&minute(f))));
+    row("Started", escape(&minute_text(&t.started_at)));
+    row("Finished", t.finished_at.as_deref().map_or("running".into(), |f| escape(&minute_text(f))));
     html += "</table>";
 
     html += "<h2>Load steps</h2><table><tr><th>Step</th><th>σ′ kPa</th><th>settlement mm</th><th>at end of primary mm</th>\

@@ -242,10 +242,7 @@ impl Hub {
         let now = self.clock.now_us();
         let mut state = self.lock();
         let watch = state.watches.get_mut(index).ok_or(HubError::NoFrame)?;
-        if watch.phase() != Phase::Armed {
-            // The watch says why in its own words (and changes nothing).
-            watch.withdraw()?;
-        }
+        watch.may_withdraw()?;
         // The store first: if it refuses (the onset was just found), the watch stays armed.
         let seq = self.lab.withdraw(index, now, actor)?;
         watch.withdraw()?;
