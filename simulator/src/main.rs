@@ -30,9 +30,23 @@ struct Args {
     /// RTU baud rate.
     #[arg(long, default_value_t = 19_200)]
     baud: u32,
-    /// RTU parity (8 data bits, 1 stop bit); even is the serial-line specification's default.
+    /// RTU parity (8 data bits); even is the serial-line specification's default.
     #[arg(long, value_enum, default_value_t = ParityArg::Even)]
     parity: ParityArg,
+    /// RTU stop bits, 1 or 2 (8N2 is the specification's framing without parity).
+    #[arg(long, default_value_t = 1, value_parser = clap::value_parser!(u32).range(1..=2))]
+    stop_bits: u32,
+    /// Keep RS-485 wire time on RTU lines: a request is received only after its characters' wire time
+    /// and t3.5, the reply follows the turnaround and goes out at the baud rate (README, the simulator).
+    #[arg(long)]
+    line_timing: bool,
+    /// The device's turnaround with --line-timing: from a request received to the reply's first bit, µs.
+    #[arg(long, default_value_t = 0)]
+    turnaround_us: u64,
+    /// Timing framing with --line-timing when the port's own settings cannot say it (a pty, whose peer
+    /// may not open with parity): 8E1, 8O1, 8N2 or 8N1; default from --parity and --stop-bits.
+    #[arg(long, value_name = "FRAMING")]
+    line_framing: Option<String>,
     /// Simulated seconds per real second.
     #[arg(long, default_value_t = 1.0)]
     speed: f64,
@@ -111,13 +125,51 @@ async fn main() -> anyhow::Result<()> {
         ParityArg::Even => tokio_serial::Parity::Even,
         ParityArg::Odd => tokio_serial::Parity::Odd,
     };
+    let timing = if args.line_timing {
+        let turnaround = Duration::from_micros(args.turnaround_us);
+        let (with_parity, stop_bits) = match args.line_framing.as_deref() {
+            None => (parity != tokio_serial::Parity::None, args.stop_bits),
+            Some("8E1" | "8O1") => (true, 1),
+            Some("8N2") => (false, 2),
+            Some("8N1") => (false, 1),
+            Some(other) => bail!("--line-framing {other}: allowed 8E1, 8O1, 8N2 or 8N1"),
+        };
+        Some(oedolog_sim::line::LineTiming::new(args.baud, with_parity, stop_bits, turnaround))
+    } else {
+        None
+    };
     for path in &args.rtu {
-        let line = RtuLine { path: path.clone(), baud: args.baud, parity };
-        // Open here so a wrong path fails at start, and keep that port: a request sent right after the
-        // readiness line must find it open. The server reopens the path if it vanishes later.
-        let port = open_rtu(&line).with_context(|| format!("--rtu {path}"))?;
+        let line = RtuLine { path: path.clone(), baud: args.baud, parity, stop_bits: args.stop_bits, timing };
+        if timing.is_some() {
+            // A line-timed line blocks its thread while it waits out wire time: give it a thread and a
+            // runtime of its own. The port is opened there, before the readiness line.
+            let (opened, ready) = std::sync::mpsc::channel();
+            let shared = shared.clone();
+            std::thread::spawn(move || {
+                let runtime = match tokio::runtime::Builder::new_current_thread().enable_all().build() {
+                    Ok(runtime) => runtime,
+                    Err(error) => return opened.send(Err(anyhow::Error::from(error))).unwrap_or(()),
+                };
+                runtime.block_on(async move {
+                    match open_rtu(&line) {
+                        Ok(port) => {
+                            let _ = opened.send(Ok(()));
+                            serve_rtu(line, port, shared, Duration::from_millis(500)).await;
+                        }
+                        Err(error) => {
+                            let _ = opened.send(Err(anyhow::Error::from(error)));
+                        }
+                    }
+                });
+            });
+            ready.recv().context("the line's thread ended")?.with_context(|| format!("--rtu {path}"))?;
+        } else {
+            // Open here so a wrong path fails at start, and keep that port: a request sent right after the
+            // readiness line must find it open. The server reopens the path if it vanishes later.
+            let port = open_rtu(&line).with_context(|| format!("--rtu {path}"))?;
+            tokio::spawn(serve_rtu(line, port, shared.clone(), Duration::from_millis(500)));
+        }
         say(&format!("listening on rtu {path}"));
-        tokio::spawn(serve_rtu(line, port, shared.clone(), Duration::from_millis(500)));
     }
     if automatic {
         tokio::spawn(run_schedules(shared.clone(), Duration::from_millis(50), |unit, onset_s, stress_kpa| {

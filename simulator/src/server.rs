@@ -17,6 +17,7 @@ use tokio::net::{TcpListener, TcpStream};
 use crate::clock::Clock;
 use crate::device::{Outcome, Simulation};
 use crate::faults::FaultKind;
+use crate::line::LineTiming;
 
 /// What every transport task shares: the frames and the clock.
 pub struct Shared {
@@ -156,24 +157,82 @@ pub struct RtuLine {
     pub baud: u32,
     /// Parity.
     pub parity: tokio_serial::Parity,
+    /// Stop bits, 1 or 2.
+    pub stop_bits: u32,
+    /// Wire timing to keep (`--line-timing`), or none: replies go out as soon as they are computed.
+    pub timing: Option<LineTiming>,
 }
 
-/// Opens an RTU line: 8 data bits, 1 stop bit, the given parity.
+impl RtuLine {
+    /// The wire timing of this line's baud rate and framing, with the device's `turnaround`.
+    pub fn timing_of(baud: u32, parity: tokio_serial::Parity, stop_bits: u32, turnaround: Duration) -> LineTiming {
+        LineTiming::new(baud, parity != tokio_serial::Parity::None, stop_bits, turnaround)
+    }
+}
+
+/// Opens an RTU line: 8 data bits, the given parity and stop bits.
 pub fn open_rtu(line: &RtuLine) -> tokio_serial::Result<tokio_serial::SerialStream> {
     use tokio_serial::SerialPortBuilderExt;
+    let stop_bits = if line.stop_bits == 2 { tokio_serial::StopBits::Two } else { tokio_serial::StopBits::One };
     tokio_serial::new(&line.path, line.baud)
         .data_bits(tokio_serial::DataBits::Eight)
-        .stop_bits(tokio_serial::StopBits::One)
+        .stop_bits(stop_bits)
         .parity(line.parity)
         .flow_control(tokio_serial::FlowControl::None)
         .open_native_async()
 }
 
+/// Sleeps the thread until `at` (a blocking sleep: with line timing the line has its own thread, and
+/// tokio's timers are only millisecond-grained while t1.5 is under one).
+fn wait_until(at: std::time::Instant) {
+    let now = std::time::Instant::now();
+    if at > now {
+        std::thread::sleep(at - now);
+    }
+}
+
+/// Writes `bytes` at the wire rate from `start`: each character no earlier than its last bit has left
+/// the wire, and every character whose time has come in one write (so a late wake-up catches up and
+/// gaps stay near the sleep's resolution, under t1.5). Returns when the last one is out.
+async fn release_at_wire_rate<W: AsyncWrite + Unpin>(
+    writer: &mut W,
+    bytes: &[u8],
+    start: std::time::Instant,
+    timing: &LineTiming,
+) -> std::io::Result<std::time::Instant> {
+    let due: Vec<std::time::Instant> = timing.release_offsets(bytes.len()).map(|offset| start + offset).collect();
+    let mut sent = 0;
+    while sent < bytes.len() {
+        wait_until(due[sent]);
+        let now = std::time::Instant::now();
+        let ready = due.iter().skip(sent).take_while(|d| **d <= now).count().max(1);
+        writer.write_all(&bytes[sent..sent + ready]).await?;
+        writer.flush().await?;
+        sent += ready;
+    }
+    Ok(due.last().copied().unwrap_or(start))
+}
+
+/// Length of a request's RTU frame: address, PDU, CRC (8 for an undecodable one, the usual read).
+fn request_frame_len(request: &Result<Request, oedolog_protocol::PduError>) -> usize {
+    match request {
+        Ok(request) => {
+            let mut pdu = Vec::new();
+            request.encode(&mut pdu);
+            pdu.len() + 3
+        }
+        Err(_) => 8,
+    }
+}
+
 /// Serves Modbus RTU on an already opened line until it fails (the device path vanished). Units not
-/// simulated get no reply; broadcasts (unit 0) are executed and never answered.
+/// simulated get no reply; broadcasts (unit 0) are executed and never answered. With `timing` the line
+/// keeps wire time (see [`crate::line`]): this blocks the calling thread while it waits, so give such a
+/// line a thread of its own.
 pub async fn serve_rtu_port<S: AsyncRead + AsyncWrite + Unpin>(
     port: &mut S,
     baud: u32,
+    timing: Option<LineTiming>,
     shared: &Shared,
 ) -> std::io::Result<()> {
     let mut slave = RtuSlave::new();
@@ -182,11 +241,16 @@ pub async fn serve_rtu_port<S: AsyncRead + AsyncWrite + Unpin>(
     let idle = silent_interval(baud).max(Duration::from_millis(10));
     let mut buf = [0u8; 512];
     let mut silent_until: Option<tokio::time::Instant> = None;
+    // Line timing: when the first byte of the frame being received was seen, and when the line is free
+    // (the last reply's last character off the wire); a request cannot have begun before either.
+    let mut first_byte: Option<std::time::Instant> = None;
+    let mut line_free_at = std::time::Instant::now();
     loop {
         let read = tokio::time::timeout(idle, port.read(&mut buf)).await;
         match read {
             Err(_) => {
                 slave.idle_gap();
+                first_byte = None;
             }
             Ok(Ok(0)) => return Err(std::io::ErrorKind::UnexpectedEof.into()),
             Ok(Err(error)) => return Err(error),
@@ -195,10 +259,22 @@ pub async fn serve_rtu_port<S: AsyncRead + AsyncWrite + Unpin>(
                     continue;
                 }
                 silent_until = None;
+                first_byte.get_or_insert_with(std::time::Instant::now);
                 slave.push(&buf[..n]);
             }
         }
         while let Some(frame) = slave.decode() {
+            // With line timing the request is received only when its characters have crossed the wire
+            // and t3.5 of silence has followed; the device then takes its turnaround.
+            let mut reply_start = None;
+            if let Some(timing) = &timing {
+                let began = first_byte.take().unwrap_or_else(std::time::Instant::now).max(line_free_at);
+                let received = began + timing.wire_time(request_frame_len(&frame.request)) + timing.t3_5();
+                line_free_at = received;
+                let start = received + timing.turnaround;
+                wait_until(start);
+                reply_start = Some(start);
+            }
             let at_s = shared.clock.now_s();
             let request = match frame.request {
                 Ok(request) => request,
@@ -231,7 +307,14 @@ pub async fn serve_rtu_port<S: AsyncRead + AsyncWrite + Unpin>(
                 slave.reset();
                 continue;
             }
-            send(port, Wire { bytes, fault, fault_ms, noise }).await?;
+            match (&timing, reply_start, fault) {
+                (Some(timing), Some(start), None) => {
+                    line_free_at = release_at_wire_rate(port, &bytes, start, timing).await?;
+                }
+                _ => {
+                    send(port, Wire { bytes, fault, fault_ms, noise }).await?;
+                }
+            }
             slave.reset();
         }
     }
@@ -248,7 +331,7 @@ pub async fn serve_rtu(line: RtuLine, first: tokio_serial::SerialStream, shared:
         };
         match port {
             Ok(mut port) => {
-                if let Err(error) = serve_rtu_port(&mut port, line.baud, &shared).await {
+                if let Err(error) = serve_rtu_port(&mut port, line.baud, line.timing, &shared).await {
                     eprintln!("rtu {}: {error}; reopening", line.path);
                 }
             }

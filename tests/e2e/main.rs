@@ -11,5 +11,6 @@ mod flood;
 mod peers_mbpoll;
 mod peers_pymodbus;
 mod protocol_vs_pymodbus;
+mod sim_line_timing;
 mod soak;
 mod util_selftest;
