@@ -44,6 +44,38 @@ pub const CV_UNITS: [DisplayUnit; 3] = [
 pub const K_UNITS: [DisplayUnit; 2] =
     [DisplayUnit { name: "m/s", per_stored: 1.0 }, DisplayUnit { name: "cm/s", per_stored: 100.0 }];
 
+impl DisplayUnit {
+    /// A stored (SI) value in this unit.
+    pub fn show(&self, stored: f64) -> f64 {
+        stored * self.per_stored
+    }
+
+    /// The unit for a CSV column name: "kpa", "in", "mm2_per_min", "m2_per_year", "cm_per_s", "per_tsf".
+    pub fn slug(&self) -> String {
+        match self.name.strip_prefix("1/") {
+            Some(per) => format!("per_{}", per.to_ascii_lowercase()),
+            None => self.name.to_ascii_lowercase().replace('²', "2").replace('/', "_per_"),
+        }
+    }
+}
+
+/// Every unit a lab may choose, by quantity: what `/healthz` offers the dashboard's switch.
+#[derive(Clone, Copy, Debug, Serialize)]
+pub struct DisplayOptions {
+    /// Stress units.
+    pub stress: &'static [DisplayUnit],
+    /// Length units.
+    pub length: &'static [DisplayUnit],
+    /// cv units.
+    pub cv: &'static [DisplayUnit],
+    /// k units.
+    pub k: &'static [DisplayUnit],
+}
+
+/// The lists above, for `/healthz`.
+pub const OPTIONS: DisplayOptions =
+    DisplayOptions { stress: &STRESS_UNITS, length: &LENGTH_UNITS, cv: &CV_UNITS, k: &K_UNITS };
+
 /// The units a lab shows its results in (`[display]` in the config).
 #[derive(Clone, Copy, Debug, PartialEq, Serialize)]
 pub struct DisplayUnits {
@@ -61,6 +93,35 @@ impl Default for DisplayUnits {
     /// SI: kPa, mm, mm²/min, m/s.
     fn default() -> Self {
         DisplayUnits { stress: STRESS_UNITS[0], length: LENGTH_UNITS[0], cv: CV_UNITS[0], k: K_UNITS[0] }
+    }
+}
+
+impl DisplayUnits {
+    /// True for the stored units themselves (kPa, mm, mm²/min, m/s).
+    pub fn is_si(&self) -> bool {
+        *self == DisplayUnits::default()
+    }
+
+    /// The unit of mv, a compressibility (1/stress), stored per kPa: m²/MN beside kPa (as the trade writes it,
+    /// `common practice`), else one over the stress unit ("1/tsf", "1/psf").
+    pub fn mv(&self) -> DisplayUnit {
+        match self.stress.name {
+            "tsf" => DisplayUnit { name: "1/tsf", per_stored: KPA_PER_TSF },
+            "psf" => DisplayUnit { name: "1/psf", per_stored: PA_PER_PSF / 1000.0 },
+            _ => DisplayUnit { name: "m²/MN", per_stored: 1000.0 },
+        }
+    }
+
+    /// One line for a reader: "stress in tsf, lengths in in, cv in ft²/day, k in cm/s, mv in 1/tsf".
+    pub fn sentence(&self) -> String {
+        format!(
+            "stress in {}, lengths in {}, cv in {}, k in {}, mv in {}",
+            self.stress.name,
+            self.length.name,
+            self.cv.name,
+            self.k.name,
+            self.mv().name
+        )
     }
 }
 
@@ -95,6 +156,22 @@ mod tests {
         assert!(close(CV_UNITS[1].per_stored, 0.525_96, 1e-6));
         assert!(close(CV_UNITS[2].per_stored, 0.015_500_03, 1e-6));
         assert_eq!(K_UNITS[1].per_stored, 100.0);
+    }
+
+    #[test]
+    fn mv_goes_with_the_stress_unit_and_slugs_name_columns() {
+        // mv per tsf = mv per kPa × 95.760 52 kPa/tsf; per psf = mv per kPa × 0.047 880 26 (NIST SP 811 B.9).
+        let tsf = DisplayUnits { stress: STRESS_UNITS[1], ..DisplayUnits::default() };
+        assert!(close(tsf.mv().show(1e-3), 0.095_760_52, 1e-9));
+        let psf = DisplayUnits { stress: STRESS_UNITS[2], ..DisplayUnits::default() };
+        assert!(close(psf.mv().show(1e-3), 4.788_026e-5, 1e-9));
+        // 1e-3 per kPa is 1 m²/MN (1 MN/m² = 1000 kPa).
+        assert!(close(DisplayUnits::default().mv().show(1e-3), 1.0, 1e-12));
+        assert_eq!(CV_UNITS[1].slug(), "m2_per_year");
+        assert_eq!(K_UNITS[1].slug(), "cm_per_s");
+        assert_eq!(STRESS_UNITS[0].slug(), "kpa");
+        assert_eq!(tsf.mv().slug(), "per_tsf");
+        assert!(DisplayUnits::default().is_si() && !tsf.is_si());
     }
 
     #[test]

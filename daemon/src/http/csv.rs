@@ -14,6 +14,7 @@ pub(crate) struct Csv {
 }
 
 /// One cell.
+#[derive(Clone, Copy)]
 pub(crate) enum Cell<'a> {
     /// Text, quoted when needed.
     Text(&'a str),

@@ -166,6 +166,8 @@ async fn healthz(State(state): State<AppState>) -> impl IntoResponse {
         "frames": state.live.snapshot().len(),
         // The lab's display units: value shown = API value × per_stored.
         "display": state.display,
+        // Every unit the dashboard's switch offers, with its factor.
+        "display_options": oedolog_core::units::OPTIONS,
     }))
 }
 

@@ -156,6 +156,30 @@ pub struct IndexLine {
     pub index: f64,
 }
 
+impl IndexLine {
+    /// The points (indices into [`CompressionReduction::points`]) the line was fitted to.
+    pub fn points(&self) -> &[usize] {
+        &self.points
+    }
+
+    /// The line, e against log10 σ′ (σ′ in kPa).
+    pub fn line(&self) -> Line {
+        self.line
+    }
+}
+
+impl CasagrandePreconsolidation {
+    /// The point of greatest curvature, (σ′ kPa, e).
+    pub fn max_curvature(&self) -> (f64, f64) {
+        (self.max_curvature_stress_kpa, self.max_curvature_e)
+    }
+
+    /// The tangent, the bisector and the virgin line, e against log10 σ′ (σ′ in kPa).
+    pub fn lines(&self) -> [Line; 3] {
+        [self.tangent, self.bisector, self.virgin]
+    }
+}
+
 /// Casagrande's σ′p construction, with every line drawn: the horizontal, the tangent and the bisector pass
 /// through (max_curvature_stress_kpa, max_curvature_e); σ′p lies on the virgin line and on the bisector.
 #[derive(Debug, Clone, PartialEq, Serialize)]

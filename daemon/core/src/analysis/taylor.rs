@@ -104,7 +104,19 @@ pub struct TaylorResult {
     pub(crate) flags: Vec<Flag>,
 }
 
+impl StraightFit {
+    /// Time of the last node in the straight part, min.
+    pub fn t_end_min(&self) -> f64 {
+        self.t_end_min
+    }
+}
+
 impl TaylorResult {
+    /// The factor of the construction line's √t over the straight part's (1.15 for U = 90 %).
+    pub fn factor(&self) -> f64 {
+        self.factor
+    }
+
     pub(crate) fn empty(factor: f64) -> Self {
         TaylorResult {
             factor,
