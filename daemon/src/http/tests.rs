@@ -518,13 +518,21 @@ async fn the_report_page_has_the_tables_the_plot_and_the_cautions() {
     ] {
         assert!(html.contains(needle), "report lacks {needle}");
     }
-    // The one load step's time curve, with the log-time construction's marks on it.
-    assert_eq!(html.matches("<svg class=\"step-plot\"").count(), 1, "one small time curve per load step");
-    let plot = &html[html.find("<svg class=\"step-plot\"").unwrap()..];
-    let plot = &plot[..plot.find("</svg>").unwrap()];
-    for mark in ["Step 1 · 50.0 kPa", ">d0<", ">d100<", ">t50<", "<polyline"] {
-        assert!(plot.contains(mark), "the step's plot lacks {mark}");
+    // The one load step's two time curves, each with its construction's marks on it.
+    assert_eq!(html.matches("<svg class=\"step-plot\"").count(), 2, "log t and √t for the one load step");
+    let figure = &html[html.find("<figure class=\"step\"").unwrap()..];
+    let figure = &figure[..figure.find("</figure>").unwrap()];
+    assert!(figure.contains("Load step 1 · 50 kPa"), "{figure}");
+    let (log_t, root_t) = figure.split_at(figure.find("</svg>").unwrap());
+    for mark in [">d0<", ">d100<", ">t50<", ">t100<", "<polyline"] {
+        assert!(log_t.contains(mark), "the log-time plot lacks {mark}");
     }
+    for mark in [">d0<", ">d90<", ">t90<", ">×1.15<", "stroke-dasharray=\"5 3\""] {
+        assert!(root_t.contains(mark), "the √t plot lacks {mark}");
+    }
+    assert!(html.contains("Method B (ASTM D2435)"), "the report names the method");
+    assert!(html.contains("Checked by"), "the report has room for the checker");
+    assert!(html.contains("Units: stress in kPa, lengths in mm"), "the report says its units");
     assert!(!html.contains("Simulated test"), "a real clock's report says nothing of simulation");
     assert_eq!(call(&b.state, "GET", "/tests/999/report", None).await.0, StatusCode::NOT_FOUND);
 }
@@ -1358,4 +1366,131 @@ async fn healthz_gives_the_lab_s_display_units_with_their_factors() {
     assert_eq!(status, StatusCode::OK);
     assert_eq!(health["display"]["stress"], json!({"name": "kPa", "per_stored": 1.0}), "{health}");
     assert_eq!(health["display"]["cv"]["name"], "mm²/min");
+}
+
+/// A clock that says it runs 60× faster than real time (the demo's kind), over the bench's manual clock.
+struct Fast(Arc<ManualClock>);
+
+impl Clock for Fast {
+    fn now_us(&self) -> i64 {
+        self.0.now_us()
+    }
+
+    fn speed(&self) -> f64 {
+        60.0
+    }
+}
+
+/// tsf, in, ft²/day, cm/s: every quantity away from SI.
+fn us_units() -> oedolog_core::units::DisplayUnits {
+    use oedolog_core::units::*;
+    DisplayUnits { stress: STRESS_UNITS[1], length: LENGTH_UNITS[1], cv: CV_UNITS[2], k: K_UNITS[1] }
+}
+
+#[tokio::test]
+async fn csv_exports_add_columns_in_the_lab_s_units_and_say_when_time_was_simulated() {
+    let mut b = bench(false);
+    let test_id = test_with_curve(&b).await;
+    b.state.display = us_units();
+    b.state.clock = Arc::new(Fast(b.clock.clone()));
+    let csv =
+        |state: AppState, path: String| async move { send(&state, request("GET", &path, None, Who::Nobody)).await.2 };
+    let rows = |text: &str| -> Vec<Vec<String>> {
+        text.split("\r\n").filter(|l| !l.is_empty()).map(|l| l.split(',').map(String::from).collect()).collect()
+    };
+    let column = |rows: &[Vec<String>], name: &str| {
+        rows[0].iter().position(|h| h == name).unwrap_or_else(|| panic!("no {name} in {:?}", rows[0]))
+    };
+
+    let readings = rows(&csv(b.state.clone(), format!("/api/tests/{test_id}/increments/1/readings.csv")).await);
+    // The pinned SI columns first, as before; then the lab's and the clock's.
+    assert_eq!(rows_head(&readings), "time_min,displacement_mm,load_kn,at_utc,displacement_in,simulated_clock_speed");
+    let (mm, inch) = (column(&readings, "displacement_mm"), column(&readings, "displacement_in"));
+    for row in &readings[1..] {
+        let (mm, inch): (f64, f64) = (row[mm].parse().unwrap(), row[inch].parse().unwrap());
+        // 1 in = 25.4 mm exactly; both cells carry seven significant figures.
+        assert!((inch * 25.4 - mm).abs() <= 1e-6 * mm.abs().max(1.0), "{mm} mm vs {inch} in");
+        assert_eq!(row.last().map(String::as_str), Some("60"));
+    }
+
+    let steps = rows(&csv(b.state.clone(), format!("/api/tests/{test_id}/increments.csv")).await);
+    for name in ["stress_tsf", "from_tsf", "settlement_in", "cv_taylor_ft2_per_day", "cv_casagrande_ft2_per_day"] {
+        column(&steps, name);
+    }
+    let stress_tsf: f64 = steps[1][column(&steps, "stress_tsf")].parse().unwrap();
+    // 50 kPa / 95.760 52 kPa per tsf (NIST SP 811 B.9: 1 ton-force (2000 lbf)/ft² = 9.576 052 E+04 Pa).
+    assert!((stress_tsf - 0.522_136_1).abs() < 1e-6, "{stress_tsf}");
+    let (si, us) = (column(&steps, "cv_taylor_mm2_per_min"), column(&steps, "cv_taylor_ft2_per_day"));
+    let (si, us): (f64, f64) = (steps[1][si].parse().unwrap(), steps[1][us].parse().unwrap());
+    // 1 mm²/min = 1440e-6 m²/day / 0.092 903 04 m²/ft² = 0.015 500 03 ft²/day (computed).
+    assert!((us / si - 0.015_500_03).abs() < 1e-6, "{si} mm²/min vs {us} ft²/day");
+    assert_eq!(steps[0].last().map(String::as_str), Some("simulated_clock_speed"));
+
+    let e_table = rows(&csv(b.state.clone(), format!("/api/tests/{test_id}/compression.csv")).await);
+    for name in ["stress_tsf", "mv_per_tsf", "k_cm_per_s"] {
+        column(&e_table, name);
+    }
+    let (mv_si, mv_us) = (column(&e_table, "mv_per_kpa"), column(&e_table, "mv_per_tsf"));
+    if let (Ok(si), Ok(us)) = (e_table[1][mv_si].parse::<f64>(), e_table[1][mv_us].parse::<f64>()) {
+        // mv per tsf = mv per kPa × 95.760 52 kPa/tsf.
+        assert!((us / si - 95.760_52).abs() < 1e-4, "{si} vs {us}");
+    }
+
+    // A lab in SI on a real clock gets the pinned columns alone (the test above, csv_exports_carry…).
+    b.state.display = Default::default();
+    b.state.clock = b.clock.clone();
+    let plain = rows(&csv(b.state.clone(), format!("/api/tests/{test_id}/increments/1/readings.csv")).await);
+    assert_eq!(rows_head(&plain), "time_min,displacement_mm,load_kn,at_utc");
+}
+
+fn rows_head(rows: &[Vec<String>]) -> String {
+    rows[0].join(",")
+}
+
+#[tokio::test]
+async fn the_report_is_in_the_lab_s_units_and_marks_simulated_dates() {
+    let mut b = bench(false);
+    let test_id = test_with_curve(&b).await;
+    b.state.display = us_units();
+    b.state.clock = Arc::new(Fast(b.clock.clone()));
+    let (status, _, html) =
+        send(&b.state, request("GET", &format!("/tests/{test_id}/report"), None, Who::Nobody)).await;
+    assert_eq!(status, StatusCode::OK);
+    for needle in [
+        "Units: stress in tsf, lengths in in, cv in ft²/day, k in cm/s, mv in 1/tsf",
+        "NIST SP 811",
+        // 50 kPa = 0.5221 tsf; H0 20 mm = 0.7874 in (the bench's specimen).
+        "Load step 1 · 0.5221 tsf",
+        "<th>σ′ tsf</th>",
+        "cv(√t) ft²/day",
+        "mv 1/tsf",
+        "k cm/s",
+        "gauge in, down = compression",
+        "Simulated test.",
+        "(simulated)",
+    ] {
+        assert!(html.contains(needle), "the report lacks {needle}");
+    }
+    assert!(!html.contains(" kPa<"), "a kPa value left in a tsf report");
+}
+
+#[tokio::test]
+async fn healthz_offers_every_unit_of_the_switch() {
+    let b = bench(false);
+    let (_, health) = call(&b.state, "GET", "/healthz", None).await;
+    let names = |q: &str| -> Vec<String> {
+        health["display_options"][q]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|u| u["name"].as_str().unwrap().to_string())
+            .collect()
+    };
+    assert_eq!(names("stress"), ["kPa", "tsf", "psf"]);
+    assert_eq!(names("length"), ["mm", "in"]);
+    assert_eq!(names("cv"), ["mm²/min", "m²/year", "ft²/day"]);
+    assert_eq!(names("k"), ["m/s", "cm/s"]);
+    // NIST SP 811 B.9: 1 psf = 47.880 26 Pa, so 1 kPa = 20.885 43 psf.
+    let psf = health["display_options"]["stress"][2]["per_stored"].as_f64().unwrap();
+    assert!((psf - 20.885_43).abs() < 1e-4, "{psf}");
 }
