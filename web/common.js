@@ -8,7 +8,7 @@
   O.charts = O.charts || {};
   O.health = null;
   O.link = { state: "connecting", since: Date.now(), lastSnapshotAt: 0 };
-  const listeners = { frames: [], journal: [], link: [] };
+  const listeners = { frames: [], journal: [], link: [], units: [] };
   O.on = (kind, fn) => listeners[kind].push(fn);
   const emit = (kind, value) => listeners[kind].forEach((fn) => { try { fn(value); } catch (e) { console.error(e); } });
 
@@ -70,6 +70,70 @@
       return d.toISOString().replace("T", " ").slice(0, 16) + " UTC";
     },
   };
+
+  // ---- units --------------------------------------------------------------------------------------
+  // The API is SI (kPa, mm, mm²/min, m/s). The lab's [display] choice comes with /healthz, with every unit
+  // on offer and its factor (value shown = API value × per_stored); this browser may choose its own,
+  // kept in localStorage. Pages draw every value through O.show and re-draw on the "units" event.
+  const SI = { stress: { name: "kPa", per_stored: 1 }, length: { name: "mm", per_stored: 1 }, cv: { name: "mm²/min", per_stored: 1 }, k: { name: "m/s", per_stored: 1 } };
+  const QUANTITIES = { stress: "Stress", length: "Lengths", cv: "cv", k: "k" };
+  const UNITS_KEY = "oedolog.units";
+  O.units = Object.assign({}, SI);
+  const chosenUnits = () => { try { return JSON.parse(localStorage.getItem(UNITS_KEY) || "{}") || {}; } catch (e) { return {}; } };
+  // mv is a compressibility, 1/stress: m²/MN beside kPa, else one over the stress unit.
+  const mvUnit = (stress) => (stress.name === "kPa" ? { name: "m²/MN", per_stored: 1000 } : { name: "1/" + stress.name, per_stored: 1 / stress.per_stored });
+  function applyUnits() {
+    const lab = (O.health && O.health.display) || SI;
+    const offered = (O.health && O.health.display_options) || {};
+    const mine = chosenUnits();
+    const next = {};
+    for (const q of Object.keys(QUANTITIES)) next[q] = ((offered[q] || []).find((u) => u.name === mine[q])) || lab[q] || SI[q];
+    next.mv = mvUnit(next.stress);
+    const changed = JSON.stringify(next) !== JSON.stringify(O.units);
+    O.units = next;
+    document.body.dataset.units = [next.stress.name, next.length.name, next.cv.name, next.k.name].join(" ");
+    renderUnitsPick();
+    if (changed) emit("units", next);
+  }
+  O.units.mv = mvUnit(SI.stress);
+  // An API (SI) value of quantity q (stress, length, cv, k, mv) in the chosen unit; null stays null.
+  O.show = (q, v) => (v === null || v === undefined || !isFinite(v) ? null : v * O.units[q].per_stored);
+  O.unitName = (q) => O.units[q].name;
+  // A displayed value typed into a form, back to the API's unit.
+  O.toStored = (q, v) => (v === null || v === undefined || !isFinite(v) ? v : v / O.units[q].per_stored);
+  // "104.4 tsf": a value in the chosen unit to `digits` significant figures, with its unit.
+  O.qty = (q, v, digits) => { const x = O.show(q, v); return x === null ? "—" : O.fmt.sig(x, digits || 4) + " " + O.units[q].name; };
+  // A length to the gauge's usual resolution: 0.001 mm, 0.0001 in (common practice for dial and digital gauges).
+  O.len = (v) => { const x = O.show("length", v); return x === null ? "—" : x.toFixed(O.units.length.name === "in" ? 4 : 3) + " " + O.units.length.name; };
+  O.setUnit = function (q, name) {
+    const mine = chosenUnits();
+    if (name) mine[q] = name; else delete mine[q];
+    try { localStorage.setItem(UNITS_KEY, JSON.stringify(mine)); } catch (e) { /* private mode: this page only */ }
+    applyUnits();
+  };
+
+  // The switch in the header: one choice per quantity, "lab" meaning the lab's [display] setting.
+  function renderUnitsPick() {
+    const host = document.getElementById("units-pick");
+    const offered = O.health && O.health.display_options;
+    if (!host || !offered) return;
+    const key = JSON.stringify([O.units, chosenUnits()]);
+    if (host.dataset.key === key) return;
+    host.dataset.key = key;
+    const lab = O.health.display || SI;
+    const mine = chosenUnits();
+    const selects = Object.entries(QUANTITIES).map(([q, label]) => {
+      const id = "units-" + q;
+      const select = O.el("select", { id, "data-quantity": q, onchange: (ev) => O.setUnit(q, ev.target.value) },
+        O.el("option", { value: "" }, "lab's (" + lab[q].name + ")"),
+        ...(offered[q] || []).map((u) => O.el("option", { value: u.name, selected: mine[q] === u.name }, u.name)));
+      return O.el("label", { for: id }, label, select);
+    });
+    const wasOpen = !!host.querySelector("details[open]");
+    host.replaceChildren(O.el("details", wasOpen ? { open: true } : {},
+      O.el("summary", { title: "Units shown in this browser" }, O.units.stress.name + " · " + O.units.length.name),
+      O.el("div", { class: "units-form" }, ...selects, O.el("p", { class: "muted" }, "For this browser only. Stored values and the API stay SI."))));
+  }
 
   // Display words of our own for the daemon's states; each has a glyph so colour is never the only cue.
   O.STATES = {
@@ -189,6 +253,7 @@
       O.health.fetchedAt = Date.now();
       const sim = r.data.simulated_time;
       document.body.dataset.simulated = sim ? "true" : "false";
+      applyUnits();
       banner("sim-banner", "sim", sim ? "Demo: simulated time, " + r.data.clock_speed + "× faster than real time; the frames are emulated." : null);
     }
     return r.ok;

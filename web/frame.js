@@ -95,13 +95,15 @@
   function makeChart(key, hostId, opts, data) {
     const host = document.getElementById(hostId);
     const old = O.charts[key];
-    if (old && old.__distr === opts.scales.x.distr) { old.setData(data); return old; }
+    // New data on the same axes is a setData; another scale or unit (the labels say which) is a new chart.
+    const shape = opts.scales.x.distr + "|" + opts.axes.map((a) => a.label).join("|");
+    if (old && old.__shape === shape) { old.setData(data); return old; }
     if (old) old.destroy();
     host.replaceChildren();
     const size = chartSize(host);
     // The key under each chart names the lines; uPlot's own legend row only repeated it.
     const u = new uPlot(Object.assign({ legend: { show: false } }, opts, size), data, host);
-    u.__distr = opts.scales.x.distr;
+    u.__shape = shape;
     O.charts[key] = u;
     return u;
   }
@@ -109,7 +111,11 @@
   const baseAxis = { stroke: "#56646c", grid: { stroke: "#e1e5e0", width: 1 }, ticks: { stroke: "#c9cfc8", width: 1 } };
 
   function timeCharts(cols, red) {
-    const nodes = (red && red.nodes) || [];
+    O.lastStep = { cols, red };
+    // Everything is drawn in the chosen length unit: L × the API's mm.
+    const L = O.units.length.per_stored, lu = O.unitName("length"), ld = lu === "in" ? 4 : 3;
+    cols = { t: cols.t, d: cols.d.map((v) => (v === null || v === undefined ? v : v * L)) };
+    const nodes = ((red && red.nodes) || []).map((n) => ({ t_min: n.t_min, d_mm: n.d_mm * L }));
     const tay = (red && red.taylor) || {};
     const cas = (red && red.casagrande) || {};
     // Log time needs t > 0; √t takes t ≥ 0. Readings and the binned curve share the x column via join.
@@ -122,30 +128,30 @@
     const rs = sq([...zero(cols.t, cols.d), ...rd]), ns = sq([...zero(nodes.map((n) => n.t_min), nodes.map((n) => n.d_mm)), ...nd]);
     const sqrtData = uPlot.join([[rs.map((p) => p[0]), rs.map((p) => p[1])], [ns.map((p) => p[0]), ns.map((p) => p[1])]]);
 
-    const L = [];
-    if (cas.inflection) L.push({ fn: (t) => cas.inflection.line.intercept + cas.inflection.line.slope * Math.log10(t), color: FIT, dash: [6, 4], label: "tangent", labelAt: cas.inflection.t_min });
-    if (cas.secondary) L.push({ fn: (t) => cas.secondary.line.intercept + cas.secondary.line.slope * Math.log10(t), color: FIT, dash: [6, 4], label: "secondary", from: Math.max(cas.secondary.t_start_min / 4, 1e-3) });
-    if (cas.d0_mm != null) L.push({ y: cas.d0_mm, color: MARK, dash: [2, 3], label: "d0" });
-    if (cas.d50_mm != null) L.push({ y: cas.d50_mm, color: MARK, dash: [2, 3], label: "d50" });
-    if (cas.d100_mm != null) L.push({ y: cas.d100_mm, color: MARK, dash: [2, 3], label: "d100" });
-    if (cas.t50_min) L.push({ x: cas.t50_min, color: MARK, dash: [2, 3], label: "t50" });
-    if (cas.t100_min) L.push({ x: cas.t100_min, color: MARK, dash: [2, 3], label: "t100" });
+    const LC = [];
+    if (cas.inflection) LC.push({ fn: (t) => L * (cas.inflection.line.intercept + cas.inflection.line.slope * Math.log10(t)), color: FIT, dash: [6, 4], label: "tangent", labelAt: cas.inflection.t_min });
+    if (cas.secondary) LC.push({ fn: (t) => L * (cas.secondary.line.intercept + cas.secondary.line.slope * Math.log10(t)), color: FIT, dash: [6, 4], label: "secondary", from: Math.max(cas.secondary.t_start_min / 4, 1e-3) });
+    if (cas.d0_mm != null) LC.push({ y: L * cas.d0_mm, color: MARK, dash: [2, 3], label: "d0" });
+    if (cas.d50_mm != null) LC.push({ y: L * cas.d50_mm, color: MARK, dash: [2, 3], label: "d50" });
+    if (cas.d100_mm != null) LC.push({ y: L * cas.d100_mm, color: MARK, dash: [2, 3], label: "d100" });
+    if (cas.t50_min) LC.push({ x: cas.t50_min, color: MARK, dash: [2, 3], label: "t50" });
+    if (cas.t100_min) LC.push({ x: cas.t100_min, color: MARK, dash: [2, 3], label: "t100" });
     const S = [];
-    if (tay.straight) S.push({ fn: (r) => tay.straight.line.intercept + tay.straight.line.slope * r, color: FIT, dash: [6, 4], label: "straight part", labelAt: Math.sqrt(tay.straight.t_end_min) * 1.6, from: 0 });
-    if (tay.construction_line) S.push({ fn: (r) => tay.construction_line.intercept + tay.construction_line.slope * r, color: FIT, dash: [2, 4], label: "×" + fmt.num(tay.factor, 2), from: 0 });
-    if (tay.d0_mm != null) S.push({ y: tay.d0_mm, color: MARK, dash: [2, 3], label: "d0" });
-    if (tay.d50_mm != null) S.push({ y: tay.d50_mm, color: MARK, dash: [2, 3], label: "d50" });
-    if (tay.d90_mm != null) S.push({ y: tay.d90_mm, color: MARK, dash: [2, 3], label: "d90" });
-    if (tay.d100_mm != null) S.push({ y: tay.d100_mm, color: MARK, dash: [2, 3], label: "d100" });
+    if (tay.straight) S.push({ fn: (r) => L * (tay.straight.line.intercept + tay.straight.line.slope * r), color: FIT, dash: [6, 4], label: "straight part", labelAt: Math.sqrt(tay.straight.t_end_min) * 1.6, from: 0 });
+    if (tay.construction_line) S.push({ fn: (r) => L * (tay.construction_line.intercept + tay.construction_line.slope * r), color: FIT, dash: [2, 4], label: "×" + fmt.num(tay.factor, 2), from: 0 });
+    if (tay.d0_mm != null) S.push({ y: L * tay.d0_mm, color: MARK, dash: [2, 3], label: "d0" });
+    if (tay.d50_mm != null) S.push({ y: L * tay.d50_mm, color: MARK, dash: [2, 3], label: "d50" });
+    if (tay.d90_mm != null) S.push({ y: L * tay.d90_mm, color: MARK, dash: [2, 3], label: "d90" });
+    if (tay.d100_mm != null) S.push({ y: L * tay.d100_mm, color: MARK, dash: [2, 3], label: "d100" });
     if (tay.t90_min) S.push({ x: Math.sqrt(tay.t90_min), color: MARK, dash: [2, 3], label: "t90" });
-    O.constructions.logt = L; O.constructions.sqrt = S;
+    O.constructions.logt = LC; O.constructions.sqrt = S;
 
     const series = (xLabel, xValue) => [
       { label: xLabel, value: xValue },
-      { label: "reading mm", stroke: INK, width: 2, spanGaps: true, points: { show: false }, value: (u, v) => fmt.num(v, 3) },
-      { label: "binned mm", stroke: NODE, width: 0, paths: () => null, points: { show: true, size: 5, stroke: NODE, fill: "#fff" }, value: (u, v) => fmt.num(v, 3) },
+      { label: "reading " + lu, stroke: INK, width: 2, spanGaps: true, points: { show: false }, value: (u, v) => fmt.num(v, ld) },
+      { label: "binned " + lu, stroke: NODE, width: 0, paths: () => null, points: { show: true, size: 5, stroke: NODE, fill: "#fff" }, value: (u, v) => fmt.num(v, ld) },
     ];
-    const yAxis = Object.assign({}, baseAxis, { label: "gauge reading, mm (compression down)", size: 62, values: (u, vals) => vals.map((v) => v.toFixed(3)) });
+    const yAxis = Object.assign({}, baseAxis, { label: "gauge reading, " + lu, size: 62, values: (u, vals) => vals.map((v) => v.toFixed(ld)) });
     makeChart("logt", "chart-logt", {
       scales: { x: { time: false, distr: 3 }, y: { dir: -1 } },
       axes: [Object.assign({}, baseAxis, { label: "time since loading, min (log scale)" }), yAxis],
@@ -177,12 +183,12 @@
     const bits = [
       "t50 " + fmt.sig(cas.t50_min ?? tay.t50_min, 3) + " min",
       "t90 " + fmt.sig(tay.t90_min, 3) + " min",
-      "d100 " + fmt.num(cas.d100_mm ?? tay.d100_mm, 3) + " mm",
-      "cv(√t) " + fmt.sig(cvT && cvT.cv_mm2_per_min, 3) + " mm²/min",
-      "cv(log t) " + fmt.sig(cvC && cvC.cv_mm2_per_min, 3) + " mm²/min",
+      "d100 " + O.len(cas.d100_mm ?? tay.d100_mm),
+      "cv(√t) " + O.qty("cv", cvT && cvT.cv_mm2_per_min, 3),
+      "cv(log t) " + O.qty("cv", cvC && cvC.cv_mm2_per_min, 3),
     ];
     const choice = red && red.cv_choice;
-    if (choice) bits.push(choice.cv_mm2_per_min != null ? "proposed " + fmt.sig(choice.cv_mm2_per_min, 3) + " mm²/min — " + choice.reason : "no cv proposed — " + choice.reason);
+    if (choice) bits.push(choice.cv_mm2_per_min != null ? "proposed " + O.qty("cv", choice.cv_mm2_per_min, 3) + " — " + choice.reason : "no cv proposed — " + choice.reason);
     const flags = (red && red.flags) || [];
     document.getElementById("step-values").textContent = bits.join(" · ") + (flags.length ? " — " + flags.map((f) => f.message || f.code).join("; ") : "");
   }
@@ -221,7 +227,8 @@
     const c = compression || {};
     const pts = c.points || [];
     const linear = document.getElementById("comp-linear").checked;
-    const x = pts.map((p) => p.stress_kpa), y = pts.map((p) => p.e);
+    const SF = O.units.stress.per_stored, su = O.unitName("stress");
+    const x = pts.map((p) => p.stress_kpa * SF), y = pts.map((p) => p.e);
     const order = x.map((_, i) => i).filter((i) => x[i] > 0 || linear);
     // uPlot wants ascending x; unloading steps repeat stresses. The points are a series in stress order
     // (markers only); the curve itself is drawn as a path in the order of the test — loading, unloading,
@@ -229,7 +236,8 @@
     const sorted = order.slice().sort((a, b) => x[a] - x[b] || a - b);
     const data = [sorted.map((i) => x[i]), sorted.map((i) => y[i])];
     const items = [{ path: order.map((i) => [x[i], y[i]]), color: INK }];
-    const logLine = (line) => (s) => line.intercept + line.slope * Math.log10(s);
+    // The lines are fitted in log10 of kPa; the chart's x is in the chosen unit.
+    const logLine = (line) => (s) => line.intercept + line.slope * Math.log10(s / SF);
     if (c.cc) items.push({ fn: logLine(c.cc.line), color: FIT, dash: [6, 4], label: "Cc " + fmt.num(c.cc.index, 3) });
     if (c.cr) items.push({ fn: logLine(c.cr.line), color: "#65568a", dash: [6, 4], label: "Cr " + fmt.num(c.cr.index, 3) });
     const sp = c.sigma_p_casagrande;
@@ -237,14 +245,14 @@
       // Casagrande's construction drawn through the points it uses: the horizontal and the tangent pass
       // through the point of greatest curvature on both sides, the bisector runs from it to where it
       // meets the virgin line, and that meeting point is σ′p.
-      const m = sp.max_curvature_stress_kpa, p = sp.sigma_p_kpa;
+      const m = sp.max_curvature_stress_kpa * SF, p = sp.sigma_p_kpa * SF;
       const lo = Math.min(m, p) / 2.5, hi = Math.max(m, p) * 2.5;
       items.push({ fn: () => sp.max_curvature_e, from: lo, to: hi, color: MARK, dash: [2, 3] });
       items.push({ fn: logLine(sp.tangent), from: m / 2.5, to: m * 2.5, color: MARK, dash: [2, 3] });
       items.push({ fn: logLine(sp.bisector), from: Math.min(m, p) / 1.2, to: Math.max(m, p) * 1.2, color: MARK, dash: [2, 3] });
       items.push({ dot: [m, sp.max_curvature_e], color: MARK });
       items.push({ dot: [p, logLine(sp.virgin)(p)], color: MARK });
-      items.push({ x: p, color: MARK, dash: [1, 0], label: "σ′p " + fmt.sig(p, 3) + " kPa" });
+      items.push({ x: p, color: MARK, dash: [1, 0], label: "σ′p " + fmt.sig(p, 3) + " " + su });
     }
     O.constructions.compression = items;
     // A few points (or one) would get uPlot's wide default range; pad around the data instead.
@@ -254,16 +262,16 @@
         x: { time: false, distr: linear ? 1 : 3, range: linear ? (u, lo, hi) => [0, (hi || 100) * 1.1] : (u, lo, hi) => [Math.pow(10, Math.floor(Math.log10(lo || 1) - 0.05)), Math.pow(10, Math.ceil(Math.log10(hi || 100) + 0.05))] },
         y: { range: (u, lo, hi) => (lo === null || lo === undefined ? [0, 1] : pad(lo, hi, 0.02)) },
       },
-      axes: [Object.assign({}, baseAxis, { label: "effective stress σ′, kPa" + (linear ? "" : " (log scale)") }), Object.assign({}, baseAxis, { label: "void ratio e", size: 56, values: (u, v) => v.map((a) => a.toFixed(3)) })],
-      series: [{ label: "σ′ kPa" }, { label: "e", stroke: INK, width: 0, paths: () => null, points: { show: true, size: 7, fill: "#fff" }, value: (u, v) => fmt.num(v, 4) }],
+      axes: [Object.assign({}, baseAxis, { label: "effective stress σ′, " + su + (linear ? "" : " (log scale)") }), Object.assign({}, baseAxis, { label: "void ratio e", size: 56, values: (u, v) => v.map((a) => a.toFixed(3)) })],
+      series: [{ label: "σ′ " + su }, { label: "e", stroke: INK, width: 0, paths: () => null, points: { show: true, size: 7, fill: "#fff" }, value: (u, v) => fmt.num(v, 4) }],
       hooks: { draw: [overlayHook(() => O.constructions.compression)] },
     }, data);
     const v = [];
     if (c.e0 != null) v.push("e0 " + fmt.num(c.e0, 3));
     if (c.cc) v.push("Cc " + fmt.num(c.cc.index, 3));
     if (c.cr) v.push("Cr " + fmt.num(c.cr.index, 3));
-    if (sp) v.push("σ′p (Casagrande) " + fmt.sig(sp.sigma_p_kpa, 3) + " kPa");
-    if (c.sigma_p_work) v.push("σ′p (work) " + fmt.sig(c.sigma_p_work.sigma_p_kpa, 3) + " kPa");
+    if (sp) v.push("σ′p (Casagrande) " + O.qty("stress", sp.sigma_p_kpa, 3));
+    if (c.sigma_p_work) v.push("σ′p (work) " + O.qty("stress", c.sigma_p_work.sigma_p_kpa, 3));
     if (c.ocr_casagrande != null) v.push("OCR " + fmt.num(c.ocr_casagrande, 2));
     const flags = c.flags || [];
     document.getElementById("comp-values").textContent = (v.length ? v.join(" · ") : pts.length ? "" : "No finished load step yet.") + (flags.length ? " — " + flags.map((f) => f.message || f.code).join("; ") : "");
@@ -285,7 +293,14 @@
     renderTable();
   }
 
+  // A table cell of quantity q: the value in the chosen unit, and the API's SI value beside it for checks.
+  const qcell = (q, si, digits, attrs) => el("td", Object.assign({ "data-quantity": q, "data-si": si ?? "" }, attrs || {}), fmt.sig(O.show(q, si), digits));
   function renderTable() {
+    const u = O.units;
+    document.querySelector("#inc-table thead").replaceChildren(el("tr", {},
+      el("th", {}, "Step"), el("th", {}, "σ′ " + u.stress.name), el("th", {}, "e"),
+      el("th", {}, "cv(√t)", el("br"), u.cv.name), el("th", {}, "cv(log t)", el("br"), u.cv.name), el("th", {}, "Cα(ε)"),
+      el("th", {}, "mv", el("br"), u.mv.name), el("th", {}, "k", el("br"), u.k.name), el("th", { style: "text-align:left" }, "Remarks")));
     const body = document.querySelector("#inc-table tbody");
     const pts = ((compression && compression.points) || []).slice();
     const rows = [];
@@ -295,17 +310,17 @@
       const p = k >= 0 ? pts.splice(0, k + 1)[k] : {};
       const words = [...(s.flag_messages || s.flags || []), ...(p.flags || []).map((f) => f.message || f.code || f)];
       const cvCell = (method, value) => s.cv_method === method
-        ? el("td", { class: "proposed", title: "Proposed: " + (s.cv_reason || "") }, fmt.sig(value, 3))
-        : el("td", {}, fmt.sig(value, 3));
+        ? qcell("cv", value, 3, { class: "proposed", title: "Proposed: " + (s.cv_reason || "") })
+        : qcell("cv", value, 3);
       if (s.void) words.unshift("void: " + s.void.reason + (s.void.by ? " (" + s.void.by + ")" : "") + ", left out of the reduction");
       rows.push(el("tr", { "data-seq": s.seq, "data-cv-method": s.cv_method || "", class: s.void ? "void" : "" },
-        el("td", {}, s.seq), el("td", {}, fmt.sig(s.stress_kpa, 4)),
+        el("td", {}, s.seq), qcell("stress", s.stress_kpa, 4),
         el("td", {}, fmt.num(p.e, 4)),
         cvCell("taylor", s.cv_taylor_mm2_per_min),
         cvCell("casagrande", s.cv_casagrande_mm2_per_min),
         el("td", {}, fmt.sig(s.c_alpha_strain, 3)),
-        el("td", {}, fmt.sig(p.mv_per_kpa != null ? p.mv_per_kpa * 1000 : null, 3)),
-        el("td", {}, fmt.sig(p.k_m_per_s, 3)),
+        qcell("mv", p.mv_per_kpa, 3),
+        qcell("k", p.k_m_per_s, 3),
         el("td", { class: "flags" }, [...new Set(words)].join("; "))));
       // On a phone the remarks go on their own full-width line under the step instead of a far-right column.
       if (words.length) rows.push(el("tr", { class: "remarks-row" + (s.void ? " void" : ""), "data-remarks-for": s.seq }, el("td", { colspan: 8, class: "flags" }, [...new Set(words)].join("; "))));
@@ -321,7 +336,7 @@
     const host = document.getElementById("step-tools");
     // Rebuilt only when a step turns void or counts again; a new load step only adds its option, so a form
     // being filled in is never replaced under the user's hands.
-    const options = () => summaries.filter((s) => !s.void).map((s) => el("option", { value: s.seq }, s.seq + " — " + fmt.sig(s.stress_kpa, 4) + " kPa"));
+    const options = () => summaries.filter((s) => !s.void).map((s) => el("option", { value: s.seq }, s.seq + " — " + O.qty("stress", s.stress_kpa)));
     const key = JSON.stringify(summaries.filter((s) => s.void).map((s) => s.seq)) + (summaries.length ? "+" : "");
     if (key === stepToolsKey) {
       const select = host.querySelector("#f-void-seq");
@@ -401,16 +416,18 @@
     const form = el("form", { class: "act", id: "start-form", novalidate: true },
       field("specimen", "Specimen reference", { required: true, autocomplete: "off" }),
       field("description", "Description", {}),
-      el("div", { class: "row2" }, field("height_mm", "Height, mm", { inputmode: "decimal" }), field("diameter_mm", "Diameter, mm", { inputmode: "decimal" })),
+      el("div", { class: "row2" }, field("height_mm", "Height, " + O.unitName("length"), { inputmode: "decimal" }), field("diameter_mm", "Diameter, " + O.unitName("length"), { inputmode: "decimal" })),
       el("div", { class: "row2" }, field("dry_mass_g", "Dry mass, g", { inputmode: "decimal" }), field("specific_gravity", "Specific gravity Gs", { inputmode: "decimal" })),
-      field("seating_kpa", "Seating stress, kPa", { inputmode: "decimal" }),
+      field("seating_kpa", "Seating stress, " + O.unitName("stress"), { inputmode: "decimal" }),
       el("button", { class: "btn", type: "submit" }, "Start the test"),
       el("span", { class: "form-msg", "data-role": "msg" }));
     form.addEventListener("submit", (ev) => {
       ev.preventDefault();
       const body = { specimen: form.elements.specimen.value.trim() };
       if (form.elements.description.value.trim()) body.description = form.elements.description.value.trim();
-      for (const k of ["height_mm", "diameter_mm", "dry_mass_g", "specific_gravity", "seating_kpa"]) { const v = num(form, k); if (v !== undefined) body[k] = v; }
+      // Typed in the units shown; the API takes mm and kPa.
+      const unitOf = { height_mm: "length", diameter_mm: "length", seating_kpa: "stress" };
+      for (const k of ["height_mm", "diameter_mm", "dry_mass_g", "specific_gravity", "seating_kpa"]) { const v = num(form, k); if (v !== undefined) body[k] = unitOf[k] ? O.toStored(unitOf[k], v) : v; }
       submit(form, base() + "/tests", body);
     });
     return [el("h2", {}, "Start a test"), el("p", { class: "muted" }, "Fill in the specimen as built into the ring."), form];
@@ -421,7 +438,7 @@
       el("div", { class: "choice", role: "radiogroup" },
         el("label", {}, el("input", { type: "radio", name: "by", value: "stress", checked: true }), " by stress"),
         el("label", {}, el("input", { type: "radio", name: "by", value: "mass" }), " by hanger mass")),
-      el("div", { "data-by": "stress" }, field("stress_kpa", "Next stress, kPa", { inputmode: "decimal" })),
+      el("div", { "data-by": "stress" }, field("stress_kpa", "Next stress, " + O.unitName("stress"), { inputmode: "decimal" })),
       el("div", { "data-by": "mass", hidden: true }, field("hanger_mass_kg", "Total hanger mass, kg", { inputmode: "decimal" })),
       safety(),
       el("button", { class: "btn", type: "submit" }, "Arm the next load"),
@@ -433,7 +450,7 @@
     form.addEventListener("submit", (ev) => {
       ev.preventDefault();
       const by = form.elements.by.value;
-      const body = by === "stress" ? { stress_kpa: num(form, "stress_kpa") ?? null } : { hanger_mass_kg: num(form, "hanger_mass_kg") ?? null };
+      const body = by === "stress" ? { stress_kpa: O.toStored("stress", num(form, "stress_kpa")) ?? null } : { hanger_mass_kg: num(form, "hanger_mass_kg") ?? null };
       submit(form, base() + "/increments", body);
     });
     return [el("h2", {}, "Arm the next load step"), el("p", { class: "muted" }, "Arming tells oedolog which load you are about to put on, so it can find the start of the step."), form];
@@ -448,13 +465,13 @@
       el("button", { class: "btn quiet", type: "submit" }, "Wrong stress — withdraw step " + t.increment),
       el("span", { class: "form-msg", "data-role": "msg" }));
     withdraw.addEventListener("submit", (ev) => { ev.preventDefault(); submit(withdraw, base() + "/increments/current/withdraw", {}); });
-    return [el("h2", {}, "Load step " + t.increment + " armed: " + fmt.sig(t.stress_kpa, 4) + " kPa"), el("p", {}, "Put the weights on now. oedolog also finds the start of the step from the load cell by itself."), form,
+    return [el("h2", {}, "Load step " + t.increment + " armed: " + O.qty("stress", t.stress_kpa)), el("p", {}, "Put the weights on now. oedolog also finds the start of the step from the load cell by itself."), form,
       el("p", { class: "muted" }, "Armed the wrong stress? Withdraw it before the load goes on, then arm the right one."), withdraw];
   }
 
   function reseatForm(r) {
     const form = el("form", { class: "act", id: "reseat-form" },
-      el("p", {}, "The gauge reading jumped by " + fmt.num(r.jump_mm, 3) + " mm at " + fmt.clock(r.at_us) + ". If the gauge was re-seated, accept so the curve continues across the jump."),
+      el("p", {}, "The gauge reading jumped by " + O.len(r.jump_mm) + " at " + fmt.clock(r.at_us) + ". If the gauge was re-seated, accept so the curve continues across the jump."),
       el("div", { class: "row2" }, el("button", { class: "btn", type: "submit", value: "accept" }, "Yes, it was re-seated"), el("button", { class: "btn quiet", type: "submit", value: "reject" }, "No, keep the jump")),
       el("span", { class: "form-msg", "data-role": "msg" }));
     form.addEventListener("submit", (ev) => { ev.preventDefault(); submit(form, base() + "/reseat", { accept: ev.submitter ? ev.submitter.value === "accept" : true }); });
@@ -543,9 +560,9 @@
     }
     const t = frame.test, w = frame.watch || {};
     const facts = [
-      ["Specimen", t ? t.specimen : "—"], ["Load step", t ? t.increment + " · " + fmt.sig(t.stress_kpa, 4) + " kPa" : "—"],
-      ["Stress before this step", t && t.from_kpa != null ? fmt.sig(t.from_kpa, 4) + " kPa" : "—"], ["In this step", fmt.span(frame.increment_elapsed_s)],
-      ["Gauge reading", fmt.num(frame.displacement_mm, 3) + " mm"], ["Load cell", fmt.num(frame.load_kn, 4) + " kN"],
+      ["Specimen", t ? t.specimen : "—"], ["Load step", t ? t.increment + " · " + O.qty("stress", t.stress_kpa) : "—"],
+      ["Stress before this step", t && t.from_kpa != null ? O.qty("stress", t.from_kpa) : "—"], ["In this step", fmt.span(frame.increment_elapsed_s)],
+      ["Gauge reading", O.len(frame.displacement_mm)], ["Load cell", fmt.num(frame.load_kn, 4) + " kN"],
       ["Temperature", fmt.num(frame.temperature_c, 1) + " °C"], ["Last reading", frame.reading_age_s == null ? "never" : fmt.span(frame.reading_age_s) + " ago"],
       ["t50 / t90", fmt.sig(w.t50_min, 3) + " / " + fmt.sig(w.t90_min, 3) + " min"],
     ];
@@ -614,6 +631,14 @@
   let resizeTimer = 0;
   window.addEventListener("resize", () => { clearTimeout(resizeTimer); resizeTimer = setTimeout(resizeCharts, 150); });
   O.on("frames", onFrames);
+  // A units change re-draws everything shown, forms included (their labels name the unit typed in).
+  O.on("units", () => {
+    if (!frame) return;
+    actionKey = ""; stepToolsKey = null;
+    renderHead(); renderActions();
+    if (O.lastStep) timeCharts(O.lastStep.cols, O.lastStep.red);
+    compressionChart(); renderTable();
+  });
   O.on("journal", (j) => addJournal([j.entry]));
   api("GET", "/api/me").then((r) => {
     O.mayAct = !!(r.ok && r.data && r.data.may_act === true);

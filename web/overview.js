@@ -32,10 +32,10 @@
       el("div", { class: "state-hint", "data-role": "next" }, nextLine(f)),
       el("dl", { class: "facts" },
         el("dt", {}, "Specimen"), el("dd", {}, t ? t.specimen : "—"),
-        el("dt", {}, "Stress"), el("dd", {}, t && t.stress_kpa !== null ? fmt.num(t.stress_kpa, 1) + " kPa" : "—"),
+        el("dt", {}, "Stress"), el("dd", { "data-quantity": "stress", "data-si": t && t.stress_kpa !== null ? t.stress_kpa : "" }, t && t.stress_kpa !== null ? O.qty("stress", t.stress_kpa) : "—"),
         el("dt", {}, "Load step"), el("dd", {}, t ? String(t.increment) : "—"),
         el("dt", {}, "In this step"), el("dd", {}, fmt.span(f.increment_elapsed_s)),
-        el("dt", {}, "Gauge reading"), el("dd", {}, f.displacement_mm === null ? "—" : fmt.num(f.displacement_mm, 3) + " mm"),
+        el("dt", {}, "Gauge reading"), el("dd", { "data-quantity": "length", "data-si": f.displacement_mm ?? "" }, f.displacement_mm === null ? "—" : O.len(f.displacement_mm)),
         el("dt", {}, "Last reading"), el("dd", {}, f.reading_age_s === null ? "never" : fmt.span(f.reading_age_s) + " ago")),
       alarms.length ? el("div", { class: "alarms" }, alarms.map((a) => el("span", { class: "alarm " + a.code + (a.acknowledged ? " acked" : ""), "data-alarm": a.code, title: a.message || a.text }, a.text))) : null);
   }
@@ -50,5 +50,6 @@
   }
 
   O.on("frames", render);
+  O.on("units", () => render(O.frames));
   O.start();
 })();

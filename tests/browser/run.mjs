@@ -216,6 +216,69 @@ try {
   await page.screenshot({ path: path.join(shots, "frame-phone.png"), fullPage: true });
   await page.setViewportSize({ width: 1440, height: 900 });
 
+  await step("the units switch shows every quantity in the chosen unit, per browser, and back", async () => {
+    // Factors from NIST SP 811 (2008) Appendix B.8/B.9, written here independently of the daemon's table:
+    // 1 ton-force (short)/ft² = 95.760 52 kPa, 1 in = 25.4 mm exactly, 1 ft² = 0.092 903 04 m² exactly.
+    const KPA_PER_TSF = 95.76052;
+    const factor = { stress: 1 / KPA_PER_TSF, length: 1 / 25.4, cv: 1440e-6 / 0.09290304, k: 100, mv: KPA_PER_TSF };
+    const siFactor = { stress: 1, length: 1, cv: 1, k: 1, mv: 1000 }; // mv in m²/MN beside kPa
+    const id = await page.evaluate(() => window.oedolog.frame.id);
+    const u = watch(await context.newPage(), "units");
+    await u.setViewportSize({ width: 1440, height: 900 });
+    await u.goto(demo.base + "/frame.html?id=" + id);
+    await u.waitForFunction(() => document.body.dataset.units && document.querySelectorAll("#inc-table tbody td[data-quantity]").length > 4 && document.querySelector("#units-pick select"), null, { timeout: 20000 });
+    const cells = () => u.evaluate(() => [...document.querySelectorAll("[data-quantity][data-si]")].filter((e) => e.dataset.si !== "" && e.tagName !== "SELECT").map((e) => ({ q: e.dataset.quantity, si: Number(e.dataset.si), text: e.textContent.trim() })));
+    const compare = (list, f, label) => {
+      let n = 0;
+      for (const c of list) {
+        if (!isFinite(c.si) || c.si === 0 || c.text === "—") continue;
+        const shown = parseFloat(c.text.replace("−", "-"));
+        const want = c.si * f[c.q];
+        // Four significant figures at most are shown: half a unit in the third place is the bound.
+        check(Math.abs(shown - want) <= 5e-3 * Math.abs(want), label + ": " + c.q + " " + c.si + " (SI) shows " + JSON.stringify(c.text) + ", want " + want);
+        n++;
+      }
+      return n;
+    };
+    // Whatever happens below, the browser's choice is put back: the other steps share its localStorage.
+    const reset = () => u.evaluate(() => localStorage.removeItem("oedolog.units")).catch(() => {});
+    try {
+      check((await u.evaluate(() => document.body.dataset.units)) === "kPa mm mm²/min m/s", "the demo's lab units are SI");
+      const before = await cells();
+      const nSi = compare(before, siFactor, "SI");
+      await u.click("#units-pick summary");
+      for (const [q, name] of [["stress", "tsf"], ["length", "in"], ["cv", "ft²/day"], ["k", "cm/s"]]) await u.selectOption("#units-" + q, name);
+      await u.waitForFunction(() => document.body.dataset.units === "tsf in ft²/day cm/s", null, { timeout: 5000 });
+      await u.waitForTimeout(200);
+      const after = await cells();
+      const nUs = compare(after, factor, "US");
+      const kinds = new Set(after.filter((c) => c.text !== "—").map((c) => c.q));
+      for (const q of ["stress", "cv", "mv", "k"]) check(kinds.has(q), "no " + q + " value on the page to convert: " + [...kinds].join(","));
+      const heads = await u.evaluate(() => ({
+        table: document.querySelector("#inc-table thead").textContent,
+        x: window.oedolog.charts.compression.axes[0].label,
+        y: window.oedolog.charts.logt.axes[1].label,
+      }));
+      check(/tsf/.test(heads.table) && /ft²\/day/.test(heads.table) && /1\/tsf/.test(heads.table) && /cm\/s/.test(heads.table), "table heads not in the chosen units: " + heads.table);
+      check(/tsf/.test(heads.x) && /\bin\b/.test(heads.y), "chart axes not in the chosen units: " + JSON.stringify(heads));
+      await u.screenshot({ path: path.join(shots, "frame-us-units-wide.png"), fullPage: true });
+      await u.setViewportSize({ width: 390, height: 844 });
+      await u.waitForTimeout(300);
+      await u.screenshot({ path: path.join(shots, "frame-us-units-phone.png"), fullPage: true });
+      // The choice is this browser's: it outlives a reload; "lab's" brings back the lab's units.
+      await u.reload();
+      await u.waitForFunction(() => document.body.dataset.units === "tsf in ft²/day cm/s", null, { timeout: 10000 });
+      await u.setViewportSize({ width: 1440, height: 900 });
+      await u.click("#units-pick summary");
+      for (const q of ["stress", "length", "cv", "k"]) await u.selectOption("#units-" + q, "");
+      await u.waitForFunction(() => document.body.dataset.units === "kPa mm mm²/min m/s", null, { timeout: 5000 });
+      console.log("  units: " + nSi + " cells checked in SI, " + nUs + " in tsf/in/ft²/day/cm/s");
+    } finally {
+      await reset();
+      await u.close();
+    }
+  });
+
   await step("a load step is marked void with a reason, struck through, and counted again", async () => {
     await page.click("#step-tools summary");
     await page.selectOption("#f-void-seq", "1");
@@ -309,8 +372,31 @@ try {
     check(full.status() === 200, "report of test " + finishedTest + ": " + full.status());
     const rows = await report.$$eval("table tr", (trs) => trs.length);
     check(rows >= 5, "the report of a test with load steps has " + rows + " table rows");
+    // A figure (log t and √t) for every load step that is not void and has a curve, and none for a void one.
+    const figures = await report.evaluate(() => ({
+      steps: [...document.querySelectorAll("table.steps-table tr[data-seq]")].map((r) => ({ seq: r.dataset.seq, void: r.classList.contains("void") })),
+      figures: [...document.querySelectorAll("figure.step")].map((f) => ({ seq: f.dataset.seq, plots: f.querySelectorAll("svg.step-plot").length, caption: f.querySelector("figcaption").textContent })),
+    }));
+    const live = figures.steps.filter((s) => !s.void).map((s) => s.seq);
+    check(figures.figures.length >= live.length - 1 && figures.figures.length >= 2, "report figures " + figures.figures.length + " for load steps " + live.join(","));
+    for (const f of figures.figures) {
+      check(live.includes(f.seq) && f.plots === 2, "figure for step " + f.seq + ": " + JSON.stringify(f));
+      check(/^Load step \d+ · [\d.]+ kPa — t50 /.test(f.caption), "figure caption " + JSON.stringify(f.caption));
+    }
     await report.emulateMedia({ media: "print" });
     await report.screenshot({ path: path.join(shots, "report-print.png"), fullPage: true });
+    // Printed on A4 and on Letter: nothing wider than the page, and a PDF of a few pages.
+    for (const [format, widthMm] of [["A4", 210], ["Letter", 215.9]]) {
+      const usable = Math.floor(((widthMm - 2 * 12) / 25.4) * 96); // the print margins below, in CSS px
+      await report.setViewportSize({ width: usable, height: 1000 });
+      const overflow = await report.evaluate(() => ({ scroll: document.documentElement.scrollWidth, client: document.documentElement.clientWidth, wide: [...document.querySelectorAll("table, figure, svg")].filter((e) => e.getBoundingClientRect().right > document.documentElement.clientWidth + 1).map((e) => e.tagName + "." + e.className.baseVal + e.className).slice(0, 5) }));
+      check(overflow.scroll <= overflow.client + 1 && overflow.wide.length === 0, format + " print width " + usable + " px overflows: " + JSON.stringify(overflow));
+      const file = path.join(shots, "report-" + format.toLowerCase() + ".pdf");
+      await report.pdf({ path: file, format, margin: { top: "12mm", bottom: "12mm", left: "12mm", right: "12mm" }, printBackground: false });
+      const pages = (fs.readFileSync(file, "latin1").match(/\/Type\s*\/Page[^s]/g) || []).length;
+      check(pages >= 2 && pages <= 40, format + " PDF has " + pages + " pages");
+      console.log("  report " + format + ": " + pages + " pages, " + figures.figures.length + " step figures");
+    }
     await report.close();
   });
 
