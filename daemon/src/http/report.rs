@@ -203,9 +203,11 @@ fn decade_grid(svg: &mut String, plot: &PlotBox, font: f64) {
         let x = plot.sx(decade);
         let _ = write!(
             svg,
-            "<line x1=\"{x:.1}\" y1=\"{t}\" x2=\"{x:.1}\" y2=\"{}\" stroke=\"#ddd\"/><text x=\"{x:.1}\" y=\"{:.1}\" font-size=\"{font}\" text-anchor=\"middle\">{}</text>",
+            "<line x1=\"{x:.1}\" y1=\"{t}\" x2=\"{x:.1}\" y2=\"{}\" stroke=\"#ddd\"/><text x=\"{x:.1}\" y=\"{:.1}\" font-size=\"{font}\" text-anchor=\"{}\">{}</text>",
             plot.size.1 - b,
             plot.size.1 - b + font * 1.25,
+            // The last decade's label ends at the frame, inside the picture.
+            if decade >= plot.x.1 - 1e-9 { "end" } else { "middle" },
             sig(Some(10f64.powf(decade)), 2)
         );
         decade += 1.0;
@@ -439,13 +441,14 @@ pub(crate) fn render(r: &TestSummary, now_us: i64, simulated: Option<f64>, u: &D
 <title>Test {} — {}</title><style>\
 body{{font-family:system-ui,sans-serif;margin:1.5rem;color:#1d2a30;max-width:1100px}}table{{border-collapse:collapse;margin:.5rem 0 1rem}}\
 td,th{{padding:.25rem .45rem;border:1px solid #c9c4b7;text-align:right;font-variant-numeric:tabular-nums}}th{{background:#efece4}}\
-td{{white-space:nowrap}}td.l,th.l{{text-align:left;white-space:normal}}table.steps-table td.l{{min-width:14em}}\
+td{{white-space:nowrap}}table.facts th{{text-align:left}}@media (min-width:40rem),print{{table.facts th{{white-space:nowrap}}}}\
+@media screen and (max-width:40rem){{body{{margin:.8rem}}table.steps-table,table.e-table{{display:block;overflow-x:auto}}}}td.l,th.l{{text-align:left;white-space:normal}}table.steps-table td.l{{min-width:14em}}\
 .steps{{display:grid;grid-template-columns:repeat(auto-fill,minmax(520px,1fr));gap:.6rem}}figure.step{{margin:0;break-inside:avoid}}\
 figure.step figcaption{{font-size:.85rem;font-weight:600}}.pair{{display:grid;grid-template-columns:1fr 1fr;gap:.3rem}}.step-plot{{width:100%}}\
 @page{{size:auto;margin:14mm 12mm}}.sim{{border:1px solid #e0c860;background:#fff3c4;padding:.4rem .7rem}}.plot{{max-width:640px;width:100%}}\
 .caution{{border:1px solid #c9a13b;background:#fff8e0;padding:.5rem .8rem}}.sign td{{height:2.2rem;min-width:12rem}}.units{{font-size:.9rem}}\
 @media print{{body{{margin:0;font-size:9.5pt;max-width:none}}.noprint{{display:none}}h2{{break-after:avoid}}table{{break-inside:auto}}tr,figure{{break-inside:avoid}}\
-table.steps-table{{width:100%;font-size:8.5pt}}td,th{{padding:.15rem .3rem}}.steps{{grid-template-columns:1fr}}.plot{{max-width:150mm}}}}\
+table.steps-table{{width:100%;font-size:8pt}}table.steps-table td,th{{white-space:normal}}table.steps-table td.l{{min-width:8em}}td,th{{padding:.15rem .25rem}}.steps{{grid-template-columns:1fr}}.plot{{max-width:150mm}}}}\
 </style></head><body>",
         t.id,
         escape(&t.specimen)
@@ -470,7 +473,7 @@ dates and durations below are simulated, not the lab's.</p>"
         "<p class=\"units\">Units: {}. Stored and computed in kPa, mm, mm²/min and m/s; converted for this report with the factors of NIST SP 811 (2008), Appendix B.9.</p>",
         u.sentence()
     );
-    html += "<h2>Specimen and method</h2><table>";
+    html += "<h2>Specimen and method</h2><table class=\"facts\">";
     let mut row = |k: &str, v: String| {
         let _ = write!(html, "<tr><th class=\"l\">{k}</th><td class=\"l\">{v}</td></tr>");
     };
@@ -597,7 +600,7 @@ Right: against √time, Taylor's construction (the straight early part dashed, t
 Casagrande's construction for σ′p dotted in green.</p>";
             let _ = write!(
                 html,
-                "<table><tr><th>Step</th><th>σ′ {}</th><th class=\"l\">branch</th><th>e</th><th>strain</th><th>mv {}</th><th>k {}</th></tr>",
+                "<table class=\"e-table\"><tr><th>Step</th><th>σ′ {}</th><th class=\"l\">branch</th><th>e</th><th>strain</th><th>mv {}</th><th>k {}</th></tr>",
                 u.stress.name,
                 u.mv().name,
                 u.k.name
