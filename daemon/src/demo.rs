@@ -244,6 +244,7 @@ pub async fn start(options: DemoOptions) -> Result<(Running, Arc<dyn Clock>), De
         writer: running.writer.clone(),
         daemon_clock: clock.clone(),
         schedule_noted: vec![false; usize::from(options.frames)],
+        own_tests: running.lab.snapshot().iter().map(|t| t.as_ref().map(|t| t.test_id)).collect(),
     };
     tokio::spawn(technician.run());
     Ok((running, clock))
@@ -304,6 +305,9 @@ struct Technician {
     daemon_clock: Arc<dyn Clock>,
     /// Frames whose end of schedule has been noted.
     schedule_noted: Vec<bool>,
+    /// The test the demo started on each frame. Once a person finishes it and starts another, that frame
+    /// is theirs: the stand-in technician neither arms nor puts on its loads.
+    own_tests: Vec<Option<i64>>,
 }
 
 /// The technician comes to a ready frame between these many simulated minutes after it said so (a lab
@@ -329,6 +333,10 @@ impl Technician {
 
     async fn visit(&mut self, index: usize, now_s: f64, phase: Phase) {
         use rand::Rng as _;
+        let running = self.lab.snapshot().get(index).and_then(|t| t.as_ref().map(|t| t.test_id));
+        if running.is_some() && running != self.own_tests.get(index).copied().flatten() {
+            return;
+        }
         let unit = oedolog_protocol::UnitId(u8::try_from(index + 1).unwrap_or(u8::MAX));
         let Some((first_due_s, stress_kpa)) = self.sim.with(|s| s.frame(unit).and_then(|f| f.upcoming_load())) else {
             // The schedule has ended: once the last step is ready, say so in the frame's journal.
