@@ -927,13 +927,17 @@ fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
     }
 
     let mut frames = Vec::new();
+    let mut poll_spans = Vec::new();
     let mut frame_ids = HashSet::new();
     let mut units = HashMap::new();
     for (i, f) in raw.frames.into_iter().enumerate() {
+        let spans = (i, f.poll_ms.as_ref().map(|v| v.span()), f.fast_poll_ms.as_ref().map(|v| v.span()));
         if let Some(frame) = check_frame(c, f, i, &bus_index, &buses, &mut frame_ids, &mut units) {
             frames.push(frame);
+            poll_spans.push(spans);
         }
     }
+    check_fast_polls(c, &buses, &frames, &poll_spans);
     if purpose == Purpose::Run && frames.is_empty() && c.problems.is_empty() {
         c.problems.push(ConfigProblem {
             line: 1,
@@ -1266,6 +1270,66 @@ fn check_bus(c: &mut Checker<'_>, b: &RawBus, i: usize) -> Option<BusKind> {
 }
 
 #[allow(clippy::too_many_arguments)]
+/// Periods of 10 ms and more are always allowed (a bus that cannot keep up polls as fast as it can).
+/// Shorter ones are refused on a line gauge, and on a serial line when one round of its units cannot fit:
+/// per unit an 8-byte request, a reply of 5 bytes + 2 per register, and two t3.5 silences (Modbus over
+/// Serial Line V1.02 §2.5.1 and §2.5.1.1) — a lower bound, so nothing the line can carry is refused.
+fn check_fast_polls(c: &mut Checker<'_>, buses: &[Bus], frames: &[Frame], spans: &[PollSpans]) {
+    const ALWAYS_ALLOWED: Duration = Duration::from_millis(10);
+    for (frame, (i, steady_span, fast_span)) in frames.iter().zip(spans) {
+        let bus = &buses[frame.bus];
+        let shortest = match &bus.kind {
+            BusKind::Tcp(_) => continue,
+            BusKind::LineGauge(_) => ALWAYS_ALLOWED,
+            BusKind::Rtu(line) => {
+                let on_line = frames.iter().filter(|f| f.bus == frame.bus);
+                let bits = 1.0 + 8.0 + if line.parity == Parity::None { 0.0 } else { 1.0 } + f64::from(line.stop_bits);
+                let char_s = bits / f64::from(line.baud.max(1));
+                let t3_5_s = if line.baud > 19_200 { 1.75e-3 } else { 3.5 * char_s };
+                let round_s: f64 = on_line
+                    .map(|f| {
+                        let registers: u16 = [Some(&f.displacement), f.load.as_ref(), f.temperature.as_ref()]
+                            .into_iter()
+                            .flatten()
+                            .filter_map(|ch| ch.register.as_ref().map(RegisterMap::quantity))
+                            .sum();
+                        (8.0 + 5.0 + 2.0 * f64::from(registers)) * char_s + 2.0 * t3_5_s
+                    })
+                    .sum();
+                Duration::from_secs_f64(round_s)
+            }
+        };
+        let allowed_ms = shortest.min(ALWAYS_ALLOWED).as_secs_f64() * 1e3;
+        for (name, period, span) in
+            [("poll_ms", frame.poll.steady, steady_span.clone()), ("fast_poll_ms", frame.poll.fast, fast_span.clone())]
+        {
+            // A default is not refused on its own: poll_ms defaults to 1 s, fast_poll_ms follows poll_ms.
+            let Some(span) = span else { continue };
+            if period >= ALWAYS_ALLOWED || period >= shortest {
+                continue;
+            }
+            let why = match &bus.kind {
+                BusKind::Rtu(line) => {
+                    let n = frames.iter().filter(|f| f.bus == frame.bus).count();
+                    format!(
+                        "is shorter than bus `{}` can poll its {n} unit(s) at {} baud ({:.2} ms a round at the least)",
+                        bus.id,
+                        line.baud,
+                        shortest.as_secs_f64() * 1e3
+                    )
+                }
+                _ => format!("is too short for line-gauge bus `{}`", bus.id),
+            };
+            let message =
+                format!("{} ms {why} (allowed: {} to 3600000 ms here)", period.as_millis(), allowed_ms.ceil() as u64);
+            c.at(span, format!("frame[{i}].{name}"), message);
+        }
+    }
+}
+
+/// A frame's index in the file and where its `poll_ms` and `fast_poll_ms` are.
+type PollSpans = (usize, Option<Range<usize>>, Option<Range<usize>>);
+
 fn check_frame(
     c: &mut Checker<'_>,
     f: RawFrame,
@@ -1361,9 +1425,10 @@ fn check_frame(
             None
         }
     };
-    let steady = c.millis(f.poll_ms.as_ref(), &field("poll_ms"), 1000, 10..3_600_001);
+    // Below 10 ms only where the bus can carry it: see `check_fast_polls`.
+    let steady = c.millis(f.poll_ms.as_ref(), &field("poll_ms"), 1000, 1..3_600_001);
     let fast =
-        c.millis(f.fast_poll_ms.as_ref(), &field("fast_poll_ms"), 200.min(steady.as_millis() as u64), 10..3_600_001);
+        c.millis(f.fast_poll_ms.as_ref(), &field("fast_poll_ms"), 200.min(steady.as_millis() as u64), 1..3_600_001);
     if fast > steady {
         let span = f.fast_poll_ms.as_ref().map_or(f.id.span(), |v| v.span());
         c.at(

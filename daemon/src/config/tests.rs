@@ -114,8 +114,30 @@ fn broken_files_each_get_a_message_naming_the_field_and_what_is_allowed() {
             "negative period",
             |s| replace("unit = 1", "unit = 1\npoll_ms = -5")(s),
             "frame[0].poll_ms",
-            "allowed 10 to 3600000 ms",
+            "allowed 1 to 3600000 ms",
             15,
+        ),
+        (
+            // One unit, 4 registers at 19 200 8E1: (8 + 13) × 0.5729 ms + 2 × 2.0052 ms = 16.04 ms a round
+            // (Modbus over Serial Line V1.02 §2.5.1.1, computed), so below 10 ms nothing fits.
+            "period shorter than the serial line can carry",
+            |s| replace("unit = 1", "unit = 1\npoll_ms = 5")(s),
+            "frame[0].poll_ms",
+            "5 ms is shorter than bus `line-a` can poll its 1 unit(s) at 19200 baud (16.04 ms a round at the least) (allowed: 10 to 3600000 ms here)",
+            15,
+        ),
+        (
+            // At 115 200 baud: 21 × 0.0955 ms + 2 × 1.750 ms (fixed above 19 200) = 5.51 ms a round.
+            "fast period shorter than a fast serial line can carry",
+            |s| {
+                replace("baud = 19200", "baud = 115200")(&replace(
+                    "unit = 1",
+                    "unit = 1\npoll_ms = 10\nfast_poll_ms = 5",
+                )(s))
+            },
+            "frame[0].fast_poll_ms",
+            "5 ms is shorter than bus `line-a` can poll its 1 unit(s) at 115200 baud (5.51 ms a round at the least) (allowed: 6 to 3600000 ms here)",
+            16,
         ),
         (
             "bad parity",
@@ -338,6 +360,31 @@ fn broken_files_each_get_a_message_naming_the_field_and_what_is_allowed() {
         }
     }
     assert!(failures.is_empty(), "{}", failures.join("\n\n"));
+}
+
+#[test]
+fn periods_below_10_ms_are_allowed_where_the_bus_carries_them() {
+    // 115 200 baud, one unit: 5.51 ms a round at the least (computed above), so 6 ms fits.
+    let rtu = replace("baud = 19200", "baud = 115200")(&replace("unit = 1", "unit = 1\npoll_ms = 6")(BASE));
+    let config = Config::parse(&rtu, Purpose::Run).expect("6 ms on a 115 200 baud line with one unit");
+    assert_eq!(config.frames[0].poll.steady, Duration::from_millis(6));
+    assert_eq!(config.frames[0].poll.fast, Duration::from_millis(6), "fast_poll_ms follows a short poll_ms");
+    // Modbus TCP has no line time: down to 1 ms.
+    let tcp = replace(
+        "kind = \"modbus-rtu\"\ndevice = \"/dev/ttyUSB0\"\nbaud = 19200",
+        "kind = \"modbus-tcp\"\naddress = \"127.0.0.1:502\"",
+    )(&replace("unit = 1", "unit = 1\npoll_ms = 1")(BASE));
+    let config = Config::parse(&tcp, Purpose::Run).expect("1 ms on Modbus TCP");
+    assert_eq!(config.frames[0].poll.steady, Duration::from_millis(1));
+    // A second unit on the 115 200 baud line doubles the round: 6 ms no longer fits.
+    let two =
+        format!("{rtu}{}", rtu[rtu.find("[[frame]]").unwrap()..].replace("F1", "F2").replace("unit = 1", "unit = 2"));
+    let problems = Config::parse(&two, Purpose::Run).expect_err("two units in 6 ms at 115 200 baud").problems;
+    assert!(
+        problems.iter().any(|p| p.field == "frame[0].poll_ms" && p.message.contains("its 2 unit(s)")),
+        "{problems:?}"
+    );
+    assert!(problems.iter().any(|p| p.field == "frame[1].poll_ms"), "{problems:?}");
 }
 
 #[test]
