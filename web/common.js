@@ -135,6 +135,15 @@
       O.el("div", { class: "units-form" }, ...selects, O.el("p", { class: "muted" }, "For this browser only. Stored values and the API stay SI."))));
   }
 
+  // What a ready frame asks for, and since when. When the planned loading is complete (the demo says so
+  // when its schedule ends) there is no next load to ask for.
+  O.readyLine = function (f) {
+    const since = O.readyForS(f);
+    const span = since === null ? "" : " for " + O.fmt.span(since);
+    if (f.test && f.test.plan_finished) return "Load schedule finished" + span + " — review, then finish the test";
+    return "Ready for the next load" + span;
+  };
+
   // Display words of our own for the daemon's states; each has a glyph so colour is never the only cue.
   O.STATES = {
     ready: { word: "Ready", hint: "ready for the next load", glyph: "◆" },

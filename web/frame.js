@@ -547,7 +547,7 @@
     document.getElementById("frame-name").textContent = frame.name + " (" + frame.id + ")";
     document.getElementById("state-word").replaceChildren(el("span", { class: "glyph", "aria-hidden": "true" }, info.glyph), info.word);
     const eta = O.etaS(frame);
-    document.getElementById("state-hint").textContent = frame.state === "ready" ? "Ready for the next load" + (O.readyForS(frame) === null ? "" : " for " + fmt.span(O.readyForS(frame))) : frame.state === "primary" && eta !== null ? (eta > 0 ? "end of primary in ~" + fmt.span(eta) : "past the estimated end of primary — still settling") : info.hint;
+    document.getElementById("state-hint").textContent = frame.state === "ready" ? O.readyLine(frame) : frame.state === "primary" && eta !== null ? (eta > 0 ? "end of primary in ~" + fmt.span(eta) : "past the estimated end of primary — still settling") : info.hint;
     const alarms = O.alarms(frame);
     head.dataset.stale = alarms.some((a) => a.code === "stale") ? "true" : "false";
     const alarmKey = JSON.stringify(alarms.map((a) => [a.code, a.id, a.acknowledged]));

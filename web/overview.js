@@ -6,10 +6,7 @@
   const { el, fmt } = O;
 
   function nextLine(f) {
-    if (f.state === "ready") {
-      const since = O.readyForS(f);
-      return since === null ? "Ready for the next load" : "Ready for the next load for " + fmt.span(since);
-    }
+    if (f.state === "ready") return O.readyLine(f);
     if (f.state === "armed") return "Put the weights on, then mark the load applied";
     if (f.state === "primary") {
       const eta = O.etaS(f);
@@ -20,6 +17,8 @@
     if (f.state === "offline") return "Check the gauge, load cell and bus";
     return "No test on this frame";
   }
+
+  O.nextLine = nextLine;
 
   function tile(f) {
     const info = O.stateInfo(f.state);

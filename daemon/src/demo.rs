@@ -342,6 +342,7 @@ impl Technician {
             // The schedule has ended: once the last step is ready, say so in the frame's journal.
             if phase == Phase::Ready && !self.schedule_noted[index] {
                 self.schedule_noted[index] = true;
+                self.lab.mark_plan_finished(index);
                 let note = crate::store::Event {
                     at_us: self.daemon_clock.now_us(),
                     frame_key: Some(self.lab.key(index)),

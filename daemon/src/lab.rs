@@ -56,6 +56,9 @@ pub struct RunningTest {
     pub height_mm: f64,
     /// Seating stress, kPa.
     pub seating_kpa: f64,
+    /// The planned loading is complete: no next load is expected (set by the demo's technician when its
+    /// schedule ends; not stored, so a restart forgets it).
+    pub plan_finished: bool,
 }
 
 /// Running tests per configured frame (index = config order).
@@ -93,6 +96,7 @@ fn load_running(conn: &Reader, frame_key: i64) -> Result<Option<RunningTest>, St
         started_us: test.started_us,
         height_mm: test.height_mm,
         seating_kpa: test.seating_kpa,
+        plan_finished: false,
     };
     running.set_current(test.increment);
     Ok(Some(running))
@@ -170,6 +174,7 @@ impl Lab {
             started_us: now_us,
             height_mm: specimen.height_mm,
             seating_kpa,
+            plan_finished: false,
         };
         self.running.write().unwrap_or_else(|e| e.into_inner())[index] = Some(test.clone());
         Ok(test)
@@ -207,6 +212,7 @@ impl Lab {
             t.onset_us = None;
             t.ready_us = None;
             t.state = TestState::Armed;
+            t.plan_finished = false;
         });
         Ok(())
     }
@@ -286,6 +292,12 @@ impl Lab {
     /// The store key of config frame `index`.
     pub fn key(&self, index: usize) -> i64 {
         self.keys[index]
+    }
+
+    /// Says that frame `index`'s planned loading is complete (the screens then say so instead of asking
+    /// for a next load).
+    pub fn mark_plan_finished(&self, index: usize) {
+        self.update(index, |t| t.plan_finished = true);
     }
 
     fn update(&self, index: usize, f: impl FnOnce(&mut RunningTest)) {

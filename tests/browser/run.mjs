@@ -125,7 +125,10 @@ try {
       const tile = document.querySelector('.tile[data-frame-id="' + f.id + '"] [data-role=next]');
       return tile ? tile.textContent : null;
     });
-    check(line && /^Ready for the next load for \d/.test(line), "ready tile says " + JSON.stringify(line));
+    check(line && /^(Ready for the next load|Load schedule finished) for \d/.test(line), "ready tile says " + JSON.stringify(line));
+    // A frame whose planned loading is complete says so instead of asking for a load.
+    const done = await page.evaluate(() => window.oedolog.nextLine({ id: "x", state: "ready", increment_elapsed_s: 20000, test: { onset_us: 1e15, ready_us: 1e15 + (20000 - 11400) * 1e6, plan_finished: true } }));
+    check(/^Load schedule finished for 3 h 10 min/.test(done), "a finished schedule reads " + JSON.stringify(done));
   });
 
   await step("overview is live without reloading", async () => {

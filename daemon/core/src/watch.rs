@@ -433,7 +433,7 @@ impl FrameWatch {
         }
         match self.phase {
             Phase::Idle => return Err(WatchError::State("idle", "start a test first")),
-            Phase::Armed => return Err(WatchError::State("armed", "an increment is already armed")),
+            Phase::Armed => return Err(WatchError::State("armed", "a load step is already armed")),
             _ => {}
         }
         if (stress_kpa - self.stress_kpa).abs() < 1e-9 {
@@ -776,7 +776,7 @@ impl FrameWatch {
     /// The operator answers a proposed re-seat: `accept` stitches the readings across the jump (offset);
     /// otherwise the jump is taken as real and the held readings are used as they are.
     pub fn resolve_reseat(&mut self, accept: bool) -> Result<Vec<Finding>, WatchError> {
-        let live = self.live.as_mut().ok_or(WatchError::State("without an increment", "no re-seat to confirm"))?;
+        let live = self.live.as_mut().ok_or(WatchError::State("without a load step", "no re-seat to confirm"))?;
         let pending =
             live.pending.take().ok_or(WatchError::State("without a pending re-seat", "nothing to confirm"))?;
         if accept {

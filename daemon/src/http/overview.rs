@@ -57,10 +57,14 @@ async fn overview(State(state): State<AppState>) -> impl IntoResponse {
         };
         let into = v.increment_elapsed_s.map(words::span);
         let timing = match (v.state.as_str(), v.watch.as_ref()) {
-            ("ready", Some(w)) => match w.ready_us {
-                Some(at) => format!("ready for {}", words::span((now - at) as f64 / 1e6)),
-                None => "ready".to_string(),
-            },
+            ("ready", Some(w)) => {
+                let done =
+                    if v.test.as_ref().is_some_and(|t| t.plan_finished) { "load schedule finished · " } else { "" };
+                match w.ready_us {
+                    Some(at) => format!("{done}ready for {}", words::span((now - at) as f64 / 1e6)),
+                    None => format!("{done}ready"),
+                }
+            }
             (_, Some(w)) if w.ready_eta_us.is_some_and(|eta| eta > now) => format!(
                 "{} in · end of primary in ~{}",
                 into.clone().unwrap_or_else(|| "—".into()),

@@ -1494,3 +1494,19 @@ async fn healthz_offers_every_unit_of_the_switch() {
     let psf = health["display_options"]["stress"][2]["per_stored"].as_f64().unwrap();
     assert!((psf - 20.885_43).abs() < 1e-4, "{psf}");
 }
+
+#[tokio::test]
+async fn a_finished_load_plan_shows_on_the_frame_until_the_next_load_is_armed() {
+    let b = bench(false);
+    test_with_curve(&b).await;
+    let plan = |frames: &Value| frames[0]["test"]["plan_finished"].as_bool();
+    assert_eq!(plan(&call(&b.state, "GET", "/api/frames", None).await.1), Some(false));
+    b.state.lab.mark_plan_finished(0);
+    // /api/frames is rebuilt from memory once its short cache has run out.
+    tokio::time::sleep(super::cache::FRAMES_TTL * 2).await;
+    assert_eq!(plan(&call(&b.state, "GET", "/api/frames", None).await.1), Some(true));
+    // A person who loads on anyway (an extra step, an unload) has a plan again.
+    b.state.lab.arm(0, 100.0, START_US + 4_000_000_000, Some("otto".into())).unwrap();
+    tokio::time::sleep(super::cache::FRAMES_TTL * 2).await;
+    assert_eq!(plan(&call(&b.state, "GET", "/api/frames", None).await.1), Some(false));
+}
