@@ -921,7 +921,7 @@ fn reduce_file_test(
         sigma_v0_kpa: specimen.sigma_v0_kpa,
     };
     let rules = ReductionRules::default();
-    reduce_test(&TestInput { specimen: input_specimen, steps: &steps, deflection: None, rules: &rules })
+    reduce_test(&TestInput { specimen: input_specimen, steps: &steps, deflection: None, rules: &rules, choices: None })
 }
 
 /// The command's report from the reduction, each refusal placed in the file.

@@ -11,6 +11,7 @@ use super::cv::M2_PER_S_PER_MM2_PER_MIN;
 use super::fit::{Line, LineAccumulator, fit_line, residual_sum_of_squares};
 use super::flags::{Flag, push_unique};
 use super::interp::Pchip;
+use super::review::CompressionChoices;
 use super::{AnalysisError, check_positive, check_range};
 use crate::quantity::{MAX_STRESS_KPA, STRESS_ALLOWED, STRESS_RESOLUTION_KPA};
 
@@ -262,6 +263,13 @@ pub struct CompressionReduction {
     pub(crate) ocr_work: Option<f64>,
     /// Test-level quality remarks.
     pub flags: Vec<Flag>,
+    /// σ′p as an engineer set it directly, kPa (the constructions above are kept beside it).
+    pub sigma_p_chosen_kpa: Option<f64>,
+    /// OCR from the engineer's σ′p.
+    pub(crate) ocr_chosen: Option<f64>,
+    /// The values taken from an engineer's choices rather than the automatic constructions, by field name
+    /// (`virgin_points_kpa`, `unload_reload_points_kpa`, `max_curvature_kpa`, `sigma_p_kpa`, `sigma_v0_kpa`).
+    pub adjusted: Vec<&'static str>,
 }
 
 /// LIR = (σ′ − σ′before)/σ′before [ref: load-increment-ratio]; `None` when σ′before is not positive.
@@ -302,6 +310,16 @@ pub(crate) fn reduce_compression(
     input: &CompressionInput<'_>,
     params: &CompressionParams,
 ) -> Result<CompressionReduction, AnalysisError> {
+    reduce_compression_with(input, params, &CompressionChoices::default())
+}
+
+/// [`reduce_compression`] with an engineer's `choices` over the constructions; a choice that cannot apply to
+/// this curve is refused naming its field.
+pub(crate) fn reduce_compression_with(
+    input: &CompressionInput<'_>,
+    params: &CompressionParams,
+    choices: &CompressionChoices,
+) -> Result<CompressionReduction, AnalysisError> {
     check_range("initial_height_mm", input.initial_height_mm, 0.5, 1000.0, "0.5 to 1000 mm")?;
     check_positive("solids_height_mm", input.solids_height_mm)?;
     if input.solids_height_mm >= input.initial_height_mm {
@@ -319,6 +337,12 @@ pub(crate) fn reduce_compression(
     }
     if let Some(s) = params.sigma_v0_kpa {
         check_positive("sigma_v0_kpa", s)?;
+    }
+    if let Some(s) = choices.sigma_v0_kpa {
+        check_range("sigma_v0_kpa", s, STRESS_RESOLUTION_KPA, MAX_STRESS_KPA, STRESS_ALLOWED)?;
+    }
+    if let Some(s) = choices.sigma_p_kpa {
+        check_range("sigma_p_kpa", s, STRESS_RESOLUTION_KPA, MAX_STRESS_KPA, STRESS_ALLOWED)?;
     }
     if input.points.is_empty() {
         return Err(AnalysisError::TooFewPoints { what: "increments", needed: 1, got: 0 });
@@ -392,9 +416,48 @@ pub(crate) fn reduce_compression(
     }
 
     let loading: Vec<usize> = (0..points.len()).filter(|&i| points[i].branch == Branch::Loading).collect();
-    let cc = virgin_line(&points, &loading, params.virgin_points, &mut flags);
-    let cr = unload_reload_line(&points, &mut flags);
-    let sigma_p_casagrande = casagrande_sigma_p(&points, &loading, cc.as_ref(), params, &mut flags);
+    let mut adjusted = Vec::new();
+    let cc = match &choices.virgin_points_kpa {
+        Some(stresses) => {
+            adjusted.push("virgin_points_kpa");
+            let on_branch = |i: usize| loading.contains(&i);
+            Some(chosen_line(&points, stresses, "virgin_points_kpa", "stresses of the loading branch", on_branch)?)
+        }
+        None => virgin_line(&points, &loading, params.virgin_points, &mut flags),
+    };
+    let cr = match &choices.unload_reload_points_kpa {
+        Some(stresses) => {
+            adjusted.push("unload_reload_points_kpa");
+            let cycle = first_cycle(&points).unwrap_or_default();
+            let on_cycle = |i: usize| cycle.contains(&i);
+            let allowed = "stresses of the first unload–reload cycle (its peak, unloading and reloading points)";
+            Some(chosen_line(&points, stresses, "unload_reload_points_kpa", allowed, on_cycle)?)
+        }
+        None => unload_reload_line(&points, &mut flags),
+    };
+    let bend = match choices.max_curvature_kpa {
+        Some(s) => {
+            if loading.len() < 3 {
+                return Err(AnalysisError::TooFewPoints {
+                    what: "max_curvature_kpa (loading points for the curve)",
+                    needed: 3,
+                    got: loading.len(),
+                });
+            }
+            let (low, high) = (points[loading[0]].stress_kpa, points[loading[loading.len() - 1]].stress_kpa);
+            if !(s >= low * (1.0 - 1e-9) && s <= high * (1.0 + 1e-9)) {
+                return Err(AnalysisError::InvalidParameter {
+                    name: "max_curvature_kpa",
+                    value: s,
+                    allowed: "a stress within the loading branch's first and last stresses",
+                });
+            }
+            adjusted.push("max_curvature_kpa");
+            Some(s.log10())
+        }
+        None => None,
+    };
+    let sigma_p_casagrande = casagrande_sigma_p(&points, &loading, cc.as_ref(), params, bend, &mut flags);
     let sigma_p_work = work_sigma_p(input, &points, cc.as_ref(), &mut flags);
 
     if let (Some(cc), Some(sp)) = (&cc, &sigma_p_casagrande)
@@ -414,12 +477,22 @@ pub(crate) fn reduce_compression(
             before = point.stress_kpa;
         }
     }
-    let ocr = |sp: Option<f64>| Some(sp? / params.sigma_v0_kpa?);
+    let sigma_v0_kpa = choices.sigma_v0_kpa.or(params.sigma_v0_kpa);
+    if choices.sigma_v0_kpa.is_some() {
+        adjusted.push("sigma_v0_kpa");
+    }
+    if choices.sigma_p_kpa.is_some() {
+        adjusted.push("sigma_p_kpa");
+    }
+    let ocr = |sp: Option<f64>| Some(sp? / sigma_v0_kpa?);
     Ok(CompressionReduction {
         e0,
         compression_ratio: cc.as_ref().map(|c| c.index / (1.0 + e0)),
         ocr_casagrande: ocr(sigma_p_casagrande.as_ref().map(|s| s.sigma_p_kpa)),
         ocr_work: ocr(sigma_p_work.as_ref().map(|s| s.sigma_p_kpa)),
+        ocr_chosen: ocr(choices.sigma_p_kpa),
+        sigma_p_chosen_kpa: choices.sigma_p_kpa,
+        adjusted,
         points,
         cc,
         cr,
@@ -500,10 +573,21 @@ fn virgin_line(points: &[StatePoint], loading: &[usize], wanted: usize, flags: &
 /// Cr: line through the first unload–reload cycle — the peak before the first unloading, the unloading
 /// points, and the reloading points up to the peak stress.
 fn unload_reload_line(points: &[StatePoint], flags: &mut Vec<Flag>) -> Option<IndexLine> {
-    let Some(first_unload) = points.iter().position(|p| p.branch == Branch::Unloading) else {
+    let Some(used) = first_cycle(points) else {
         push_unique(flags, Flag::NoUnloadReload);
         return None;
     };
+    let Some(line) = (used.len() >= 2).then(|| fit_line(used.iter().map(|&i| log_point(&points[i])))).flatten() else {
+        push_unique(flags, Flag::NoUnloadReload);
+        return None;
+    };
+    Some(IndexLine { points: used, index: -line.slope, line })
+}
+
+/// The points of the first unload–reload cycle: the peak before the first unloading, the unloading points,
+/// and the reloading points up to the peak stress; `None` without an unloading.
+fn first_cycle(points: &[StatePoint]) -> Option<Vec<usize>> {
+    let first_unload = points.iter().position(|p| p.branch == Branch::Unloading)?;
     let mut used: Vec<usize> = Vec::new();
     if first_unload > 0 {
         used.push(first_unload - 1);
@@ -517,11 +601,47 @@ fn unload_reload_line(points: &[StatePoint], flags: &mut Vec<Flag>) -> Option<In
         used.push(i);
         i += 1;
     }
-    let Some(line) = (used.len() >= 2).then(|| fit_line(used.iter().map(|&i| log_point(&points[i])))).flatten() else {
-        push_unique(flags, Flag::NoUnloadReload);
-        return None;
-    };
-    Some(IndexLine { points: used, index: -line.slope, line })
+    Some(used)
+}
+
+/// The line an engineer chose: fitted to the points at exactly `stresses` (each matched to the applied
+/// stresses within 0.1 %, every point at that stress where `on_branch` allows several — an unloading and a
+/// reloading point may share one). Refused naming `field` with fewer than two points, a stress with no point
+/// where `on_branch` allows (`allowed` says which), or points that give no line.
+fn chosen_line(
+    points: &[StatePoint],
+    stresses: &[f64],
+    field: &'static str,
+    allowed: &'static str,
+    on_branch: impl Fn(usize) -> bool,
+) -> Result<IndexLine, AnalysisError> {
+    if stresses.len() < 2 {
+        return Err(AnalysisError::TooFewPoints { what: field, needed: 2, got: stresses.len() });
+    }
+    let mut used: Vec<usize> = Vec::new();
+    for &s in stresses {
+        let matched: Vec<usize> = (0..points.len())
+            .filter(|&i| on_branch(i) && s.is_finite() && (points[i].stress_kpa - s).abs() <= 1e-3 * s.abs())
+            .collect();
+        if matched.is_empty() {
+            return Err(AnalysisError::InvalidParameter { name: field, value: s, allowed });
+        }
+        used.extend(matched.into_iter().filter(|i| !used.contains(i)).collect::<Vec<_>>());
+    }
+    used.sort_unstable();
+    let line = fit_line(used.iter().map(|&i| log_point(&points[i]))).ok_or(AnalysisError::TooFewPoints {
+        what: field,
+        needed: 2,
+        got: 1,
+    })?;
+    if !(line.slope < 0.0) {
+        return Err(AnalysisError::InvalidParameter {
+            name: field,
+            value: stresses[0],
+            allowed: "points along which e falls as σ′ rises",
+        });
+    }
+    Ok(IndexLine { points: used, index: -line.slope, line })
 }
 
 /// Casagrande (1936) [ref: preconsolidation-casagrande]: on a smooth (PCHIP) fit of e on log σ′ through the
@@ -534,6 +654,7 @@ fn casagrande_sigma_p(
     loading: &[usize],
     virgin: Option<&IndexLine>,
     params: &CompressionParams,
+    chosen_bend: Option<f64>,
     flags: &mut Vec<Flag>,
 ) -> Option<CasagrandePreconsolidation> {
     const METHOD: &str = "Casagrande";
@@ -580,6 +701,10 @@ fn casagrande_sigma_p(
     }
     if run_start > 0 && run_start < curve.intervals() {
         consider(run_start, 0.0);
+    }
+    if let Some(x) = chosen_bend {
+        // The engineer's point of greatest curvature: the construction starts there, on the same curve.
+        best = Some((0.0, x, curve.derivative(x)));
     }
     let Some((_, xm, slope)) = best else {
         push_unique(flags, Flag::PreconsolidationNoBend { method: METHOD });
@@ -1354,5 +1479,131 @@ mod tests {
             let r = reduce_compression(&input, &end_of_increment());
             prop_assert!(r.is_ok());
         }
+    }
+}
+
+#[cfg(test)]
+mod review_tests {
+    //! An engineer's choices over the e–log σ′ constructions.
+    use super::*;
+
+    fn point(stress_kpa: f64, settlement_mm: f64) -> CompressionPoint {
+        CompressionPoint { stress_kpa, settlement_mm, settlement_eop_mm: None, cv_mm2_per_min: None }
+    }
+
+    /// (σ′, e) states on Hs = 10 mm, e0 = 0.78 under 12.5 kPa (H0 = 17.8 mm), end-of-increment basis.
+    fn reduce(states: &[(f64, f64)], choices: &CompressionChoices) -> Result<CompressionReduction, AnalysisError> {
+        let points: Vec<CompressionPoint> = states.iter().map(|&(s, e)| point(s, (0.78 - e) * 10.0)).collect();
+        let input = CompressionInput {
+            initial_height_mm: 17.8,
+            solids_height_mm: 10.0,
+            seating_stress_kpa: 12.5,
+            points: &points,
+        };
+        let params = CompressionParams { basis: CurveBasis::EndOfIncrement, ..CompressionParams::default() };
+        reduce_compression_with(&input, &params, choices)
+    }
+
+    /// A loading branch that holds Venkatramaiah Example 7.1's pair — σ′ 50 → 100 kN/m², e 0.70 → 0.65,
+    /// Cc = 0.166 [ref: compression-index] (read) — and goes on steeper to 400 kPa (invented points), then an
+    /// unload–reload cycle.
+    const WITH_EXAMPLE_7_1: [(f64, f64); 8] = [
+        (25.0, 0.76),
+        (50.0, 0.70),
+        (100.0, 0.65),
+        (200.0, 0.55),
+        (400.0, 0.45),
+        (100.0, 0.47),
+        (200.0, 0.462),
+        (400.0, 0.451),
+    ];
+
+    #[test]
+    fn chosen_virgin_points_reproduce_venkatramaiah_example_7_1_where_the_automatic_line_does_not() {
+        let automatic = reduce(&WITH_EXAMPLE_7_1, &CompressionChoices::default()).unwrap();
+        let auto_cc = automatic.cc.as_ref().unwrap();
+        // The steepest straight run is 100–200–400 kPa: Cc = 0.1/log10 2 = 0.332 (computed), not the example's.
+        assert!((auto_cc.index - 0.3322).abs() < 1e-3, "{}", auto_cc.index);
+        assert!(automatic.adjusted.is_empty());
+        let chosen = CompressionChoices { virgin_points_kpa: Some(vec![50.0, 100.0]), ..CompressionChoices::default() };
+        let r = reduce(&WITH_EXAMPLE_7_1, &chosen).unwrap();
+        let cc = r.cc.as_ref().unwrap();
+        // Venkatramaiah Ex 7.1: Cc = 0.166 (0.05/log10 2 = 0.16610, computed).
+        assert!((cc.index - 0.16610).abs() < 5e-5, "{}", cc.index);
+        assert_eq!(cc.points(), &[1, 2]);
+        assert_eq!(r.adjusted, vec!["virgin_points_kpa"]);
+        // The points of the curve are the same; only the construction (and what follows from it) changed.
+        let e =
+            |r: &CompressionReduction| r.points.iter().map(|p| (p.stress_kpa, p.e, p.mv_per_kpa)).collect::<Vec<_>>();
+        assert_eq!(e(&r), e(&automatic));
+    }
+
+    #[test]
+    fn chosen_unload_reload_points_make_cr() {
+        let automatic = reduce(&WITH_EXAMPLE_7_1, &CompressionChoices::default()).unwrap();
+        assert_eq!(automatic.cr.as_ref().unwrap().points(), &[4, 5, 6, 7]);
+        // The unloading line alone: 400 → 100 kPa, e 0.45 → 0.47: Cr = 0.02/log10 4 = 0.033 22 (computed).
+        let chosen =
+            CompressionChoices { unload_reload_points_kpa: Some(vec![400.0, 100.0]), ..CompressionChoices::default() };
+        let r = reduce(&WITH_EXAMPLE_7_1, &chosen).unwrap();
+        let cr = r.cr.as_ref().unwrap();
+        // 400 kPa names both the peak and the reloading point at 400; 100 kPa the unloading point.
+        assert_eq!(cr.points(), &[4, 5, 7]);
+        let line = fit_line([4usize, 5, 7].iter().map(|&i| log_point(&r.points[i]))).unwrap();
+        assert!((cr.index + line.slope).abs() < 1e-12);
+        assert_eq!(r.adjusted, vec!["unload_reload_points_kpa"]);
+    }
+
+    #[test]
+    fn a_chosen_bend_and_a_chosen_sigma_p_are_kept_beside_the_construction() {
+        let states = [(25.0, 0.775), (50.0, 0.768), (100.0, 0.755), (200.0, 0.70), (400.0, 0.60), (800.0, 0.50)];
+        let automatic = reduce(&states, &CompressionChoices::default()).unwrap();
+        let auto_sp = automatic.sigma_p_casagrande.as_ref().unwrap();
+        let chosen = CompressionChoices { max_curvature_kpa: Some(60.0), ..CompressionChoices::default() };
+        let r = reduce(&states, &chosen).unwrap();
+        let sp = r.sigma_p_casagrande.as_ref().unwrap();
+        assert!((sp.max_curvature().0 - 60.0).abs() < 1e-9, "the construction starts at the chosen point");
+        assert!((sp.sigma_p_kpa - auto_sp.sigma_p_kpa).abs() > 1.0, "{} vs {}", sp.sigma_p_kpa, auto_sp.sigma_p_kpa);
+        // The bisector still meets the virgin line: σ′p lies on both.
+        let [_, bisector, virgin] = sp.lines();
+        let x = sp.sigma_p_kpa.log10();
+        assert!((bisector.at(x) - virgin.at(x)).abs() < 1e-9);
+        assert_eq!(r.adjusted, vec!["max_curvature_kpa"]);
+
+        let direct = CompressionChoices { sigma_p_kpa: Some(150.0), sigma_v0_kpa: Some(75.0), ..Default::default() };
+        let r = reduce(&states, &direct).unwrap();
+        assert_eq!(r.sigma_p_chosen_kpa, Some(150.0));
+        assert_eq!(r.ocr_chosen, Some(2.0));
+        assert_eq!(r.sigma_p_casagrande, automatic.sigma_p_casagrande, "the construction is still there");
+        assert_eq!(r.adjusted, vec!["sigma_v0_kpa", "sigma_p_kpa"]);
+    }
+
+    #[test]
+    fn choices_that_cannot_apply_are_refused_by_name() {
+        let refused = |choices: CompressionChoices| reduce(&WITH_EXAMPLE_7_1, &choices).unwrap_err();
+        let named = |e: &AnalysisError| match e {
+            AnalysisError::InvalidParameter { name, .. } => *name,
+            AnalysisError::TooFewPoints { what, .. } => *what,
+            other => panic!("{other:?}"),
+        };
+        let virgin = |v: Vec<f64>| CompressionChoices { virgin_points_kpa: Some(v), ..Default::default() };
+        // Fewer than two points.
+        let e = refused(virgin(vec![100.0]));
+        assert!(matches!(e, AnalysisError::TooFewPoints { needed: 2, got: 1, .. }) && named(&e) == "virgin_points_kpa");
+        // A stress the test never applied.
+        let e = refused(virgin(vec![100.0, 150.0]));
+        assert!(matches!(e, AnalysisError::InvalidParameter { value, .. } if value == 150.0), "{e:?}");
+        // The 100 kPa of the unloading is not on the loading branch; 200 kPa is, so [200, 400] is accepted.
+        assert!(reduce(&WITH_EXAMPLE_7_1, &virgin(vec![200.0, 400.0])).is_ok());
+        let cycle = |v: Vec<f64>| CompressionChoices { unload_reload_points_kpa: Some(v), ..Default::default() };
+        let e = refused(cycle(vec![25.0, 50.0]));
+        assert_eq!(named(&e), "unload_reload_points_kpa");
+        // A bend outside the loading stresses, a σ′p that is not a stress.
+        let e = refused(CompressionChoices { max_curvature_kpa: Some(5.0), ..Default::default() });
+        assert_eq!(named(&e), "max_curvature_kpa");
+        let e = refused(CompressionChoices { sigma_p_kpa: Some(-3.0), ..Default::default() });
+        assert_eq!(named(&e), "sigma_p_kpa");
+        let e = refused(CompressionChoices { sigma_v0_kpa: Some(f64::NAN), ..Default::default() });
+        assert_eq!(named(&e), "sigma_v0_kpa");
     }
 }

@@ -16,7 +16,7 @@ pub(crate) const CM2_PER_S_PER_MM2_PER_MIN: f64 = 0.01 / 60.0;
 pub(crate) const M2_PER_S_PER_MM2_PER_MIN: f64 = 1e-6 / 60.0;
 
 /// Which faces of the specimen drain.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Drainage {
     /// Top and bottom: Hdr = H/2 (the usual oedometer set-up).

@@ -13,6 +13,7 @@ use super::cv::{
     viscosity_ratio_to_20c,
 };
 use super::flags::{Flag, push_unique};
+use super::review::StepChoices;
 use super::secondary::{SecondaryCompression, secondary_compression};
 use super::taylor::{TaylorParams, TaylorResult, taylor};
 use super::terzaghi::{T50_PUBLISHED, T90_PUBLISHED};
@@ -43,6 +44,8 @@ pub struct IncrementParams {
     pub(crate) load_increment_ratio: Option<f64>,
     /// Mean temperature of the increment, °C; adds cv corrected to 20 °C.
     pub(crate) temperature_c: Option<f64>,
+    /// An engineer's choices over the constructions (none: the automatic proposal).
+    pub(crate) choices: StepChoices,
 }
 
 impl IncrementParams {
@@ -60,7 +63,13 @@ impl IncrementParams {
             time_factor_50: T50_PUBLISHED,
             load_increment_ratio: None,
             temperature_c: None,
+            choices: StepChoices::default(),
         }
+    }
+
+    /// The same parameters with an engineer's `choices` applied over the constructions.
+    pub fn with_choices(self, choices: StepChoices) -> Self {
+        IncrementParams { choices, ..self }
     }
 
     /// Defaults with the drainage path from the specimen height at 50 % consolidation (D2435 practice):
@@ -146,6 +155,9 @@ pub struct IncrementReduction {
     pub secondary: Option<SecondaryCompression>,
     /// Every flag of the increment and of both constructions, once each.
     pub flags: Vec<Flag>,
+    /// The values taken from an engineer's choices rather than the constructions, by field name
+    /// (`taylor_window_min`, `d100_mm`, …); empty for the automatic proposal.
+    pub adjusted: Vec<&'static str>,
 }
 
 fn median(mut values: Vec<f64>) -> Option<f64> {
@@ -281,6 +293,7 @@ pub fn reduce_curve(curve: &TimeCurve, params: &IncrementParams) -> Result<Incre
         end_of_primary,
         secondary,
         flags,
+        adjusted: Vec::new(),
     })
 }
 

@@ -115,7 +115,6 @@ impl Pchip {
     }
 
     /// dy/dx (inside the nodes; clamped like `eval`).
-    #[cfg(test)]
     pub(crate) fn derivative(&self, x: f64) -> f64 {
         let (k, s, _) = self.local(x);
         let (a, b, c) = self.derivative_quadratic(k);

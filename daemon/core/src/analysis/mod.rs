@@ -22,6 +22,7 @@ pub(crate) mod increment;
 pub(crate) mod interp;
 pub(crate) mod phase;
 pub(crate) mod reduction;
+pub(crate) mod review;
 pub(crate) mod secondary;
 pub(crate) mod taylor;
 pub(crate) mod terzaghi;
@@ -47,11 +48,11 @@ pub use reduction::{
     CurveUnavailable, ReductionRules, StepInput, StepReduction, TestInput, TestReduction, TestSpecimen,
     reduce_test_with,
 };
+pub use review::{CompressionChoices, StepChoices, TestChoices};
 pub use secondary::SecondaryCompression;
 pub use taylor::{StraightFit, TaylorResult};
 pub use terzaghi::degree_of_consolidation;
 
-pub(crate) use compression::reduce_compression;
 pub(crate) use cv::SpecimenState;
 pub(crate) use phase::{SpecimenMeasurements, phase_relations};
 pub(crate) use reduction::reduce_test;

@@ -8,13 +8,15 @@
 
 use serde::Serialize;
 
+use super::AnalysisError;
+use super::compression::reduce_compression_with;
 use super::compression::{CompressionInput, CompressionParams, CompressionPoint, CompressionReduction, CurveBasis};
 use super::cv::{CvEstimate, Drainage, Method, SpecimenState};
 use super::deflection::{DeflectionCalibration, LoadBranch, corrected_mm};
 use super::flags::Flag;
 use super::increment::{IncrementParams, IncrementReduction, reduce_increment};
 use super::phase::{FinalWaterCheck, PhaseRelations, SpecimenMeasurements, final_water_check, phase_relations};
-use super::{AnalysisError, reduce_compression};
+use super::review::{CompressionChoices, TestChoices};
 
 /// The choices every reduction of a load step's time curve shares, live or stored.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize)]
@@ -129,6 +131,8 @@ pub struct TestInput<'a> {
     pub deflection: Option<&'a DeflectionCalibration>,
     /// The shared reduction choices.
     pub rules: &'a ReductionRules,
+    /// An engineer's choices over the constructions; `None`: the automatic proposal throughout.
+    pub choices: Option<&'a TestChoices>,
 }
 
 impl TestInput<'_> {
@@ -169,7 +173,11 @@ impl TestInput<'_> {
         let (_, last_mm) = *step.readings?.last()?;
         let settlement = self.corrected_settlement(index).unwrap_or(0.0);
         let specimen = SpecimenState { height_mm: self.specimen.height_mm - settlement, at_reading_mm: last_mm };
-        Some(self.rules.increment_params(specimen, self.previous_kpa(index), step.stress_kpa, solids_height_mm))
+        let params = self.rules.increment_params(specimen, self.previous_kpa(index), step.stress_kpa, solids_height_mm);
+        Some(match self.choices {
+            Some(choices) => params.with_choices(choices.step(index)),
+            None => params,
+        })
     }
 
     fn corrected_settlement(&self, index: usize) -> Option<f64> {
@@ -350,7 +358,9 @@ pub fn reduce_test_with(
             };
             let params =
                 CompressionParams { basis, sigma_v0_kpa: input.specimen.sigma_v0_kpa, ..input.rules.compression };
-            reduce_compression(&compression_input, &params).map_err(CurveUnavailable::Refused)
+            let none = CompressionChoices::default();
+            let choices = input.choices.map_or(&none, |c| &c.compression);
+            reduce_compression_with(&compression_input, &params, choices).map_err(CurveUnavailable::Refused)
         }
     };
     let final_water = match (&phase, input.specimen.final_water_content, curve_steps.last()) {
@@ -403,7 +413,7 @@ mod tests {
             StepInput { void: false, stress_kpa: 100.0, settlement_mm: None, readings: None },
         ];
         let rules = ReductionRules::default();
-        let input = TestInput { specimen: specimen(), steps: &steps, deflection: None, rules: &rules };
+        let input = TestInput { specimen: specimen(), steps: &steps, deflection: None, rules: &rules, choices: None };
         let fresh = reduce_test(&input);
         let mut calls = Vec::new();
         let hooked = reduce_test_with(&input, |i, r, p| {
@@ -422,7 +432,7 @@ mod tests {
         let a = curve(3.0, 0.20, 5.0);
         let steps = [StepInput { void: false, stress_kpa: 25.0, settlement_mm: Some(0.20), readings: Some(&a) }];
         let rules = ReductionRules::default();
-        let input = TestInput { specimen: specimen(), steps: &steps, deflection: None, rules: &rules };
+        let input = TestInput { specimen: specimen(), steps: &steps, deflection: None, rules: &rules, choices: None };
         let params = input.step_params(0, None).unwrap();
         let s = params.specimen.unwrap();
         assert!((s.height_mm - 19.8).abs() < 1e-12 && (s.at_reading_mm - a[a.len() - 1].1).abs() < 1e-12);
@@ -441,6 +451,7 @@ mod tests {
             steps: &steps,
             deflection: None,
             rules: &rules,
+            choices: None,
         };
         let r = reduce_test(&input);
         assert!(r.steps[0].curve.is_some());
@@ -458,7 +469,7 @@ mod tests {
             StepInput { void: false, stress_kpa: 100.0, settlement_mm: Some(0.45), readings: Some(&b) },
         ];
         let rules = ReductionRules::default();
-        let input = TestInput { specimen: specimen(), steps: &steps, deflection: None, rules: &rules };
+        let input = TestInput { specimen: specimen(), steps: &steps, deflection: None, rules: &rules, choices: None };
         assert_eq!(input.previous_kpa(2), 25.0, "the step after a void one follows the last that counts");
         assert_eq!(input.step_params(2, None).unwrap().load_increment_ratio, Some(3.0), "(100 − 25)/25");
         let r = reduce_test(&input);
