@@ -341,7 +341,13 @@ pub(crate) fn reduce_test(
         })
         .collect();
     let rules = ReductionRules::default();
-    let input = TestInput { specimen: test.specimen(), steps: &steps, deflection: calibration.as_ref(), rules: &rules };
+    let input = TestInput {
+        specimen: test.specimen(),
+        steps: &steps,
+        deflection: calibration.as_ref(),
+        rules: &rules,
+        choices: None,
+    };
     let reduced = reduce_test_with(&input, |index, readings, params| {
         let key = (test.id, rows[index].seq);
         let kept = caches.reductions.get_or_build(&key, &stamps[index], |_| {

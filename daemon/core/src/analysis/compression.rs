@@ -306,6 +306,7 @@ pub(crate) fn final_settlement_mm(mv_per_kpa: f64, height_mm: f64, stress_change
 }
 
 /// Reduces a test to its e–log σ′ curve and parameters. `Err` for inputs out of range, naming the field.
+#[cfg(test)]
 pub(crate) fn reduce_compression(
     input: &CompressionInput<'_>,
     params: &CompressionParams,
