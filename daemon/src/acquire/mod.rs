@@ -325,6 +325,33 @@ impl PolledFrame {
     }
 }
 
+/// Runs an RTU bus on a thread of its own, with a single-threaded runtime: its silences end with a
+/// thread sleep (tokio's 1 ms timer is too coarse for t3.5), which must hold up no other task. Returns a
+/// task on the caller's runtime that stands for it: aborting or dropping that task stops the bus at its
+/// next wait.
+fn spawn_line_thread(bus: impl std::future::Future<Output = ()> + Send + 'static) -> tokio::task::JoinHandle<()> {
+    let (stop_tx, stop_rx) = tokio::sync::oneshot::channel::<()>();
+    std::thread::Builder::new()
+        .name("oedolog-rtu".into())
+        .spawn(move || {
+            let runtime = tokio::runtime::Builder::new_current_thread()
+                .enable_all()
+                .build()
+                .expect("a runtime for an RTU bus thread");
+            runtime.block_on(async move {
+                tokio::select! {
+                    () = bus => {}
+                    _ = stop_rx => {}
+                }
+            });
+        })
+        .expect("spawn an RTU bus thread");
+    tokio::spawn(async move {
+        let _stop_when_dropped = stop_tx;
+        std::future::pending::<()>().await
+    })
+}
+
 /// Starts one task per bus of `config`; `keys[i]` is the store key of config frame `i`.
 pub fn spawn_buses(config: &Config, keys: &[i64], sinks: &Sinks) -> Vec<tokio::task::JoinHandle<()>> {
     let mut tasks = Vec::new();
@@ -346,7 +373,7 @@ pub fn spawn_buses(config: &Config, keys: &[i64], sinks: &Sinks) -> Vec<tokio::t
                 let connector = link::SerialConnector::for_line(line);
                 let settings =
                     modbus::LinkSettings { timeout: line.timeout, retries: line.retries, gap: line.gap, rtu: true };
-                tokio::spawn(modbus::run_bus(id, connector, settings, frames, sinks))
+                spawn_line_thread(modbus::run_bus(id, connector, settings, frames, sinks))
             }
             BusKind::Tcp(tcp) => {
                 let connector = link::TcpConnector { address: tcp.address.clone(), timeout: tcp.timeout };
