@@ -1,7 +1,9 @@
 //! Casagrande's logarithm-of-time construction (Casagrande & Fadum 1940 [ref: casagrande-log-time]): d0 by
 //! the 1:4 time-ratio offset, the tangent at the inflection, the straight secondary
 //! line from late readings, d100 where they meet, d50 and t50 on the curve. Until a secondary branch exists
-//! d100 is undetermined — flagged, never invented. It only reads the curve; cv is the caller's.
+//! d100 is undetermined — flagged, never invented. It only reads the curve; cv is the caller's. An
+//! engineer's choices (the tangent's window, the secondary line's window, d0, d100, t50) replace what they
+//! name and the construction proceeds from them; checking them against the data is the caller's.
 
 use serde::Serialize;
 
@@ -9,7 +11,8 @@ use super::curve::PreparedCurve;
 use super::fit::{Line, fit_line, grow_straight_run, max_abs_residual};
 use super::flags::{Flag, push_unique};
 use super::interp::Pchip;
-use super::taylor::{MIN_NODES, SMALL_PRIMARY_RESOLUTIONS, StraightFit};
+use super::review::StepChoices;
+use super::taylor::{MIN_NODES, SMALL_PRIMARY_RESOLUTIONS, StraightFit, nodes_in_window};
 use super::{AnalysisError, check_range};
 
 /// Part of the √t-straight start (as a fraction of its √t span) that 4·t1 may reach.
@@ -161,10 +164,25 @@ impl CasagrandeResult {
 /// Runs the log-t construction. `parabolic` is the √t-straight start found by [`super::taylor()`]: the 1:4
 /// rule is exact wherever d is linear in √t, so t1 and 4·t1 are taken inside it. `Err` only for
 /// parameters out of range.
+#[cfg(test)]
 pub(crate) fn casagrande(
     curve: &PreparedCurve,
     parabolic: Option<&StraightFit>,
     params: &CasagrandeParams,
+) -> Result<CasagrandeResult, AnalysisError> {
+    casagrande_with(curve, parabolic, params, &StepChoices::default())
+}
+
+/// [`casagrande`] with an engineer's choices: `primary_window_min` makes the inflection tangent the
+/// least-squares line (on log10 t) through exactly the nodes in it, `secondary_window_min` the secondary line
+/// likewise (no search, no slope or start rule); d100 and t100 where they meet, as usual. `d0_mm` replaces the
+/// 1:4 offset's d0 (the pairs are still shown), `d100_mm` the intersection's d100 (t100 then is where the
+/// curve reaches it), `t50_min` the time read at d50. The choices must have been checked against the curve.
+pub(crate) fn casagrande_with(
+    curve: &PreparedCurve,
+    parabolic: Option<&StraightFit>,
+    params: &CasagrandeParams,
+    choices: &StepChoices,
 ) -> Result<CasagrandeResult, AnalysisError> {
     params.check()?;
     let mut result = CasagrandeResult::empty();
@@ -181,37 +199,23 @@ pub(crate) fn casagrande(
     };
 
     offset_d0(curve, &pchip, parabolic, params, &mut result);
-
-    let Some(steepest) = steepest_window(curve, &pchip) else {
-        push_unique(&mut result.flags, Flag::NetSwelling);
-        return Ok(result);
-    };
-    let (x_inf, tangent) = (steepest.x, steepest.line);
-    result.inflection = Some(InflectionTangent { t_min: 10f64.powf(x_inf), d_mm: tangent.at(x_inf), line: tangent });
-    let after = curve.log_t.partition_point(|&x| x <= x_inf);
-    if after + 1 >= n || steepest.last_node + 1 >= n {
-        push_unique(&mut result.flags, Flag::InflectionNotPassed);
+    if let Some(d0) = choices.d0_mm {
+        result.d0_mm = Some(d0);
     }
 
-    let secondary = match secondary_line(curve, after, &tangent, params) {
-        Search::Found(line) => line,
-        Search::TooSoon { t100_min, from_min, until_min } => {
-            push_unique(&mut result.flags, Flag::NoSecondaryBranch);
-            push_unique(&mut result.flags, Flag::SecondaryTooSoon { t100_min, from_min, until_min });
-            return Ok(result);
+    let constructed = end_of_primary(curve, &pchip, params, choices, &mut result);
+    let (t100, d100) = match (choices.d100_mm, constructed) {
+        // The engineer's d100: t100 where the curve first reaches it (none when it never does).
+        (Some(d100), _) => {
+            let x100 = (nodes[0].d_mm < d100)
+                .then(|| pchip.first_crossing(&Line { slope: 0.0, intercept: d100 }, curve.log_t[0]))
+                .flatten();
+            (x100.map(|x| 10f64.powf(x)), d100)
         }
-        Search::None => {
-            push_unique(&mut result.flags, Flag::NoSecondaryBranch);
-            return Ok(result);
-        }
+        (None, Some((x100, d100))) => (Some(10f64.powf(x100)), d100),
+        (None, None) => return Ok(result),
     };
-    result.secondary = Some(secondary);
-    let x_last = curve.log_t[n - 1];
-    let Some((x100, d100)) = tangent.intersection(&secondary.line).filter(|(x, _)| *x >= x_inf && *x <= x_last) else {
-        push_unique(&mut result.flags, Flag::IntersectionOutsideData);
-        return Ok(result);
-    };
-    result.t100_min = Some(10f64.powf(x100));
+    result.t100_min = t100;
     result.d100_mm = Some(d100);
     let Some(d0) = result.d0_mm else { return Ok(result) };
     if d100 - d0 < SMALL_PRIMARY_RESOLUTIONS * curve.gauge_resolution_mm {
@@ -225,11 +229,82 @@ pub(crate) fn casagrande(
     let x50 = (nodes[0].d_mm < d50)
         .then(|| pchip.first_crossing(&Line { slope: 0.0, intercept: d50 }, curve.log_t[0]))
         .flatten();
-    match x50 {
-        Some(x) => result.t50_min = Some(10f64.powf(x)),
-        None => push_unique(&mut result.flags, Flag::T50NotFound),
+    match (choices.t50_min, x50) {
+        (Some(t50), _) => result.t50_min = Some(t50),
+        (None, Some(x)) => result.t50_min = Some(10f64.powf(x)),
+        (None, None) => push_unique(&mut result.flags, Flag::T50NotFound),
     }
     Ok(result)
+}
+
+/// The inflection tangent, the secondary line and where they meet, (log10 t100, d100); `None`, flagged, when
+/// they do not meet within the readings.
+fn end_of_primary(
+    curve: &PreparedCurve,
+    pchip: &Pchip,
+    params: &CasagrandeParams,
+    choices: &StepChoices,
+    result: &mut CasagrandeResult,
+) -> Option<(f64, f64)> {
+    let n = curve.nodes.len();
+    let steepest = match choices.primary_window_min {
+        Some(window) => chosen_window(curve, window).map(|(first, last, line)| {
+            let x = (first..=last).map(|j| curve.log_t[j]).sum::<f64>() / (last + 1 - first) as f64;
+            Steepest { x, line, last_node: last }
+        }),
+        None => steepest_window(curve, pchip),
+    };
+    let Some(steepest) = steepest.filter(|s| s.line.slope > 0.0) else {
+        push_unique(&mut result.flags, Flag::NetSwelling);
+        return None;
+    };
+    let (x_inf, tangent) = (steepest.x, steepest.line);
+    result.inflection = Some(InflectionTangent { t_min: 10f64.powf(x_inf), d_mm: tangent.at(x_inf), line: tangent });
+    let after = curve.log_t.partition_point(|&x| x <= x_inf);
+    if after + 1 >= n || steepest.last_node + 1 >= n {
+        push_unique(&mut result.flags, Flag::InflectionNotPassed);
+    }
+
+    let search = match choices.secondary_window_min {
+        Some(window) => match chosen_window(curve, window) {
+            Some((first, last, line)) => Search::Found(SecondaryLine {
+                first_node: first,
+                last_node: last,
+                t_start_min: curve.nodes[first].t_min,
+                t_end_min: curve.nodes[last].t_min,
+                points: last + 1 - first,
+                line,
+            }),
+            None => Search::None,
+        },
+        None => secondary_line(curve, after, &tangent, params),
+    };
+    let secondary = match search {
+        Search::Found(line) => line,
+        Search::TooSoon { t100_min, from_min, until_min } => {
+            push_unique(&mut result.flags, Flag::NoSecondaryBranch);
+            push_unique(&mut result.flags, Flag::SecondaryTooSoon { t100_min, from_min, until_min });
+            return None;
+        }
+        Search::None => {
+            push_unique(&mut result.flags, Flag::NoSecondaryBranch);
+            return None;
+        }
+    };
+    result.secondary = Some(secondary);
+    let x_last = curve.log_t[n - 1];
+    let meet = tangent.intersection(&secondary.line).filter(|(x, _)| *x >= x_inf && *x <= x_last);
+    if meet.is_none() {
+        push_unique(&mut result.flags, Flag::IntersectionOutsideData);
+    }
+    meet
+}
+
+/// The nodes an engineer's window holds and the least-squares line through them on log10 t.
+fn chosen_window(curve: &PreparedCurve, window: [f64; 2]) -> Option<(usize, usize, Line)> {
+    let (first, last) = nodes_in_window(curve, window)?;
+    let line = fit_line((first..=last).map(|j| (curve.log_t[j], curve.nodes[j].d_mm)))?;
+    Some((first, last, line))
 }
 
 /// d0 by the 1:4 offset averaged over up to `offset_pairs` t1 nodes inside the parabolic start.

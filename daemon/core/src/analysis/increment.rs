@@ -1,13 +1,15 @@
 //! Full reduction of one load increment's time curve: thinning, both constructions, cv by each, Cα, and the
 //! increment-level flags. This is what the live watcher re-runs as readings arrive (build a [`TimeCurve`]
 //! once, push readings, call [`reduce_curve`]) and what the offline `analyze increment` command prints.
-//! It must not decide when an increment ends or touch a frame; it only reports.
+//! An engineer's [`StepChoices`] are checked against the step's readings here and applied by the
+//! constructions; the reduction names the values it took from them. It must not decide when an increment ends
+//! or touch a frame; it only reports.
 
 use serde::Serialize;
 
-use super::casagrande::{CasagrandeParams, CasagrandeResult, casagrande};
+use super::casagrande::{CasagrandeParams, CasagrandeResult, casagrande_with};
 use super::consistency::{Checked, CvChoice, check_and_choose};
-use super::curve::{CurveNode, DEFAULT_BINS_PER_DECADE, TimeCurve};
+use super::curve::{CurveNode, DEFAULT_BINS_PER_DECADE, PreparedCurve, TimeCurve};
 use super::cv::{
     CvEstimate, Drainage, DrainagePath, HeightBasis, Method, SpecimenState, cv_mm2_per_min, to_m2_per_year,
     viscosity_ratio_to_20c,
@@ -15,7 +17,7 @@ use super::cv::{
 use super::flags::{Flag, push_unique};
 use super::review::StepChoices;
 use super::secondary::{SecondaryCompression, secondary_compression};
-use super::taylor::{TaylorParams, TaylorResult, taylor};
+use super::taylor::{TaylorParams, TaylorResult, nodes_in_window, taylor_with};
 use super::terzaghi::{T50_PUBLISHED, T90_PUBLISHED};
 use super::{AnalysisError, check_positive, check_range};
 
@@ -193,20 +195,34 @@ pub fn reduce_curve(curve: &TimeCurve, params: &IncrementParams) -> Result<Incre
     // Swelling judged on the median of the later half of the nodes, so one wild reading cannot flip it.
     let later_median = median(nodes[nodes.len() / 2..].iter().map(|n| n.d_mm).collect());
     let swelling = matches!((start_mm, later_median), (Some(a), Some(b)) if b <= a) && nodes.len() > 1;
+    let choices = &params.choices;
+    check_choices(choices, &prepared, swelling)?;
+    let drainage_path = match (choices.drainage, params.drainage) {
+        (None, path) => path,
+        (Some(drainage), DrainagePath::FromHeight { basis, .. }) => DrainagePath::FromHeight { drainage, basis },
+        (Some(_), DrainagePath::Fixed { path_mm }) => {
+            return Err(AnalysisError::InvalidParameter {
+                name: "drainage",
+                value: path_mm,
+                allowed: "only where the drainage path comes from the specimen height (this step's is given directly)",
+            });
+        }
+    };
 
     let (taylor_result, casagrande_result) = if swelling {
         push_unique(&mut flags, Flag::NetSwelling);
         (TaylorResult::empty(params.taylor.factor), CasagrandeResult::empty())
     } else {
-        let t = taylor(&prepared, &params.taylor)?;
-        let c = casagrande(&prepared, t.straight.as_ref(), &params.casagrande)?;
+        let t = taylor_with(&prepared, &params.taylor, choices)?;
+        let c = casagrande_with(&prepared, t.straight.as_ref(), &params.casagrande, choices)?;
         (t, c)
     };
+    check_primary_direction(choices, &taylor_result, &casagrande_result)?;
 
     let height_at = |reading_mm: f64| params.specimen.map(|s| s.height_at_mm(reading_mm));
     let estimate = |method: Method, time_factor: f64, time_min: Option<f64>, d50_mm: Option<f64>| {
         let time_min = time_min?;
-        let (path_mm, height_mm) = match params.drainage {
+        let (path_mm, height_mm) = match drainage_path {
             DrainagePath::Fixed { path_mm } => (path_mm, None),
             DrainagePath::FromHeight { drainage, basis } => {
                 let reading = match basis {
@@ -293,8 +309,110 @@ pub fn reduce_curve(curve: &TimeCurve, params: &IncrementParams) -> Result<Incre
         end_of_primary,
         secondary,
         flags,
-        adjusted: Vec::new(),
+        adjusted: adjusted_fields(choices),
     })
+}
+
+/// The names of the fields an engineer chose, in `StepChoices`' order.
+fn adjusted_fields(choices: &StepChoices) -> Vec<&'static str> {
+    let c = choices;
+    [
+        ("taylor_window_min", c.taylor_window_min.is_some()),
+        ("primary_window_min", c.primary_window_min.is_some()),
+        ("secondary_window_min", c.secondary_window_min.is_some()),
+        ("d0_mm", c.d0_mm.is_some()),
+        ("d100_mm", c.d100_mm.is_some()),
+        ("t50_min", c.t50_min.is_some()),
+        ("t90_min", c.t90_min.is_some()),
+        ("drainage", c.drainage.is_some()),
+    ]
+    .into_iter()
+    .filter_map(|(name, chosen)| chosen.then_some(name))
+    .collect()
+}
+
+/// Refuses a choice that cannot apply to this step's curve, naming its field [ref: review-and-safety]:
+/// a window that is not two times 0 ≤ a < b or holds fewer than two nodes; d0 or d100 that is not finite,
+/// lies outside the readings by more than their span, or (both given) d100 not beyond d0 in the direction of
+/// compression; t50 or t90 not above 0 or past the last reading; any construction choice on a swelling step.
+fn check_choices(choices: &StepChoices, curve: &PreparedCurve, swelling: bool) -> Result<(), AnalysisError> {
+    let invalid = |name, value, allowed| Err(AnalysisError::InvalidParameter { name, value, allowed });
+    let windows = [
+        ("taylor_window_min", choices.taylor_window_min),
+        ("primary_window_min", choices.primary_window_min),
+        ("secondary_window_min", choices.secondary_window_min),
+    ];
+    let construction_chosen = windows.iter().any(|(_, w)| w.is_some())
+        || [choices.d0_mm, choices.d100_mm, choices.t50_min, choices.t90_min].iter().any(Option::is_some);
+    if swelling && construction_chosen {
+        let name = adjusted_fields(choices)[0];
+        return invalid(name, f64::NAN, "a compressing step: this one swells, so no construction is drawn");
+    }
+    for (name, window) in windows {
+        let Some([a, b]) = window else { continue };
+        for t in [a, b] {
+            if !(t.is_finite() && t >= 0.0) {
+                return invalid(name, t, "two finite times in min, 0 ≤ a < b");
+            }
+        }
+        if a >= b {
+            return invalid(name, b, "two finite times in min, 0 ≤ a < b (the end after the start)");
+        }
+        let got = nodes_in_window(curve, [a, b]).map_or(0, |(first, last)| last + 1 - first);
+        if got < 2 {
+            return Err(AnalysisError::TooFewPoints { what: name, needed: 2, got });
+        }
+    }
+    // Readings, the one at t = 0 included; a chosen d may lie beyond them by their span (a d100 extrapolated
+    // past a curve still in primary, a d0 above the first reading).
+    let readings = curve.nodes.iter().map(|n| n.d_mm).chain(curve.zero_reading_mm);
+    let (low, high) = readings.fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), d| (l.min(d), h.max(d)));
+    let span = high - low;
+    for (name, value) in [("d0_mm", choices.d0_mm), ("d100_mm", choices.d100_mm)] {
+        let Some(d) = value else { continue };
+        if !(d.is_finite() && d >= low - span && d <= high + span) {
+            return invalid(name, d, "within the step's readings, give or take their span, mm");
+        }
+    }
+    if let (Some(d0), Some(d100)) = (choices.d0_mm, choices.d100_mm)
+        && d100 <= d0
+    {
+        return invalid("d100_mm", d100, "beyond d0 in the direction of compression (d100 > d0)");
+    }
+    let last_min = curve.nodes.last().map_or(0.0, |n| n.t_min);
+    for (name, value) in [("t50_min", choices.t50_min), ("t90_min", choices.t90_min)] {
+        let Some(t) = value else { continue };
+        if !(t.is_finite() && t > 0.0 && t <= last_min) {
+            return invalid(name, t, "a time above 0 up to the last reading's, min");
+        }
+    }
+    Ok(())
+}
+
+/// Refuses a chosen d0 or d100 that leaves the other (the construction's) not beyond it in the direction of
+/// compression: primary consolidation would be nil or negative.
+fn check_primary_direction(
+    choices: &StepChoices,
+    taylor: &TaylorResult,
+    casagrande: &CasagrandeResult,
+) -> Result<(), AnalysisError> {
+    for (d0, d100) in [(taylor.d0_mm, taylor.d100_mm), (casagrande.d0_mm, casagrande.d100_mm)] {
+        let (Some(d0), Some(d100)) = (d0, d100) else { continue };
+        if d100 > d0 {
+            continue;
+        }
+        let (name, value) = match (choices.d0_mm, choices.d100_mm) {
+            (_, Some(d100)) => ("d100_mm", d100),
+            (Some(d0), None) => ("d0_mm", d0),
+            (None, None) => continue,
+        };
+        return Err(AnalysisError::InvalidParameter {
+            name,
+            value,
+            allowed: "a d0 and d100 with d100 beyond d0 in the direction of compression",
+        });
+    }
+    Ok(())
 }
 
 #[cfg(test)]
@@ -678,5 +796,213 @@ mod tests {
             let readings: Vec<(f64, f64)> = steps.iter().map(|&(dt, d)| { t += dt; (t, d) }).collect();
             prop_assert!(reduce_increment(&readings, &IncrementParams::with_drainage_path_mm(10.0)).is_ok());
         }
+    }
+}
+
+#[cfg(test)]
+mod review_tests {
+    //! An engineer's choices over a load step's time-curve constructions, on synthetic Terzaghi curves
+    //! [ref: synthetic-checks, computed] (`synthetic::Model::typical`: Hdr = 10 mm, cv = 1 mm²/min, 1 mm of
+    //! primary, t90 = 84.8 min, t50 = 19.7 min).
+    use super::*;
+    use crate::analysis::fit::fit_line;
+    use crate::analysis::synthetic::{HAND_SCHEDULE_MIN, Model, dense_schedule, poll_schedule, relative, sample};
+
+    fn reduce_with(readings: &[(f64, f64)], choices: StepChoices) -> Result<IncrementReduction, AnalysisError> {
+        reduce_increment(readings, &IncrementParams::with_drainage_path_mm(10.0).with_choices(choices))
+    }
+
+    fn cv(e: Option<CvEstimate>) -> f64 {
+        e.unwrap().cv_mm2_per_min
+    }
+
+    #[test]
+    fn a_chosen_root_time_window_moves_t90_and_cv_and_the_right_one_recovers_the_model() {
+        // Seating on load-on, 0.15 mm settling with a 0.1 min time constant, as in `taylor`'s bedding test.
+        let m = Model::typical();
+        let times = poll_schedule(0.1, 15.0, 0.5, 8.0 * m.time_at(1.1));
+        let bedding = |t: f64| if t > 0.0 { 0.15 * (1.0 - (-t / 0.1).exp()) } else { 0.0 };
+        let readings: Vec<(f64, f64)> =
+            sample(&m, &times, 0.001, 0.0, 0).into_iter().map(|(t, d)| (t, d + bedding(t))).collect();
+        let automatic = reduce_with(&readings, StepChoices::default()).unwrap();
+        assert!(automatic.adjusted.is_empty());
+        let auto_window = automatic.taylor.straight.unwrap();
+
+        // A window on the bedding (the first readings, 0.1 and 0.2 min, which the automatic line passes over):
+        // the line is far too steep, so the 1.15 line meets the curve far too early — t90 low, cv high.
+        let bedded = StepChoices { taylor_window_min: Some([0.0, 0.25]), ..StepChoices::default() };
+        let r = reduce_with(&readings, bedded).unwrap();
+        assert!(auto_window.t_start_min > 0.25 && r.taylor.straight.unwrap().t_end_min <= 0.25);
+        assert!(r.taylor.t90_min.unwrap() < 0.5 * automatic.taylor.t90_min.unwrap(), "{:?}", r.taylor.t90_min);
+        assert!(cv(r.cv_taylor) > 2.0 * cv(automatic.cv_taylor));
+        assert_eq!(r.adjusted, vec!["taylor_window_min"]);
+
+        // A window late in primary (U ≈ 50–77 %, past the √T-linear range that ends at U ≈ 60 %
+        // [ref: terzaghi-approximations]): a flatter line, t90 later and cv lower (measured t90 +16 %).
+        let late = StepChoices { taylor_window_min: Some([20.0, 50.0]), ..StepChoices::default() };
+        let r = reduce_with(&readings, late).unwrap();
+        assert!(r.taylor.t90_min.unwrap() > 1.05 * automatic.taylor.t90_min.unwrap(), "{:?}", r.taylor.t90_min);
+        assert!(cv(r.cv_taylor) < 0.95 * cv(automatic.cv_taylor));
+
+        // The right window, past the bedding and inside the √T-linear range (T = 0.05–0.25): cv within 2 % of
+        // the model's — the 1.15 factor's +1.5 % bias [ref: taylor-root-time, computed] and the thinning's
+        // (measured +0.6 %). Its line is exactly the least-squares line through the nodes in the window.
+        let right = StepChoices { taylor_window_min: Some([5.0, 25.0]), ..StepChoices::default() };
+        let r = reduce_with(&readings, right).unwrap();
+        let error = relative(cv(r.cv_taylor), m.cv_mm2_per_min);
+        assert!(error.abs() < 0.02, "cv error {error}");
+        let s = r.taylor.straight.unwrap();
+        let inside: Vec<&CurveNode> = r.nodes.iter().filter(|n| (5.0..=25.0).contains(&n.t_min)).collect();
+        assert_eq!(
+            (s.points, s.t_start_min, s.t_end_min),
+            (inside.len(), inside[0].t_min, inside.last().unwrap().t_min)
+        );
+        let line = fit_line(inside.iter().map(|n| (n.t_min.sqrt(), n.d_mm))).unwrap();
+        assert_eq!(s.line, line);
+        assert_eq!(r.taylor.d0_mm, Some(line.intercept), "d0 is the chosen line's intercept");
+        // The readings and the proposal without the choice are untouched.
+        assert_eq!(r.nodes, automatic.nodes);
+        assert_eq!(reduce_with(&readings, StepChoices::default()).unwrap(), automatic);
+    }
+
+    #[test]
+    fn chosen_log_time_windows_make_the_tangent_and_the_secondary_line() {
+        let m = Model::typical();
+        let readings = sample(&m, &dense_schedule(), 0.001, 0.0, 0);
+        let automatic = reduce_with(&readings, StepChoices::default()).unwrap();
+        let auto_d100 = automatic.casagrande.d100_mm.unwrap();
+        // A secondary line from 3 × t100 leaves more of the primary tail out than the automatic 1.5 × t100:
+        // the tail steepens a line fitted over it and pulls d100 down [ref: casagrande-log-time, computed], so
+        // d100 rises toward the model's (measured −0.30 % → +0.04 % of primary); within 0.2 %, cv within 1 %.
+        let later = StepChoices { secondary_window_min: Some([330.0, 1440.0]), ..StepChoices::default() };
+        let r = reduce_with(&readings, later).unwrap();
+        let d100 = r.casagrande.d100_mm.unwrap();
+        assert!(d100 > auto_d100 && m.of_primary(d100, m.d100_mm()).abs() < 0.002, "d100 {d100} vs {auto_d100}");
+        assert!(relative(cv(r.cv_casagrande), m.cv_mm2_per_min).abs() < 0.01);
+        let line = r.casagrande.secondary.unwrap();
+        let inside: Vec<&CurveNode> = r.nodes.iter().filter(|n| (330.0..=1440.0).contains(&n.t_min)).collect();
+        assert_eq!(line.line, fit_line(inside.iter().map(|n| (n.t_min.log10(), n.d_mm))).unwrap());
+        assert_eq!(r.adjusted, vec!["secondary_window_min"]);
+        // A secondary window on the tail itself (110–200 min, T = 1.1–2.0): d100 low, t50 early, cv high
+        // (measured d100 −6.7 % of primary, cv +15 %).
+        let tail = StepChoices { secondary_window_min: Some([110.0, 200.0]), ..StepChoices::default() };
+        let r = reduce_with(&readings, tail).unwrap();
+        assert!(r.casagrande.d100_mm.unwrap() < auto_d100 - 0.03 * m.primary_mm);
+        assert!(cv(r.cv_casagrande) > 1.05 * cv(automatic.cv_casagrande));
+
+        // The tangent through the nodes of T = 0.30–0.55, around the inflection at T = 0.404 whose slope is
+        // 0.687 per log cycle of primary [ref: casagrande-log-time, computed]: slope within 2 %, cv within 2 %.
+        let around = StepChoices { primary_window_min: Some([30.0, 55.0]), ..StepChoices::default() };
+        let r = reduce_with(&readings, around).unwrap();
+        let tangent = r.casagrande.inflection.unwrap();
+        let inside: Vec<&CurveNode> = r.nodes.iter().filter(|n| (30.0..=55.0).contains(&n.t_min)).collect();
+        assert_eq!(tangent.line, fit_line(inside.iter().map(|n| (n.t_min.log10(), n.d_mm))).unwrap());
+        assert!(relative(tangent.line.slope, 0.687 * m.primary_mm).abs() < 0.02, "{}", tangent.line.slope);
+        assert!(relative(cv(r.cv_casagrande), m.cv_mm2_per_min).abs() < 0.02);
+        assert_eq!(r.adjusted, vec!["primary_window_min"]);
+    }
+
+    #[test]
+    fn d0_d100_t50_and_t90_set_directly_replace_the_constructions_values() {
+        let m = Model::typical();
+        let readings = sample(&m, &dense_schedule(), 0.0, 0.0, 0);
+        let automatic = reduce_with(&readings, StepChoices::default()).unwrap();
+        // d0 and d100 at the model's own (computed): both constructions take them, d50 is their mean and t50 is
+        // where the curve reaches d50 — the model's t50 to the interpolation's 0.5 % (PCHIP on dense nodes).
+        let direct = StepChoices { d0_mm: Some(m.d0_mm()), d100_mm: Some(m.d100_mm()), ..StepChoices::default() };
+        let r = reduce_with(&readings, direct).unwrap();
+        for (d0, d100, d50, t50) in [
+            (r.taylor.d0_mm, r.taylor.d100_mm, r.taylor.d50_mm, r.taylor.t50_min),
+            (r.casagrande.d0_mm, r.casagrande.d100_mm, r.casagrande.d50_mm, r.casagrande.t50_min),
+        ] {
+            assert_eq!((d0, d100), (Some(m.d0_mm()), Some(m.d100_mm())));
+            assert_eq!(d50, Some(0.5 * (m.d0_mm() + m.d100_mm())));
+            assert!(relative(t50.unwrap(), m.t50_min()).abs() < 0.005, "t50 {t50:?}");
+        }
+        assert_eq!(r.adjusted, vec!["d0_mm", "d100_mm"]);
+        // Taylor's 1.15 line starts from the chosen d0, so t90 moves with it (here by under 1 %).
+        assert_eq!(r.taylor.construction_line.unwrap().at(0.0), m.d0_mm());
+
+        // t50 and t90 set directly: cv = 0.197·Hdr²/t50 and 0.848·Hdr²/t90 exactly [ref: cv-formula].
+        let times = StepChoices { t50_min: Some(25.0), t90_min: Some(100.0), ..StepChoices::default() };
+        let r = reduce_with(&readings, times).unwrap();
+        assert!((cv(r.cv_casagrande) - 0.197 * 100.0 / 25.0).abs() < 1e-12);
+        assert!((cv(r.cv_taylor) - 0.848 * 100.0 / 100.0).abs() < 1e-12);
+        assert_eq!((r.casagrande.d100_mm, r.taylor.d100_mm), (automatic.casagrande.d100_mm, automatic.taylor.d100_mm));
+        assert_eq!(r.adjusted, vec!["t50_min", "t90_min"]);
+
+        // No secondary branch (cv 0.7 on the hand schedule): log t finds no d100, but one set directly gives
+        // d50, t50 and cv by log t.
+        let slow = Model { cv_mm2_per_min: 0.7, ..m };
+        let readings = sample(&slow, &HAND_SCHEDULE_MIN, 0.001, 0.0, 0);
+        assert!(reduce_with(&readings, StepChoices::default()).unwrap().casagrande.d100_mm.is_none());
+        let r =
+            reduce_with(&readings, StepChoices { d100_mm: Some(slow.d100_mm()), ..StepChoices::default() }).unwrap();
+        assert_eq!(r.casagrande.d100_mm, Some(slow.d100_mm()));
+        let error = relative(cv(r.cv_casagrande), slow.cv_mm2_per_min);
+        assert!(error.abs() < 0.05, "cv error {error} (hand schedule, PCHIP between readings)");
+    }
+
+    #[test]
+    fn single_drainage_gives_four_times_the_cv_of_double_for_the_same_times() {
+        // Hdr = H for single drainage, H/2 for double [ref: drainage-path]; cv ∝ Hdr² (computed: ×4).
+        let m = Model::typical();
+        let readings = sample(&m, &HAND_SCHEDULE_MIN, 0.001, 0.0, 0);
+        let params = IncrementParams::with_specimen(20.0, m.start_mm, Drainage::Double);
+        let double = reduce_increment(&readings, &params).unwrap();
+        let choices = StepChoices { drainage: Some(Drainage::Single), ..StepChoices::default() };
+        let single = reduce_increment(&readings, &params.with_choices(choices)).unwrap();
+        for (a, b) in [(double.cv_taylor, single.cv_taylor), (double.cv_casagrande, single.cv_casagrande)] {
+            let (a, b) = (a.unwrap(), b.unwrap());
+            assert_eq!(a.time_min, b.time_min);
+            assert!((b.drainage_path_mm - 2.0 * a.drainage_path_mm).abs() < 1e-12);
+            assert!((b.cv_mm2_per_min / a.cv_mm2_per_min - 4.0).abs() < 1e-12);
+        }
+        assert_eq!(single.adjusted, vec!["drainage"]);
+        // A drainage path given directly has no height to take single drainage from: refused by name.
+        let fixed = IncrementParams::with_drainage_path_mm(10.0).with_choices(choices);
+        let e = reduce_increment(&readings, &fixed).unwrap_err();
+        assert!(matches!(e, AnalysisError::InvalidParameter { name: "drainage", .. }), "{e:?}");
+    }
+
+    #[test]
+    fn every_choice_that_cannot_apply_is_refused_by_its_field() {
+        let m = Model::typical();
+        let readings = sample(&m, &HAND_SCHEDULE_MIN, 0.001, 0.0, 0);
+        let named = |choices: StepChoices| match reduce_with(&readings, choices) {
+            Err(AnalysisError::InvalidParameter { name, .. }) => name,
+            Err(AnalysisError::TooFewPoints { what, needed: 2, .. }) => what,
+            other => panic!("{choices:?}: {other:?}"),
+        };
+        let none = StepChoices::default();
+        for (field, window) in [
+            ("taylor_window_min", [10.0, 5.0]),         // a ≥ b
+            ("taylor_window_min", [f64::NAN, 5.0]),     // not finite
+            ("primary_window_min", [-1.0, 5.0]),        // negative
+            ("primary_window_min", [9.0, 14.0]),        // no node inside (8 and 15 min lie outside)
+            ("secondary_window_min", [2000.0, 3000.0]), // past the last reading (1440 min)
+            ("secondary_window_min", [400.0, 500.0]),   // one node (480 min)
+        ] {
+            let choices = match field {
+                "taylor_window_min" => StepChoices { taylor_window_min: Some(window), ..none },
+                "primary_window_min" => StepChoices { primary_window_min: Some(window), ..none },
+                _ => StepChoices { secondary_window_min: Some(window), ..none },
+            };
+            assert_eq!(named(choices), field, "{window:?}");
+        }
+        // Readings run 2.5 … ≈ 3.57 mm: d0 / d100 beyond a span either side, or not finite, are refused.
+        assert_eq!(named(StepChoices { d0_mm: Some(10.0), ..none }), "d0_mm");
+        assert_eq!(named(StepChoices { d100_mm: Some(f64::INFINITY), ..none }), "d100_mm");
+        assert_eq!(named(StepChoices { d0_mm: Some(3.0), d100_mm: Some(2.9), ..none }), "d100_mm");
+        // A d0 past the construction's d100 leaves no primary.
+        assert_eq!(named(StepChoices { d0_mm: Some(3.6), ..none }), "d0_mm");
+        assert_eq!(named(StepChoices { t50_min: Some(0.0), ..none }), "t50_min");
+        assert_eq!(named(StepChoices { t90_min: Some(2000.0), ..none }), "t90_min");
+        // A construction choice on a swelling step.
+        let swelling: Vec<(f64, f64)> = readings.iter().map(|&(t, d)| (t, -d)).collect();
+        let e = reduce_with(&swelling, StepChoices { t90_min: Some(10.0), ..none }).unwrap_err();
+        assert!(matches!(e, AnalysisError::InvalidParameter { name: "t90_min", .. }), "{e:?}");
+        // Within the margin the same choices reduce.
+        assert!(reduce_with(&readings, StepChoices { d0_mm: Some(2.4), t90_min: Some(1440.0), ..none }).is_ok());
     }
 }

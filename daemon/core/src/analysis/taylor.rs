@@ -1,14 +1,16 @@
 //! Taylor's square-root-of-time construction (Taylor 1942, 1948 [ref: taylor-root-time]): straight early
 //! part → corrected zero d0, a line with abscissae `factor` × larger →
 //! t90 and d90 where it meets the curve, d100 = d0 + (d90 − d0)/0.9. It only reads the curve; cv from t90
-//! is the caller's (it needs the drainage path).
+//! is the caller's (it needs the drainage path). An engineer's choices (a √t window, d0, d100, t90) replace
+//! what they name and the construction proceeds from them; checking them against the data is the caller's.
 
 use serde::Serialize;
 
 use super::curve::PreparedCurve;
-use super::fit::{Line, grow_straight_run};
+use super::fit::{Line, fit_line, grow_straight_run};
 use super::flags::{Flag, push_unique};
 use super::interp::Pchip;
+use super::review::StepChoices;
 use super::{AnalysisError, check_range};
 
 /// The straight part may start anywhere in the first this share of the rise from the first node to its own
@@ -134,7 +136,27 @@ impl TaylorResult {
 }
 
 /// Runs the √t construction on a prepared curve. `Err` only for parameters out of range.
+#[cfg(test)]
 pub(crate) fn taylor(curve: &PreparedCurve, params: &TaylorParams) -> Result<TaylorResult, AnalysisError> {
+    taylor_with(curve, params, &StepChoices::default())
+}
+
+/// The nodes `first..=last` of the curve whose times lie in `[a, b]` min (`None` when none do).
+pub(crate) fn nodes_in_window(curve: &PreparedCurve, [a, b]: [f64; 2]) -> Option<(usize, usize)> {
+    let first = curve.nodes.partition_point(|n| n.t_min < a);
+    let end = curve.nodes.partition_point(|n| n.t_min <= b);
+    (end > first).then(|| (first, end - 1))
+}
+
+/// [`taylor`] with an engineer's choices: `taylor_window_min` fits the straight line to exactly the nodes in
+/// it (least squares, no residual rule, no U ≤ 60 % cap); `d0_mm` is the corrected zero the construction line
+/// starts from; `d100_mm` replaces d0 + (d90 − d0)/0.9; `t90_min` replaces where the line meets the curve.
+/// d50 and t50 follow from the d0 and d100 used. The choices must have been checked against the curve.
+pub(crate) fn taylor_with(
+    curve: &PreparedCurve,
+    params: &TaylorParams,
+    choices: &StepChoices,
+) -> Result<TaylorResult, AnalysisError> {
     params.check()?;
     let mut result = TaylorResult::empty(params.factor);
     let nodes = &curve.nodes;
@@ -150,10 +172,20 @@ pub(crate) fn taylor(curve: &PreparedCurve, params: &TaylorParams) -> Result<Tay
         return Ok(result);
     };
 
+    if let Some(window) = choices.taylor_window_min {
+        // The engineer's window: exactly its nodes, however they lie.
+        if let Some((first, last)) = nodes_in_window(curve, window) {
+            let acc = (first..=last).map(|j| (curve.sqrt_t[j], nodes[j].d_mm));
+            let fitted = fit_line(acc).map(|line| (line, last + 1 - first));
+            construct_from(curve, &pchip, params, choices, first, last, fitted, false, &mut result);
+        }
+        apply_t90(choices, &mut result);
+        return Ok(result);
+    }
     // Pass 1: the residual rule alone, from the start that gives the longest straight part.
     let first = straight_start(curve, first, params.min_fit_points);
     let mut last = straight_end(curve, first, nodes.len() - 1, params.min_fit_points);
-    construct(curve, &pchip, params, first, last, false, &mut result);
+    construct(curve, &pchip, params, choices, first, last, false, &mut result);
     // Pass 2: cut nodes beyond U = max_fit_degree, judged by pass 1's d0 and d100.
     if let (Some(d0), Some(d100)) = (result.d0_mm, result.d100_mm) {
         let cap = d0 + params.max_fit_degree * (d100 - d0);
@@ -169,10 +201,18 @@ pub(crate) fn taylor(curve: &PreparedCurve, params: &TaylorParams) -> Result<Tay
                 });
             }
             last = straight_end(curve, first, below.max(shortest), params.min_fit_points);
-            construct(curve, &pchip, params, first, last, true, &mut result);
+            construct(curve, &pchip, params, choices, first, last, true, &mut result);
         }
     }
+    apply_t90(choices, &mut result);
     Ok(result)
+}
+
+/// A t90 set directly replaces the construction's (its d90 and d100 stay the construction's).
+fn apply_t90(choices: &StepChoices, result: &mut TaylorResult) {
+    if let Some(t90) = choices.t90_min {
+        result.t90_min = Some(t90);
+    }
 }
 
 /// Where the straight part starts. Of the first [`MAX_STARTS`] nodes from `first`, a start counts when its
@@ -205,11 +245,13 @@ fn straight_end(curve: &PreparedCurve, first: usize, limit: usize, seed: usize) 
     first + joined.max(1) - 1
 }
 
-/// The construction on the straight run `first..=last`.
+/// The construction on the straight run `first..=last` (residual rule over it).
+#[allow(clippy::too_many_arguments)]
 fn construct(
     curve: &PreparedCurve,
     pchip: &Pchip,
     params: &TaylorParams,
+    choices: &StepChoices,
     first: usize,
     last: usize,
     capped_by_degree: bool,
@@ -218,17 +260,40 @@ fn construct(
     let nodes = &curve.nodes;
     let points = (first..=last).map(|j| (curve.sqrt_t[j], nodes[j].d_mm, curve.tolerance_causal_mm(j)));
     let (_, acc) = grow_straight_run(points, params.min_fit_points);
-    let Some(line) = acc.line() else {
+    let fitted = acc.line().map(|line| (line, acc.len()));
+    if fitted.is_none() {
         push_unique(
             &mut result.flags,
             Flag::FitWindowTooShort { construction: "√t straight part", points: acc.len(), needed: 2 },
         );
+    }
+    construct_from(curve, pchip, params, choices, first, last, fitted, capped_by_degree, result);
+}
+
+/// The construction from the straight line fitted over `first..=last` (`fitted`: the line and how many
+/// nodes it was fitted to; `None` when no line could be fitted), with the d0 and d100 an engineer set.
+#[allow(clippy::too_many_arguments)]
+fn construct_from(
+    curve: &PreparedCurve,
+    pchip: &Pchip,
+    params: &TaylorParams,
+    choices: &StepChoices,
+    first: usize,
+    last: usize,
+    fitted: Option<(Line, usize)>,
+    capped_by_degree: bool,
+    result: &mut TaylorResult,
+) {
+    let nodes = &curve.nodes;
+    let Some((line, points)) = fitted else {
+        result.d0_mm = choices.d0_mm;
+        finish(curve, pchip, None, choices.d100_mm, result);
         return;
     };
-    if acc.len() < WEAK_FIT_POINTS {
+    if points < WEAK_FIT_POINTS {
         push_unique(
             &mut result.flags,
-            Flag::FitWindowTooShort { construction: "√t straight part", points: acc.len(), needed: WEAK_FIT_POINTS },
+            Flag::FitWindowTooShort { construction: "√t straight part", points, needed: WEAK_FIT_POINTS },
         );
     }
     result.straight = Some(StraightFit {
@@ -236,14 +301,16 @@ fn construct(
         last_node: last,
         t_start_min: nodes[first].t_min,
         t_end_min: nodes[last].t_min,
-        points: acc.len(),
+        points,
         line,
         capped_by_degree,
     });
-    let d0 = line.intercept;
+    // The corrected zero is the straight line's intercept, or where the engineer put it.
+    let d0 = choices.d0_mm.unwrap_or(line.intercept);
     result.d0_mm = Some(d0);
     if line.slope <= 0.0 {
         push_unique(&mut result.flags, Flag::NetSwelling);
+        finish(curve, pchip, Some(line), choices.d100_mm, result);
         return;
     }
     let construction_line = Line { slope: line.slope / params.factor, intercept: d0 };
@@ -254,13 +321,21 @@ fn construct(
     let above = pchip.eval(from) > construction_line.at(from);
     let Some(x90) = pchip.first_crossing(&construction_line, from).filter(|_| above) else {
         push_unique(&mut result.flags, Flag::T90NotReached);
+        finish(curve, pchip, Some(line), choices.d100_mm, result);
         return;
     };
     let d90 = pchip.eval(x90);
-    let d100 = d0 + (d90 - d0) / 0.9;
-    let d50 = 0.5 * (d0 + d100);
     result.t90_min = Some(x90 * x90);
     result.d90_mm = Some(d90);
+    finish(curve, pchip, Some(line), Some(choices.d100_mm.unwrap_or(d0 + (d90 - d0) / 0.9)), result);
+}
+
+/// d100, then d50 = (d0 + d100)/2 and t50 where the curve reaches it; before the first node the curve is
+/// the straight part `line` itself.
+fn finish(curve: &PreparedCurve, pchip: &Pchip, line: Option<Line>, d100: Option<f64>, result: &mut TaylorResult) {
+    let nodes = &curve.nodes;
+    let (Some(d0), Some(d100)) = (result.d0_mm, d100) else { return };
+    let d50 = 0.5 * (d0 + d100);
     result.d100_mm = Some(d100);
     result.d50_mm = Some(d50);
     let small = SMALL_PRIMARY_RESOLUTIONS * curve.gauge_resolution_mm;
@@ -272,7 +347,7 @@ fn construct(
     }
     // t50 on the curve; before the first node the curve is the straight part itself.
     let x50 = if nodes[0].d_mm >= d50 {
-        Some((d50 - d0) / line.slope).filter(|x| *x >= 0.0)
+        line.filter(|l| l.slope > 0.0).map(|l| (d50 - l.intercept) / l.slope).filter(|x| *x >= 0.0)
     } else {
         pchip.first_crossing(&Line { slope: 0.0, intercept: d50 }, curve.sqrt_t[0])
     };
