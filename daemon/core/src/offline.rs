@@ -13,11 +13,12 @@ use toml::Spanned;
 
 use crate::analysis::compression::{Branch, CurveBasis, StatePoint};
 use crate::analysis::curve::{MAX_DISPLACEMENT_MM, MAX_TIME_MIN};
-use crate::analysis::cv::Method;
+use crate::analysis::cv::{Drainage, Method};
 use crate::analysis::secondary::secondary_compression;
 use crate::analysis::{
-    AnalysisError, CurveUnavailable, Flag, IncrementParams, IncrementReduction, ReductionRules, SpecimenMeasurements,
-    StepInput, StepReduction, TestInput, TestSpecimen, phase_relations, reduce_increment, reduce_test,
+    AnalysisError, CompressionChoices, CurveUnavailable, Flag, IncrementParams, IncrementReduction, ReductionRules,
+    SpecimenMeasurements, StepChoices, StepInput, StepReduction, TestChoices, TestInput, TestSpecimen, phase_relations,
+    reduce_increment, reduce_test,
 };
 use crate::diagnostics::{at_prefix, field_at, line_column};
 use crate::quantity::{MAX_STRESS_KPA, STRESS_ALLOWED, STRESS_RESOLUTION_KPA};
@@ -568,6 +569,50 @@ pub(crate) struct TestFile {
     /// `[[increment]]`, in the order applied.
     #[serde(default, rename = "increment")]
     pub(crate) increments: Vec<IncrementEntry>,
+    /// `[review]`: an engineer's choices over the e–log σ′ constructions.
+    pub(crate) review: Option<ReviewEntry>,
+}
+
+/// `[review]`: the e–log σ′ choices (`CompressionChoices`), each replacing what the construction proposes.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct ReviewEntry {
+    /// Cc is the line through exactly these loading points, kPa.
+    pub(crate) virgin_points_kpa: Option<Spanned<Vec<f64>>>,
+    /// Cr is the line through exactly these unload–reload points, kPa.
+    pub(crate) unload_reload_points_kpa: Option<Spanned<Vec<f64>>>,
+    /// Casagrande's σ′p construction starts from the point of greatest curvature at this stress, kPa.
+    pub(crate) max_curvature_kpa: Option<Spanned<f64>>,
+    /// σ′p set directly, kPa.
+    pub(crate) sigma_p_kpa: Option<Spanned<f64>>,
+    /// σ′v0 for OCR, kPa.
+    pub(crate) sigma_v0_kpa: Option<Spanned<f64>>,
+}
+
+impl ReviewEntry {
+    /// Where the value of the field `name` is written.
+    fn span(&self, name: &str) -> Option<Range<usize>> {
+        match name {
+            "virgin_points_kpa" => self.virgin_points_kpa.as_ref().map(Spanned::span),
+            "unload_reload_points_kpa" => self.unload_reload_points_kpa.as_ref().map(Spanned::span),
+            "max_curvature_kpa" => self.max_curvature_kpa.as_ref().map(Spanned::span),
+            "sigma_p_kpa" => self.sigma_p_kpa.as_ref().map(Spanned::span),
+            "sigma_v0_kpa" => self.sigma_v0_kpa.as_ref().map(Spanned::span),
+            _ => None,
+        }
+    }
+
+    fn choices(&self) -> CompressionChoices {
+        let points = |v: &Option<Spanned<Vec<f64>>>| v.as_ref().map(|v| v.get_ref().clone());
+        let value = |v: &Option<Spanned<f64>>| v.as_ref().map(|v| *v.get_ref());
+        CompressionChoices {
+            virgin_points_kpa: points(&self.virgin_points_kpa),
+            unload_reload_points_kpa: points(&self.unload_reload_points_kpa),
+            max_curvature_kpa: value(&self.max_curvature_kpa),
+            sigma_p_kpa: value(&self.sigma_p_kpa),
+            sigma_v0_kpa: value(&self.sigma_v0_kpa),
+        }
+    }
 }
 
 /// `[specimen]`: what was measured before and after the test.
@@ -602,6 +647,41 @@ pub(crate) struct IncrementEntry {
     pub(crate) settlement_mm: Spanned<f64>,
     /// A time-curve CSV for the increment, relative to the test file.
     pub(crate) readings: Option<Spanned<String>>,
+    /// An engineer's choice: the √t straight line through the readings between these two times, min.
+    pub(crate) taylor_window_min: Option<Spanned<Vec<f64>>>,
+    /// The log-t inflection tangent through the readings between these two times, min.
+    pub(crate) primary_window_min: Option<Spanned<Vec<f64>>>,
+    /// The log-t secondary line through the readings between these two times, min.
+    pub(crate) secondary_window_min: Option<Spanned<Vec<f64>>>,
+    /// d0 set directly, mm, on the time curve's gauge.
+    pub(crate) d0_mm: Option<Spanned<f64>>,
+    /// d100 set directly, mm, on the time curve's gauge.
+    pub(crate) d100_mm: Option<Spanned<f64>>,
+    /// t50 set directly, min.
+    pub(crate) t50_min: Option<Spanned<f64>>,
+    /// t90 set directly, min.
+    pub(crate) t90_min: Option<Spanned<f64>>,
+    /// `double` (Hdr = H/2, the default) or `single` (Hdr = H) drainage for this increment.
+    pub(crate) drainage: Option<Spanned<Drainage>>,
+}
+
+impl IncrementEntry {
+    /// Where the value of the choice `name` is written.
+    fn span(&self, name: &str) -> Option<Range<usize>> {
+        let window = |w: &Option<Spanned<Vec<f64>>>| w.as_ref().map(Spanned::span);
+        let value = |v: &Option<Spanned<f64>>| v.as_ref().map(Spanned::span);
+        match name {
+            "taylor_window_min" => window(&self.taylor_window_min),
+            "primary_window_min" => window(&self.primary_window_min),
+            "secondary_window_min" => window(&self.secondary_window_min),
+            "d0_mm" => value(&self.d0_mm),
+            "d100_mm" => value(&self.d100_mm),
+            "t50_min" => value(&self.t50_min),
+            "t90_min" => value(&self.t90_min),
+            "drainage" => self.drainage.as_ref().map(Spanned::span),
+            _ => None,
+        }
+    }
 }
 
 /// One increment of `analyze test`.
@@ -653,6 +733,8 @@ pub(crate) struct ReportStep {
     pub(crate) flags: Vec<String>,
     /// Their codes.
     pub(crate) flag_codes: Vec<&'static str>,
+    /// The file's choices this increment's values were taken from, by key (`taylor_window_min`, `d100_mm`, …).
+    pub(crate) adjusted: Vec<&'static str>,
 }
 
 /// `analyze test`: the e–log σ′ reduction of a whole test. The first keys are the command's contract.
@@ -664,12 +746,21 @@ pub struct TestReport {
     pub(crate) e0: f64,
     /// Each increment, in the order applied.
     pub(crate) increments: Vec<ReportStep>,
-    /// Cc on the virgin branch: the steepest straight run of consecutive loading points past the break.
+    /// Cc on the virgin branch: the steepest straight run of consecutive loading points past the break, or
+    /// the line through `[review] virgin_points_kpa`.
     pub(crate) cc: Option<f64>,
-    /// Cr on the first unload–reload cycle; null without unloading.
+    /// Whether Cc is the line through the engineer's points.
+    pub(crate) cc_adjusted: bool,
+    /// Cr on the first unload–reload cycle (or through `[review] unload_reload_points_kpa`); null without
+    /// unloading.
     pub(crate) cr: Option<f64>,
-    /// σ′p by Casagrande's construction, kPa.
+    /// Whether Cr is the line through the engineer's points.
+    pub(crate) cr_adjusted: bool,
+    /// σ′p, kPa: `[review] sigma_p_kpa` when given, else Casagrande's construction (from the engineer's
+    /// point of greatest curvature when `[review] max_curvature_kpa` is given).
     pub(crate) sigma_p_kpa: Option<f64>,
+    /// Whether σ′p was set or its construction started by the engineer.
+    pub(crate) sigma_p_adjusted: bool,
     /// σ′p by the strain-energy (work) method, kPa [ref: preconsolidation-work].
     pub(crate) sigma_p_work_kpa: Option<f64>,
     /// Test-level remarks (each increment's are in its own `flags`).
@@ -684,8 +775,12 @@ pub struct TestReport {
     pub(crate) cr_stresses_kpa: Vec<f64>,
     /// CR = Cc/(1 + e0).
     pub(crate) compression_ratio: Option<f64>,
-    /// OCR = σ′p (Casagrande)/σ′v0.
+    /// OCR = σ′p/σ′v0, with the σ′p of `sigma_p_kpa`.
     pub(crate) ocr: Option<f64>,
+    /// σ′p by Casagrande's construction, kPa, beside an engineer's σ′p.
+    pub(crate) sigma_p_casagrande_kpa: Option<f64>,
+    /// The `[review]` keys the e–log σ′ values were taken from.
+    pub(crate) adjusted: Vec<&'static str>,
     /// OCR from the work σ′p.
     pub(crate) ocr_work: Option<f64>,
     /// Stress at the point of maximum curvature of Casagrande's construction, kPa.
@@ -773,8 +868,73 @@ pub(crate) fn analyze_test_source(source: &str, path: &Path, read: ReadFile<'_>)
     let check = Checker { source, path };
     let specimen = check_specimen(&check, &file)?;
     let (curves, values) = read_steps(&check, &file, &specimen, read)?;
-    let reduced = reduce_file_test(&specimen, &values, &curves);
+    let choices = file_choices(&check, &file)?;
+    let reduced = reduce_file_test(&specimen, &values, &curves, &choices);
     report(&check, &file, &specimen, &reduced)
+}
+
+/// The engineer's choices written in the file: each increment's, and the `[review]` table's. Their values are
+/// checked against the data by the reduction, which names the field refused.
+fn file_choices(check: &Checker<'_>, file: &TestFile) -> Result<TestChoices, OfflineError> {
+    let mut steps = Vec::new();
+    for (i, inc) in file.increments.iter().enumerate() {
+        let window = |w: &Option<Spanned<Vec<f64>>>, name: &str| match w {
+            None => Ok(None),
+            Some(w) => match w.get_ref()[..] {
+                [a, b] => Ok(Some([a, b])),
+                ref other => Err(check.field(
+                    Some(w.span()),
+                    format!("increment[{i}].{name}"),
+                    format!("{} values given (allowed two times in min, [start, end])", other.len()),
+                )),
+            },
+        };
+        let value = |v: &Option<Spanned<f64>>| v.as_ref().map(|v| *v.get_ref());
+        let choices = StepChoices {
+            taylor_window_min: window(&inc.taylor_window_min, "taylor_window_min")?,
+            primary_window_min: window(&inc.primary_window_min, "primary_window_min")?,
+            secondary_window_min: window(&inc.secondary_window_min, "secondary_window_min")?,
+            d0_mm: value(&inc.d0_mm),
+            d100_mm: value(&inc.d100_mm),
+            t50_min: value(&inc.t50_min),
+            t90_min: value(&inc.t90_min),
+            drainage: inc.drainage.as_ref().map(|d| *d.get_ref()),
+        };
+        if choices.is_empty() {
+            continue;
+        }
+        if inc.readings.is_none() {
+            let name = ["taylor_window_min", "primary_window_min", "secondary_window_min", "d0_mm", "d100_mm"]
+                .into_iter()
+                .chain(["t50_min", "t90_min", "drainage"])
+                .find(|n| inc.span(n).is_some())
+                .unwrap_or("readings");
+            return Err(check.field(
+                inc.span(name),
+                format!("increment[{i}].{name}"),
+                "a choice over the time-curve constructions needs the increment's time curve (readings = \"…\")",
+            ));
+        }
+        steps.push((i, choices));
+    }
+    let compression = file.review.as_ref().map(ReviewEntry::choices).unwrap_or_default();
+    Ok(TestChoices { steps, compression })
+}
+
+/// The field an analysis refusal names, and what it says about the value.
+fn refused_field(error: &AnalysisError) -> Option<(&'static str, String)> {
+    match error {
+        AnalysisError::InvalidParameter { name, value, allowed } if value.is_nan() => {
+            Some((*name, format!("not allowed (allowed {allowed})")))
+        }
+        AnalysisError::InvalidParameter { name, value, allowed } => {
+            Some((*name, format!("{value} is not allowed (allowed {allowed})")))
+        }
+        AnalysisError::TooFewPoints { what, needed, got } => {
+            Some((*what, format!("{got} points inside; needs at least {needed}")))
+        }
+        _ => None,
+    }
 }
 
 /// The `[specimen]` table checked, with its phase relations.
@@ -898,6 +1058,7 @@ fn reduce_file_test(
     specimen: &CheckedSpecimen,
     values: &[(f64, f64)],
     curves: &[Option<Vec<(f64, f64)>>],
+    choices: &TestChoices,
 ) -> crate::analysis::TestReduction {
     let (measurements, h0) = (&specimen.measurements, specimen.phase.height_mm);
     let steps: Vec<StepInput<'_>> = values
@@ -921,7 +1082,8 @@ fn reduce_file_test(
         sigma_v0_kpa: specimen.sigma_v0_kpa,
     };
     let rules = ReductionRules::default();
-    reduce_test(&TestInput { specimen: input_specimen, steps: &steps, deflection: None, rules: &rules, choices: None })
+    let choices = (!choices.is_empty()).then_some(choices);
+    reduce_test(&TestInput { specimen: input_specimen, steps: &steps, deflection: None, rules: &rules, choices })
 }
 
 /// The command's report from the reduction, each refusal placed in the file.
@@ -940,6 +1102,12 @@ fn report(
         let Some(readings) = &inc.readings else { continue };
         let csv_path = base.join(readings.get_ref());
         if let Some(error) = &step.curve_refused {
+            // A refused choice is placed at its key in this increment's table.
+            if let Some((name, message)) = refused_field(error)
+                && let Some(span) = inc.span(name)
+            {
+                return Err(check.field(Some(span), format!("increment[{i}].{name}"), message));
+            }
             let problem = OfflineError::Analysis { path: csv_path, error: error.clone() };
             return Err(check.readings(i, readings, problem));
         }
@@ -957,6 +1125,12 @@ fn report(
     }
     let compression = match &reduced.compression {
         Ok(c) => c,
+        Err(CurveUnavailable::Refused(error))
+            if let Some((name, message)) = refused_field(error)
+                && let Some(span) = file.review.as_ref().and_then(|r| r.span(name)) =>
+        {
+            return Err(check.field(Some(span), format!("review.{name}"), message));
+        }
         Err(CurveUnavailable::Refused(error) | CurveUnavailable::Specimen(error)) => {
             return Err(OfflineError::Analysis { path: path.to_path_buf(), error: error.clone() });
         }
@@ -995,14 +1169,18 @@ fn report(
         .collect();
     let stresses = |indices: &[usize]| indices.iter().map(|&i| compression.points[i].stress_kpa).collect::<Vec<f64>>();
     let casagrande = compression.sigma_p_casagrande.as_ref();
+    let adjusted = |name: &str| compression.adjusted.contains(&name);
     let (flags, flag_codes) = split_remarks(&remarks);
     Ok(TestReport {
         hs_mm: hs,
         e0: compression.e0,
         increments,
         cc: compression.cc.as_ref().map(|l| l.index),
+        cc_adjusted: adjusted("virgin_points_kpa"),
         cr: compression.cr.as_ref().map(|l| l.index),
-        sigma_p_kpa: casagrande.map(|c| c.sigma_p_kpa),
+        cr_adjusted: adjusted("unload_reload_points_kpa"),
+        sigma_p_kpa: compression.sigma_p_chosen_kpa.or(casagrande.map(|c| c.sigma_p_kpa)),
+        sigma_p_adjusted: adjusted("sigma_p_kpa") || adjusted("max_curvature_kpa"),
         sigma_p_work_kpa: compression.sigma_p_work.as_ref().map(|w| w.sigma_p_kpa),
         flags,
         flag_codes,
@@ -1010,7 +1188,9 @@ fn report(
         cc_stresses_kpa: compression.cc.as_ref().map(|l| stresses(&l.points)).unwrap_or_default(),
         cr_stresses_kpa: compression.cr.as_ref().map(|l| stresses(&l.points)).unwrap_or_default(),
         compression_ratio: compression.compression_ratio,
-        ocr: compression.ocr_casagrande,
+        ocr: compression.ocr_chosen.or(compression.ocr_casagrande),
+        sigma_p_casagrande_kpa: casagrande.map(|c| c.sigma_p_kpa),
+        adjusted: compression.adjusted.clone(),
         ocr_work: compression.ocr_work,
         max_curvature_stress_kpa: casagrande.map(|c| c.max_curvature_stress_kpa),
         e_per_log_cycle: casagrande.map(|c| c.e_per_log_cycle),
@@ -1063,6 +1243,7 @@ fn increment_row(state: &StatePoint, step: &StepReduction, entry: &IncrementEntr
         readings: entry.readings.as_ref().map(|r| r.get_ref().clone()),
         flags,
         flag_codes,
+        adjusted: curve.map(|c| c.adjusted.clone()).unwrap_or_default(),
     }
 }
 
@@ -1129,18 +1310,30 @@ impl TestReport {
                 format!(" ({what} through {} kPa)", s.iter().map(|&v| fmt_g(v)).collect::<Vec<_>>().join(", "))
             }
         };
+        let mark = |adjusted: bool| if adjusted { " (adjusted)" } else { "" };
         let _ = writeln!(
             out,
-            "Cc = {}{}, CR = Cc/(1 + e0) = {}",
+            "Cc = {}{}{}, CR = Cc/(1 + e0) = {}",
             fixed(self.cc, 4),
+            mark(self.cc_adjusted),
             through("virgin line", &self.cc_stresses_kpa),
             fixed(self.compression_ratio, 4)
         );
-        let _ = writeln!(out, "Cr = {}{}", fixed(self.cr, 4), through("unload–reload", &self.cr_stresses_kpa));
         let _ = writeln!(
             out,
-            "σ′p = {} kPa (Casagrande; maximum curvature at {} kPa, {} e per log cycle drawn), {} kPa (strain energy)",
-            significant(self.sigma_p_kpa, 4),
+            "Cr = {}{}{}",
+            fixed(self.cr, 4),
+            mark(self.cr_adjusted),
+            through("unload–reload", &self.cr_stresses_kpa)
+        );
+        if self.adjusted.contains(&"sigma_p_kpa") {
+            let _ = writeln!(out, "σ′p = {} kPa (adjusted)", significant(self.sigma_p_kpa, 4));
+        }
+        let _ = writeln!(
+            out,
+            "σ′p = {} kPa (Casagrande{}; maximum curvature at {} kPa, {} e per log cycle drawn), {} kPa (strain energy)",
+            significant(self.sigma_p_casagrande_kpa, 4),
+            if self.adjusted.contains(&"max_curvature_kpa") { ", adjusted" } else { "" },
             significant(self.max_curvature_stress_kpa, 4),
             significant(self.e_per_log_cycle, 3),
             significant(self.sigma_p_work_kpa, 4)
@@ -1148,6 +1341,17 @@ impl TestReport {
         if self.ocr.is_some() || self.ocr_work.is_some() {
             let _ =
                 writeln!(out, "OCR = {} (Casagrande), {} (strain energy)", fixed(self.ocr, 2), fixed(self.ocr_work, 2));
+        }
+        if !self.adjusted.is_empty() {
+            let _ = writeln!(out, "adjusted by the engineer's [review]: {}", self.adjusted.join(", "));
+        }
+        for (i, r) in self.increments.iter().enumerate().filter(|(_, r)| !r.adjusted.is_empty()) {
+            let _ = writeln!(
+                out,
+                "increment[{i}] ({} kPa): time-curve values from the file's choices (adjusted: {})",
+                fmt_g(r.stress_kpa),
+                r.adjusted.join(", ")
+            );
         }
         let mut lines: Vec<String> = self.flags.iter().map(|f| format!("test: {f}")).collect();
         for (i, r) in self.increments.iter().enumerate() {
@@ -1475,6 +1679,64 @@ mod tests {
             assert!(json.get(key).is_some(), "{key}");
         }
         assert!(json["cr"].is_null() && json["sigma_p_kpa"].is_null());
+    }
+
+    #[test]
+    fn choices_in_the_file_are_applied_and_named_and_bad_ones_refused_at_their_key() {
+        let dir = tempfile::tempdir().unwrap();
+        write(dir.path(), "c.csv", &csv(&dense_times(), curve_mm));
+        let settlement = 0.5 + curve_mm(1440.0);
+        // The increment with the curve is the last table, so keys appended to the file are its own.
+        let base = test_text(&[(25.0, 0.5, None), (50.0, settlement, Some("c.csv"))]);
+        let path = dir.path().join("t.toml");
+        let reduce = |extra: &str| analyze_test_source(&format!("{base}{extra}"), &path);
+        let automatic = reduce("").unwrap();
+        assert!(automatic.increments[1].adjusted.is_empty() && !automatic.cc_adjusted);
+        // t90 set directly and single drainage: cv = 0.848·Hdr²/t90 [ref: cv-formula] with Hdr the whole
+        // height at d50 instead of half of it [ref: drainage-path] (computed).
+        let r = reduce("t90_min = 100\ndrainage = \"single\"\n").unwrap();
+        let (inc, auto) = (&r.increments[1], &automatic.increments[1]);
+        assert_eq!(inc.adjusted, vec!["t90_min", "drainage"]);
+        assert_eq!(inc.t90_min, Some(100.0));
+        let hdr = inc.drainage_path_taylor_mm.unwrap();
+        assert!((hdr - 2.0 * auto.drainage_path_taylor_mm.unwrap()).abs() < 1e-12);
+        assert!((inc.cv_taylor_mm2_per_min.unwrap() - 0.848 * hdr * hdr / 100.0).abs() < 1e-9);
+        let table = r.to_table();
+        assert!(
+            table.contains(
+                "increment[1] (50 kPa): time-curve values from the file's choices (adjusted: t90_min, drainage)"
+            ),
+            "{table}"
+        );
+        // Each bad choice names the file, its line and column and its key.
+        let line_of = |text: &str, key: &str| text[..text.rfind(key).unwrap()].lines().count() + 1;
+        for (extra, key, want) in [
+            (
+                "taylor_window_min = [30, 10]\n",
+                "taylor_window_min",
+                "increment[1].taylor_window_min: 10 is not allowed",
+            ),
+            ("primary_window_min = [1, 2, 3]\n", "primary_window_min", "3 values given"),
+            ("secondary_window_min = [2000, 3000]\n", "secondary_window_min", "0 points inside; needs at least 2"),
+            ("d100_mm = 50\n", "d100_mm", "increment[1].d100_mm: 50 is not allowed"),
+            ("t50_min = -2\n", "t50_min", "increment[1].t50_min: -2 is not allowed"),
+            ("drainage = \"triple\"\n", "drainage", "increment[1].drainage: unknown variant `triple`"),
+        ] {
+            let text = format!("{base}{extra}");
+            let err = analyze_test_source(&text, &path).unwrap_err().to_string();
+            let line = line_of(&text, key);
+            assert!(err.contains(&format!("t.toml: line {line}, column")) && err.contains(want), "{err}");
+        }
+        // A choice on an increment without a time curve.
+        let text = format!("{}d0_mm = 0.1\n", test_text(&[(25.0, 0.5, None)]));
+        let err = analyze_test_source(&text, &path).unwrap_err().to_string();
+        let line = line_of(&text, "d0_mm");
+        assert!(err.contains(&format!("line {line}, column 9: increment[0].d0_mm: a choice")), "{err}");
+        // [review]: a point the test never applied, and an unknown key.
+        let err = reduce("\n[review]\nvirgin_points_kpa = [25, 150]\n").unwrap_err().to_string();
+        assert!(err.contains("review.virgin_points_kpa: 150 is not allowed"), "{err}");
+        let err = reduce("\n[review]\ncc_points = [25, 50]\n").unwrap_err().to_string();
+        assert!(err.contains("review.cc_points: unknown field `cc_points`"), "{err}");
     }
 
     proptest! {
