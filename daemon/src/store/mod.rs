@@ -31,7 +31,7 @@ pub use read::{Poll, latest_reading, polls};
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 use std::sync::atomic::{AtomicU64, Ordering};
-use std::sync::mpsc::{Receiver, RecvTimeoutError, Sender, channel};
+use std::sync::mpsc::{Receiver, RecvTimeoutError, Sender, TryRecvError, channel};
 use std::time::{Duration, Instant};
 
 use rusqlite::{Connection, OpenFlags, params};
@@ -242,6 +242,8 @@ pub struct Writer {
     tx: Sender<Op>,
     queued: Arc<AtomicU64>,
     commits: Arc<AtomicU64>,
+    /// The writer thread, woken for what cannot wait for the batch's flush (a job, closing).
+    thread: std::thread::Thread,
 }
 
 /// The writer thread's handle: close it to commit the last batch and stop.
@@ -262,11 +264,14 @@ impl Writer {
         let (tx, rx) = channel();
         let queued = Arc::new(AtomicU64::new(0));
         let commits = Arc::new(AtomicU64::new(0));
-        let writer = Writer { tx, queued: queued.clone(), commits: commits.clone() };
         let thread = std::thread::Builder::new()
             .name("oedolog-store".into())
-            .spawn(move || write_loop(conn, rx, policy, queued, commits, on_commit))
+            .spawn({
+                let (queued, commits) = (queued.clone(), commits.clone());
+                move || write_loop(conn, rx, policy, queued, commits, on_commit)
+            })
             .expect("spawn the store writer thread");
+        let writer = Writer { tx, queued, commits, thread: thread.thread().clone() };
         WriterThread { writer, thread: Some(thread) }
     }
 
@@ -302,6 +307,7 @@ impl Writer {
             (keep, reply)
         }));
         self.tx.send(op).map_err(|_| StoreError::WriterGone)?;
+        self.thread.unpark();
         reply_rx.recv().map_err(|_| StoreError::WriterGone)?
     }
 
@@ -332,6 +338,7 @@ impl WriterThread {
     /// Commits what is queued and stops the thread.
     pub fn close(mut self) {
         let _ = self.writer.tx.send(Op::Close);
+        self.writer.thread.unpark();
         if let Some(thread) = self.thread.take() {
             let _ = thread.join();
         }
@@ -341,6 +348,7 @@ impl WriterThread {
 impl Drop for WriterThread {
     fn drop(&mut self) {
         let _ = self.writer.tx.send(Op::Close);
+        self.writer.thread.unpark();
         if let Some(thread) = self.thread.take() {
             let _ = thread.join();
         }
@@ -392,14 +400,19 @@ fn write_loop(
             if closing || urgent || batch.readings.len() >= policy.max_batch {
                 break;
             }
-            let now = Instant::now();
-            if now >= deadline {
-                break;
-            }
-            match rx.recv_timeout(deadline - now) {
+            // Take what is queued; when nothing is, sleep to the flush deadline rather than block on the
+            // channel: a blocked receiver is woken by every reading (a context switch each, most of the
+            // writer's CPU under load), a parked thread only by `run` and `close`, which unpark it.
+            match rx.try_recv() {
                 Ok(op) => next = Some(op),
-                Err(RecvTimeoutError::Timeout) => break,
-                Err(RecvTimeoutError::Disconnected) => {
+                Err(TryRecvError::Empty) => {
+                    let now = Instant::now();
+                    if now >= deadline {
+                        break;
+                    }
+                    std::thread::park_timeout(deadline - now);
+                }
+                Err(TryRecvError::Disconnected) => {
                     closing = true;
                     break;
                 }

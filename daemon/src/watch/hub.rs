@@ -34,6 +34,9 @@ struct State {
     pending: HashMap<i64, (usize, i64, Option<f64>, Option<f64>)>,
 }
 
+/// How long the watch lets readings gather after taking a batch of them.
+const GATHER: Duration = Duration::from_millis(20);
+
 /// Shared handle to every frame's watch.
 #[derive(Clone)]
 pub struct Hub {
@@ -118,25 +121,14 @@ impl Hub {
         loop {
             match rx.recv_timeout(Duration::from_millis(250)) {
                 Ok(reading) => {
-                    let Some(&index) = keys.get(&reading.frame_key) else { continue };
-                    let flushed = {
-                        let mut state = self.lock();
-                        let entry =
-                            state.pending.entry(reading.frame_key).or_insert((index, reading.at_us, None, None));
-                        let flushed = (entry.1 != reading.at_us).then_some(*entry);
-                        if flushed.is_some() {
-                            *entry = (index, reading.at_us, None, None);
-                        }
-                        match reading.channel {
-                            ChannelKind::Displacement => entry.2 = Some(reading.value),
-                            ChannelKind::Load => entry.3 = Some(reading.value),
-                            ChannelKind::Temperature => {}
-                        }
-                        flushed
-                    };
-                    if let Some((i, at, d, l)) = flushed {
-                        self.feed(i, at, d, l);
+                    self.take(&keys, reading);
+                    // Take what else is queued, then let readings gather for a moment: a receiver blocked on
+                    // the channel is woken by every reading (a context switch each, most of the watch's CPU
+                    // under load); the watch's decisions are about seconds, not milliseconds.
+                    while let Ok(reading) = rx.try_recv() {
+                        self.take(&keys, reading);
                     }
+                    std::thread::sleep(GATHER);
                 }
                 Err(RecvTimeoutError::Timeout) => {
                     // A quiet bus: hand over polls that are complete by now.
@@ -147,6 +139,29 @@ impl Hub {
                 }
                 Err(RecvTimeoutError::Disconnected) => return,
             }
+        }
+    }
+
+    /// Pairs a reading with the others of its poll; feeds the previous poll of its frame once it is
+    /// complete.
+    fn take(&self, keys: &HashMap<i64, usize>, reading: Reading) {
+        let Some(&index) = keys.get(&reading.frame_key) else { return };
+        let flushed = {
+            let mut state = self.lock();
+            let entry = state.pending.entry(reading.frame_key).or_insert((index, reading.at_us, None, None));
+            let flushed = (entry.1 != reading.at_us).then_some(*entry);
+            if flushed.is_some() {
+                *entry = (index, reading.at_us, None, None);
+            }
+            match reading.channel {
+                ChannelKind::Displacement => entry.2 = Some(reading.value),
+                ChannelKind::Load => entry.3 = Some(reading.value),
+                ChannelKind::Temperature => {}
+            }
+            flushed
+        };
+        if let Some((i, at, d, l)) = flushed {
+            self.feed(i, at, d, l);
         }
     }
 
