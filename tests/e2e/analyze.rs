@@ -333,6 +333,97 @@ fn venkatramaiah_example_7_1_as_a_two_increment_file() {
 }
 
 #[test]
+fn review_virgin_points_reproduce_venkatramaiah_example_7_1_where_the_automatic_cc_differs() {
+    // A loading branch holding Venkatramaiah Ex 7.1's pair — σ′ 50 → 100 kN/m², e 0.70 → 0.65, Cc = 0.166
+    // [ref: compression-index] (read) — that goes on steeper to 400 kPa, then unloads and reloads (invented
+    // points, demo data). The automatic Cc is the steepest straight run, 100–200–400 kPa: 0.1/log10 2 = 0.332
+    // (computed); `[review] virgin_points_kpa = [50, 100]` makes it the example's 0.05/log10 2 = 0.1661.
+    // Specimen as in the two-increment file above: Hs = 11.53123 mm, e0 = 0.73442 (by hand).
+    let hs = 60.0 / (2.65 * 0.001 * std::f64::consts::PI * 50.0 * 50.0 / 4.0);
+    let e0 = (20.0 - hs) / hs;
+    let states = [
+        (25.0, 0.72),
+        (50.0, 0.70),
+        (100.0, 0.65),
+        (200.0, 0.55),
+        (400.0, 0.45),
+        (100.0, 0.47),
+        (200.0, 0.462),
+        (400.0, 0.451),
+    ];
+    let mut text =
+        "[specimen]\ndiameter_mm = 50\nheight_mm = 20\ndry_mass_g = 60\nspecific_gravity = 2.65\n".to_string();
+    for (s, e) in states {
+        text += &increment_toml(s, (e0 - e) * hs, None);
+    }
+    let dir = temp_dir();
+    let automatic = write(dir.path(), "auto.toml", &text);
+    let r = analyze_json(&["analyze", "test", automatic.to_str().unwrap(), "--json"]);
+    assert!((number(&r, "cc") - 0.3322).abs() < 1e-3, "automatic cc {}", r["cc"]);
+    assert_eq!(r["cc_adjusted"], false);
+    let chosen = write(dir.path(), "chosen.toml", &format!("{text}\n[review]\nvirgin_points_kpa = [50, 100]\n"));
+    let r = analyze_json(&["analyze", "test", chosen.to_str().unwrap(), "--json"]);
+    let cc = number(&r, "cc");
+    assert!((cc - 0.16610).abs() < 5e-5 && (cc * 1000.0).round() == 166.0, "cc {cc}");
+    assert_eq!(r["cc_adjusted"], true);
+    assert_eq!((r["cr_adjusted"].clone(), r["sigma_p_adjusted"].clone()), (Value::Bool(false), Value::Bool(false)));
+    assert_eq!(r["cc_stresses_kpa"], serde_json::json!([50.0, 100.0]));
+    assert_eq!(r["adjusted"], serde_json::json!(["virgin_points_kpa"]));
+    // The points of the curve are the file's either way.
+    for (inc, (_, e)) in r["increments"].as_array().unwrap().iter().zip(states) {
+        assert!((number(inc, "e") - e).abs() < 1e-9, "{inc}");
+    }
+    let table = oedolog(&["analyze", "test", chosen.to_str().unwrap()]);
+    assert!(table.status.success(), "{}", table.stderr);
+    assert!(table.stdout.contains("Cc = 0.1661 (adjusted) (virgin line through 50, 100 kPa)"), "{}", table.stdout);
+
+    // A point the test never applied, or a key the table does not have: refused naming file, line and key.
+    let bad = write(dir.path(), "bad-review.toml", &format!("{text}\n[review]\nvirgin_points_kpa = [50, 150]\n"));
+    let line = text.lines().count() + 3;
+    let done = oedolog(&["analyze", "test", bad.to_str().unwrap(), "--json"]);
+    check_refused(
+        &done,
+        "bad-review.toml",
+        &format!("line {line}, column 21: review.virgin_points_kpa: 150 is not allowed"),
+    );
+    let unknown = write(dir.path(), "unknown-review.toml", &format!("{text}\n[review]\ncc_points = [50, 100]\n"));
+    let done = oedolog(&["analyze", "test", unknown.to_str().unwrap(), "--json"]);
+    check_refused(&done, "unknown-review.toml", &format!("line {line}, column 1: review.cc_points: unknown field"));
+}
+
+#[test]
+fn increment_choices_set_t90_and_the_drainage_and_a_bad_window_is_refused_by_its_key() {
+    // The dense curve of the test below (cv 1.5 mm²/min); `t90_min = 100` and `drainage = "single"` give
+    // cv = 0.848·Hdr²/100 with Hdr the whole height at d50 [ref: cv-formula] [ref: drainage-path] (computed).
+    let dir = temp_dir();
+    let curve = Curve::scenario(1.5);
+    write(dir.path(), "inc1.csv", &curve.csv(&dense_schedule(), 0.002));
+    let end_mm = 0.4 + (curve.displacement_mm(1440.0) / 0.002).round() * 0.002;
+    let text =
+        format!("{SPECIMEN_75}{}{}", increment_toml(50.0, 0.4, None), increment_toml(100.0, end_mm, Some("inc1.csv")));
+    let automatic = analyze_json(&["analyze", "test", write(dir.path(), "a.toml", &text).to_str().unwrap(), "--json"]);
+    let chosen_text = format!("{text}t90_min = 100\ndrainage = \"single\"\n");
+    let r = analyze_json(&["analyze", "test", write(dir.path(), "c.toml", &chosen_text).to_str().unwrap(), "--json"]);
+    let (inc, auto) = (&r["increments"][1], &automatic["increments"][1]);
+    assert_eq!(inc["adjusted"], serde_json::json!(["t90_min", "drainage"]));
+    assert_eq!(auto["adjusted"], serde_json::json!([]));
+    let hdr = number(inc, "drainage_path_taylor_mm");
+    assert!((hdr - 2.0 * number(auto, "drainage_path_taylor_mm")).abs() < 1e-9);
+    assert!((number(inc, "cv_taylor_mm2_per_min") - 0.848 * hdr * hdr / 100.0).abs() < 1e-9);
+    assert_eq!(number(inc, "t90_min"), 100.0);
+
+    let bad_text = format!("{text}taylor_window_min = [30, 10]\n");
+    let line = bad_text.lines().count();
+    let bad = write(dir.path(), "bad-window.toml", &bad_text);
+    let done = oedolog(&["analyze", "test", bad.to_str().unwrap(), "--json"]);
+    check_refused(
+        &done,
+        "bad-window.toml",
+        &format!("line {line}, column 21: increment[1].taylor_window_min: 10 is not allowed"),
+    );
+}
+
+#[test]
 fn test_file_time_curves_give_cv_and_the_end_of_primary() {
     // Three increments; the second has a dense time curve from the series with cv = 1.5 mm²/min and the
     // drainage path the specimen really had: half its height at 50 % consolidation, H50 = H0 − (settlement
