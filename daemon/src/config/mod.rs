@@ -182,14 +182,16 @@ pub fn split_host_port(authority: &str) -> Option<(&str, Option<&str>)> {
     Some((host, port))
 }
 
-/// What a user may do.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize)]
+/// What a user may do; each role may do all the one before it may (`viewer` < `operator` < `engineer`).
+#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, serde::Serialize)]
 #[serde(rename_all = "lowercase")]
 pub enum Role {
     /// Reads everything, changes nothing.
     Viewer,
-    /// May start tests, arm increments, add notes.
+    /// May start tests, arm load steps, add notes.
     Operator,
+    /// May also adjust a reduction's constructions and approve a test.
+    Engineer,
 }
 
 /// One `[[http.user]]`.
@@ -493,7 +495,11 @@ impl NotifyEvent {
             | EventKind::TestFinished
             | EventKind::TestResumed
             | EventKind::StepVoided
-            | EventKind::StepRestored => Some(NotifyEvent::Test),
+            | EventKind::StepRestored
+            | EventKind::Revised
+            | EventKind::RevisionWithdrawn
+            | EventKind::Approved
+            | EventKind::ApprovalWithdrawn => Some(NotifyEvent::Test),
             EventKind::BusDown | EventKind::BusUp => Some(NotifyEvent::Bus),
             EventKind::ReseatProposed | EventKind::ReseatResolved => Some(NotifyEvent::Reseat),
             EventKind::LoadOff | EventKind::LoadBack | EventKind::LoadChangeUnarmed => Some(NotifyEvent::Load),
@@ -1097,8 +1103,13 @@ fn check_users(c: &mut Checker<'_>, http: &raw::RawHttp) -> Vec<User> {
         let role = match u.role.get_ref().as_str() {
             "viewer" => Some(Role::Viewer),
             "operator" => Some(Role::Operator),
+            "engineer" => Some(Role::Engineer),
             other => {
-                c.at(u.role.span(), field("role"), format!("`{other}` is not allowed (allowed: viewer, operator)"));
+                c.at(
+                    u.role.span(),
+                    field("role"),
+                    format!("`{other}` is not allowed (allowed: viewer, operator, engineer)"),
+                );
                 None
             }
         };

@@ -64,6 +64,9 @@ pub enum ApiError {
     /// A viewer tried to act: 403.
     #[error("user `{0}` is a viewer: reading only (an operator may act)")]
     Forbidden(String),
+    /// Someone other than a signed-in engineer tried to adjust or approve: 403, saying who may.
+    #[error("{0}")]
+    NotEngineer(String),
     /// A limit of the daemon reached (event streams): 503 with `Retry-After`.
     #[error("{0}")]
     Busy(String),
@@ -94,7 +97,7 @@ impl ApiError {
             ApiError::NotFound(_) => StatusCode::NOT_FOUND,
             ApiError::Conflict(_) => StatusCode::CONFLICT,
             ApiError::Unauthorized => StatusCode::UNAUTHORIZED,
-            ApiError::Forbidden(_) => StatusCode::FORBIDDEN,
+            ApiError::Forbidden(_) | ApiError::NotEngineer(_) => StatusCode::FORBIDDEN,
             ApiError::Busy(_) => StatusCode::SERVICE_UNAVAILABLE,
             ApiError::Internal(_) => StatusCode::INTERNAL_SERVER_ERROR,
         }

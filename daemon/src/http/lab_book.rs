@@ -192,6 +192,14 @@ async fn finish(
 struct TestDetail {
     test: TestRow,
     increments: Vec<IncrementView>,
+    /// The engineer whose approval is in force, or null.
+    approved_by: Option<String>,
+    /// When, RFC 3339 UTC, or null.
+    approved_at: Option<String>,
+    /// Every revision (adjustment or withdrawal), oldest first.
+    revisions: Vec<queries::RevisionView>,
+    /// Every approval, oldest first, withdrawn ones marked.
+    approvals: Vec<queries::ApprovalView>,
 }
 
 pub(crate) fn test_id(text: &str) -> Result<i64, ApiError> {
@@ -204,7 +212,18 @@ pub(crate) fn test_id(text: &str) -> Result<i64, ApiError> {
 async fn get_test(State(state): State<AppState>, Path(id): Path<String>) -> Result<Json<TestDetail>, ApiError> {
     let id = test_id(&id)?;
     let detail = state
-        .read(move |conn| Ok(TestDetail { test: queries::test(conn, id)?, increments: queries::increments(conn, id)? }))
+        .read(move |conn| {
+            let test = queries::test(conn, id)?;
+            let (review, _) = queries::review_of(conn, id)?;
+            Ok(TestDetail {
+                test,
+                increments: queries::increments(conn, id)?,
+                approved_by: review.approval.as_ref().map(|a| a.by.clone()),
+                approved_at: review.approval.as_ref().map(|a| a.at.clone()),
+                revisions: review.revisions,
+                approvals: review.approvals,
+            })
+        })
         .await?;
     Ok(Json(detail))
 }

@@ -21,6 +21,7 @@ mod metrics;
 mod overview;
 mod queries;
 mod report;
+mod review;
 mod serve;
 mod web;
 mod words;
@@ -196,7 +197,9 @@ async fn me(State(state): State<AppState>, caller: Option<axum::Extension<Caller
     Json(serde_json::json!({
         "name": name,
         "role": role,
-        "may_act": role == crate::config::Role::Operator,
+        "may_act": role >= crate::config::Role::Operator,
+        // Adjusting a construction or approving a test needs a signed-in engineer: an approval names a person.
+        "may_review": caller.is_some() && role == crate::config::Role::Engineer,
         "authentication": !state.users.is_empty(),
     }))
 }
@@ -215,6 +218,7 @@ pub fn router(state: AppState) -> Router {
         .merge(metrics::router())
         .merge(overview::router())
         .merge(report::router())
+        .merge(review::router())
         .merge(web::router())
         .fallback(web::fallback)
         .layer(axum::middleware::from_fn_with_state(state.clone(), auth::require_user))

@@ -10,8 +10,8 @@ use crate::config::Frame;
 use crate::store::read::{self, StoredIncrement, StoredTest};
 use crate::store::{EventKind, Reader, TestState, journal};
 use oedolog_core::analysis::{
-    CompressionReduction, DeflectionCalibration, IncrementReduction, PhaseRelations, ReductionRules, StepInput,
-    TestInput, TestSpecimen, reduce_increment, reduce_test_with,
+    CompressionChoices, CompressionReduction, DeflectionCalibration, IncrementReduction, PhaseRelations,
+    ReductionRules, StepChoices, StepInput, TestChoices, TestInput, TestSpecimen, reduce_increment, reduce_test_with,
 };
 use oedolog_core::watch::OnsetSource;
 use std::sync::Arc;
@@ -258,6 +258,202 @@ pub(crate) struct IncrementSummary {
     /// Why the analysis refused the increment's time curve, if it did.
     #[serde(skip)]
     pub curve_refused: Option<String>,
+    /// The same refusal as the core gave it (a review names the field of a choice from it).
+    #[serde(skip)]
+    pub curve_refused_error: Option<oedolog_core::analysis::AnalysisError>,
+    /// The values an engineer's revision set rather than the constructions, by field name; empty when the
+    /// step stands as proposed.
+    pub adjusted: Vec<&'static str>,
+    /// The revision in force for this step: who made it, when and why.
+    pub revision: Option<RevisionView>,
+    /// The automatic proposal's values, beside the adjusted ones (only when something was adjusted).
+    pub proposal: Option<StepValues>,
+}
+
+/// The values of a load step an engineer's review is about, as proposed or adjusted.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub(crate) struct StepValues {
+    /// Cumulative compression at the end of primary, mm.
+    pub settlement_eop_mm: Option<f64>,
+    /// t50, min.
+    pub t50_min: Option<f64>,
+    /// t90, min.
+    pub t90_min: Option<f64>,
+    /// cv(√t), mm²/min.
+    pub cv_taylor_mm2_per_min: Option<f64>,
+    /// cv(log t), mm²/min.
+    pub cv_casagrande_mm2_per_min: Option<f64>,
+    /// The cv proposed for the step, mm²/min.
+    pub cv_mm2_per_min: Option<f64>,
+    /// Cα(ε).
+    pub c_alpha_strain: Option<f64>,
+}
+
+impl IncrementSummary {
+    /// The values a review compares.
+    pub(crate) fn values(&self) -> StepValues {
+        StepValues {
+            settlement_eop_mm: self.settlement_eop_mm,
+            t50_min: self.t50_min,
+            t90_min: self.t90_min,
+            cv_taylor_mm2_per_min: self.cv_taylor_mm2_per_min,
+            cv_casagrande_mm2_per_min: self.cv_casagrande_mm2_per_min,
+            cv_mm2_per_min: self.cv_mm2_per_min,
+            c_alpha_strain: self.c_alpha_strain,
+        }
+    }
+}
+
+/// The values of the e–log σ′ curve a review is about.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub(crate) struct CurveValues {
+    /// Cc.
+    pub cc: Option<f64>,
+    /// Cr.
+    pub cr: Option<f64>,
+    /// σ′p by Casagrande's construction, kPa.
+    pub sigma_p_casagrande_kpa: Option<f64>,
+    /// σ′p by the work method, kPa.
+    pub sigma_p_work_kpa: Option<f64>,
+    /// σ′p as the engineer set it, kPa.
+    pub sigma_p_chosen_kpa: Option<f64>,
+}
+
+impl CurveValues {
+    pub(crate) fn of(c: Option<&CompressionReduction>) -> CurveValues {
+        CurveValues {
+            cc: c.and_then(|c| c.cc.as_ref()).map(|l| l.index),
+            cr: c.and_then(|c| c.cr.as_ref()).map(|l| l.index),
+            sigma_p_casagrande_kpa: c.and_then(|c| c.sigma_p_casagrande.as_ref()).map(|p| p.sigma_p_kpa),
+            sigma_p_work_kpa: c.and_then(|c| c.sigma_p_work.as_ref()).map(|p| p.sigma_p_kpa),
+            sigma_p_chosen_kpa: c.and_then(|c| c.sigma_p_chosen_kpa),
+        }
+    }
+}
+
+/// One revision as the API shows it.
+#[derive(Clone, Debug, Serialize)]
+pub(crate) struct RevisionView {
+    /// `revisions.id`.
+    pub id: i64,
+    /// The load step, or null for the e–log σ′ curve.
+    pub seq: Option<i64>,
+    /// The choices (null for a withdrawal).
+    pub choices: Option<serde_json::Value>,
+    /// The revision a withdrawal takes back.
+    pub withdraws: Option<i64>,
+    /// Why.
+    pub reason: String,
+    /// Who.
+    pub by: String,
+    /// When, RFC 3339 UTC.
+    pub at: String,
+    /// Values before and after.
+    pub before: serde_json::Value,
+    /// See `before`.
+    pub after: serde_json::Value,
+    /// Whether it is in force now (the latest of its scope not taken back).
+    pub in_force: bool,
+}
+
+/// One approval as the API shows it.
+#[derive(Clone, Debug, Serialize)]
+pub(crate) struct ApprovalView {
+    /// `approvals.id`.
+    pub id: i64,
+    /// Who approved.
+    pub by: String,
+    /// When, RFC 3339 UTC.
+    pub at: String,
+    /// The note.
+    pub note: String,
+    /// The revisions then in force.
+    pub revisions: serde_json::Value,
+    /// The approved values.
+    pub frozen: serde_json::Value,
+    /// When a later revision withdrew it.
+    pub withdrawn_at: Option<String>,
+    /// That revision.
+    pub withdrawn_by_revision: Option<i64>,
+}
+
+/// A test's review: every revision and approval, which are in force, and the curve's adjustments.
+#[derive(Clone, Debug, Default, Serialize)]
+pub(crate) struct Review {
+    /// Every revision, oldest first.
+    pub revisions: Vec<RevisionView>,
+    /// Every approval, oldest first.
+    pub approvals: Vec<ApprovalView>,
+    /// The approval in force, if any.
+    pub approval: Option<ApprovalView>,
+    /// What the engineer set on the e–log σ′ curve, by field name.
+    pub compression_adjusted: Vec<&'static str>,
+    /// The curve's revision in force.
+    pub compression_revision: Option<RevisionView>,
+    /// The curve's automatic values, beside the adjusted ones (only when something was adjusted).
+    pub compression_proposal: Option<CurveValues>,
+}
+
+/// The choices in force, by scope: (load step `seq`, or `None` for the e–log σ′ curve; choices as JSON).
+pub(crate) type ScopedChoices = Vec<(Option<i64>, String)>;
+
+/// A test's revisions and approvals as the API shows them, and the choices in force.
+pub(crate) fn review_of(conn: &Reader, test_id: i64) -> Result<(Review, ScopedChoices), ApiError> {
+    use crate::store::review;
+    let stored = review::revisions(conn, test_id)?;
+    let force: Vec<i64> = review::in_force(&stored).iter().map(|r| r.id).collect();
+    let json = |text: &str| serde_json::from_str(text).unwrap_or(serde_json::Value::Null);
+    let revisions: Vec<RevisionView> = stored
+        .iter()
+        .map(|r| RevisionView {
+            id: r.id,
+            seq: r.seq,
+            choices: r.choices.as_deref().map(json),
+            withdraws: r.withdraws,
+            reason: r.reason.clone(),
+            by: r.actor.clone(),
+            at: rfc3339(r.at_us),
+            before: json(&r.before),
+            after: json(&r.after),
+            in_force: force.contains(&r.id),
+        })
+        .collect();
+    let approvals: Vec<ApprovalView> = review::approvals(conn, test_id)?
+        .into_iter()
+        .map(|a| ApprovalView {
+            id: a.id,
+            by: a.actor,
+            at: rfc3339(a.at_us),
+            note: a.note,
+            revisions: json(&a.revisions),
+            frozen: json(&a.frozen),
+            withdrawn_at: a.withdrawn_us.map(rfc3339),
+            withdrawn_by_revision: a.withdrawn_by_revision,
+        })
+        .collect();
+    let approval = approvals.iter().rev().find(|a| a.withdrawn_at.is_none()).cloned();
+    let choices = review::in_force(&stored).iter().map(|r| (r.seq, r.choices.clone().unwrap_or_default())).collect();
+    Ok((Review { revisions, approvals, approval, ..Review::default() }, choices))
+}
+
+/// The choices in force (`(seq or None, JSON)`) as the core takes them, step indices from `rows`. A stored
+/// choice that no longer parses (written by a newer version) is left out and logged.
+pub(crate) fn test_choices(rows: &[IncrementView], stored: &[(Option<i64>, String)]) -> TestChoices {
+    let mut choices = TestChoices::default();
+    for (seq, text) in stored {
+        match seq {
+            Some(seq) => match (rows.iter().position(|r| r.seq == *seq), serde_json::from_str::<StepChoices>(text)) {
+                (Some(index), Ok(c)) => choices.steps.push((index, c)),
+                (_, Err(error)) => tracing::warn!("load step {seq}: stored choices unreadable: {error}"),
+                (None, _) => {}
+            },
+            None => match serde_json::from_str::<CompressionChoices>(text) {
+                Ok(c) => choices.compression = c,
+                Err(error) => tracing::warn!("stored curve choices unreadable: {error}"),
+            },
+        }
+    }
+    choices
 }
 
 /// A whole test reduced: the increments' summaries and the e–log σ′ curve.
@@ -276,6 +472,11 @@ pub(crate) struct TestSummary {
     /// Whether every settlement was corrected for apparatus deflection (the frame's `deflection` table
     /// covers every stress of the test).
     pub apparatus_corrected: bool,
+    /// The engineer's review: revisions, approvals, what is adjusted.
+    pub review: Review,
+    /// The core's refusal of the e–log σ′ reduction, when an engineer's choice was refused.
+    #[serde(skip)]
+    pub compression_refused: Option<oedolog_core::analysis::AnalysisError>,
 }
 
 impl TestRow {
@@ -306,6 +507,21 @@ pub(crate) fn reduce_test(
     now_us: i64,
     frames: &[Frame],
 ) -> Result<TestSummary, ApiError> {
+    reduce_test_trying(conn, caches, commits, id, now_us, frames, None)
+}
+
+/// [`reduce_test`] with `trial` — (seq or `None` for the curve, choices as JSON or `None` for none) — in
+/// force on top of the stored revisions: how a revision about to be saved, or previewed, reduces. Nothing
+/// is written.
+pub(crate) fn reduce_test_trying(
+    conn: &Reader,
+    caches: &Caches,
+    commits: u64,
+    id: i64,
+    now_us: i64,
+    frames: &[Frame],
+    trial: Option<(Option<i64>, Option<String>)>,
+) -> Result<TestSummary, ApiError> {
     let test = test(conn, id)?;
     let zero = zero_reading(conn, &test)?;
     let calibration = match frames.iter().find(|f| f.id == test.frame).and_then(|f| f.deflection.as_ref()) {
@@ -320,6 +536,12 @@ pub(crate) fn reduce_test(
         None => None,
     };
     let rows = increments(conn, id)?;
+    let (mut review, mut stored_choices) = review_of(conn, id)?;
+    if let Some((seq, text)) = trial {
+        stored_choices.retain(|(s, _)| *s != seq);
+        stored_choices.extend(text.map(|t| (seq, t)));
+    }
+    let choices = test_choices(&rows, &stored_choices);
     let mut stamps = Vec::with_capacity(rows.len());
     let mut curves = Vec::with_capacity(rows.len());
     for row in &rows {
@@ -341,27 +563,78 @@ pub(crate) fn reduce_test(
         })
         .collect();
     let rules = ReductionRules::default();
-    let input = TestInput {
-        specimen: test.specimen(),
-        steps: &steps,
-        deflection: calibration.as_ref(),
-        rules: &rules,
-        choices: None,
+    // A step's automatic reduction is kept in the caches; one with an engineer's choices is reduced afresh.
+    let reduce = |chosen: &TestChoices| {
+        let input = TestInput {
+            specimen: test.specimen(),
+            steps: &steps,
+            deflection: calibration.as_ref(),
+            rules: &rules,
+            choices: Some(chosen),
+        };
+        reduce_test_with(&input, |index, readings, params| {
+            if !chosen.step(index).is_empty() {
+                return reduce_increment(readings, params);
+            }
+            let key = (test.id, rows[index].seq);
+            let kept = caches.reductions.get_or_build(&key, &stamps[index], |_| {
+                Ok::<_, std::convert::Infallible>(Arc::new(reduce_increment(readings, params)))
+            });
+            match kept {
+                Ok(r) => Result::clone(&r),
+                Err(never) => match never {},
+            }
+        })
     };
-    let reduced = reduce_test_with(&input, |index, readings, params| {
-        let key = (test.id, rows[index].seq);
-        let kept = caches.reductions.get_or_build(&key, &stamps[index], |_| {
-            Ok::<_, std::convert::Infallible>(Arc::new(reduce_increment(readings, params)))
-        });
-        match kept {
-            Ok(r) => Result::clone(&r),
-            Err(never) => match never {},
+    let proposal = reduce(&TestChoices::default());
+    let adjusted = (!choices.is_empty()).then(|| reduce(&choices));
+    let proposal_summaries = summaries(id, &rows, &curves, proposal.steps.clone());
+    let reduced = adjusted.unwrap_or_else(|| proposal.clone());
+    let mut increments = summaries(id, &rows, &curves, reduced.steps.clone());
+    let revision_of = |seq: Option<i64>| review.revisions.iter().find(|r| r.in_force && r.seq == seq).cloned();
+    for (summary, proposed) in increments.iter_mut().zip(&proposal_summaries) {
+        summary.adjusted = summary.curve.as_ref().map(|c| c.adjusted.clone()).unwrap_or_default();
+        summary.revision = revision_of(Some(summary.row.seq));
+        if !summary.adjusted.is_empty() {
+            summary.proposal = Some(proposed.values());
         }
-    });
-    let summaries = rows
-        .into_iter()
-        .zip(reduced.steps)
-        .zip(&curves)
+    }
+    let compression_refused = match &reduced.compression {
+        Err(oedolog_core::analysis::CurveUnavailable::Refused(e)) if proposal.compression.is_ok() => Some(e.clone()),
+        _ => None,
+    };
+    let (compression, compression_unavailable) = match reduced.compression.clone() {
+        Ok(r) => (Some(r), None),
+        Err(why) => (None, Some(why.to_string())),
+    };
+    review.compression_adjusted = compression.as_ref().map(|c| c.adjusted.clone()).unwrap_or_default();
+    if !review.compression_adjusted.is_empty() {
+        review.compression_revision = revision_of(None);
+        review.compression_proposal = Some(CurveValues::of(proposal.compression.as_ref().ok()));
+    }
+    Ok(TestSummary {
+        test,
+        increments,
+        phase: reduced.phase.and_then(Result::ok),
+        compression,
+        compression_unavailable,
+        apparatus_corrected: reduced.apparatus_corrected,
+        review,
+        compression_refused,
+    })
+}
+
+/// The load steps' summaries from one reduction of the test.
+fn summaries(
+    id: i64,
+    rows: &[IncrementView],
+    curves: &[Option<StoredCurve>],
+    steps: Vec<oedolog_core::analysis::StepReduction>,
+) -> Vec<IncrementSummary> {
+    rows.iter()
+        .cloned()
+        .zip(steps)
+        .zip(curves)
         .map(|((row, step), curve)| {
             let own = step.curve.iter().flat_map(|c| c.flags.iter()).chain(&step.deflection_flags);
             let mut flags: Vec<String> = own.clone().map(|f| f.code().to_string()).collect();
@@ -394,23 +667,15 @@ pub(crate) fn reduce_test(
                 flags,
                 flag_messages,
                 curve_refused: step.curve_refused.as_ref().map(ToString::to_string),
+                curve_refused_error: step.curve_refused.clone(),
                 curve: step.curve,
                 row,
+                adjusted: Vec::new(),
+                revision: None,
+                proposal: None,
             }
         })
-        .collect();
-    let (compression, compression_unavailable) = match reduced.compression {
-        Ok(r) => (Some(r), None),
-        Err(why) => (None, Some(why.to_string())),
-    };
-    Ok(TestSummary {
-        test,
-        increments: summaries,
-        phase: reduced.phase.and_then(Result::ok),
-        compression,
-        compression_unavailable,
-        apparatus_corrected: reduced.apparatus_corrected,
-    })
+        .collect()
 }
 
 /// One journal entry as the API gives it.

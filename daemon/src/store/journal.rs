@@ -67,6 +67,14 @@ stored_names! {
         StepVoided = "step-voided",
         /// A void load step was counted again.
         StepRestored = "step-restored",
+        /// An engineer adjusted a construction (a revision).
+        Revised = "revised",
+        /// An engineer took an adjustment back (a revision naming the one it withdraws).
+        RevisionWithdrawn = "revision-withdrawn",
+        /// An engineer approved a test's reduction.
+        Approved = "approved",
+        /// A later revision withdrew an approval.
+        ApprovalWithdrawn = "approval-withdrawn",
     }
 }
 

@@ -13,6 +13,7 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
     ("0003_notify.sql", include_str!("../../../migrations/0003_notify.sql")),
     ("0004_alarms.sql", include_str!("../../../migrations/0004_alarms.sql")),
     ("0005_void_steps.sql", include_str!("../../../migrations/0005_void_steps.sql")),
+    ("0006_review.sql", include_str!("../../../migrations/0006_review.sql")),
 ];
 
 /// The schema version this binary writes.

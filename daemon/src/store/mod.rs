@@ -20,6 +20,7 @@ pub mod migrations;
 mod names;
 pub mod notify;
 pub mod read;
+pub mod review;
 #[cfg(test)]
 pub(crate) mod testing;
 

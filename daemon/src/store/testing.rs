@@ -14,6 +14,8 @@ pub(crate) enum Table {
     Events,
     /// `readings`.
     Readings,
+    /// `revisions`.
+    Revisions,
 }
 
 /// The rows of `table`.
@@ -23,6 +25,7 @@ pub(crate) fn count(reader: &Reader, table: Table) -> i64 {
         Table::Increments => "increments",
         Table::Events => "events",
         Table::Readings => "readings",
+        Table::Revisions => "revisions",
     };
     reader.conn().query_row(&format!("SELECT count(*) FROM {name}"), [], |r| r.get(0)).expect("count rows")
 }

@@ -635,7 +635,7 @@ fn chosen_line(
         needed: 2,
         got: 1,
     })?;
-    if !(line.slope < 0.0) {
+    if line.slope >= 0.0 || line.slope.is_nan() {
         return Err(AnalysisError::InvalidParameter {
             name: field,
             value: stresses[0],
