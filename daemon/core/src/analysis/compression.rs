@@ -1373,7 +1373,8 @@ mod tests {
         })
     }
 
-    /// A random test: a monotone loading curve (stress ratios 1.25–2.5, e falling by 0–0.09 per step) with, after
+    /// A random test: a monotone loading curve (stress ratios 1.25–2.5 up to 100 000 kPa, e falling by 0–0.09 per
+    /// step) with, after
     /// loading step `loop_after` when it is inside the test, an unload–reload cycle that swells by up to 0.03 per
     /// step and recompresses by at most what it swelled, reloading back to (not past) the peak.
     fn random_test(
@@ -1386,6 +1387,11 @@ mod tests {
         let mut states = Vec::new();
         let mut loading = Vec::new();
         for (k, &(ratio, drop)) in steps.iter().enumerate() {
+            // A lab frame stops at the largest stress the reduction takes (11 ratios of 2.5 from 20 kPa would
+            // pass it).
+            if stress * ratio > MAX_STRESS_KPA {
+                break;
+            }
             stress *= ratio;
             e -= drop;
             states.push((stress, e));
