@@ -5,6 +5,8 @@
 //! each converted quantity gets a second column in the lab's unit, named by it (`stress_tsf`,
 //! `settlement_in`, `cv_taylor_ft2_per_day`); where the clock was simulated (the demo), a last column
 //! `simulated_clock_speed` says on every row that the stamps and durations are simulated, and by how much.
+//! A test an engineer adjusted gets, after the pinned columns of its load-step table, the fields set, who
+//! set them and the automatic proposal's values (see `REVIEW_COLUMNS`).
 
 use axum::Router;
 use axum::extract::{Path, State};
@@ -106,12 +108,24 @@ async fn readings(
     Ok(csv_response(format!("test-{id}-increment-{seq}-readings.csv"), body))
 }
 
+/// The columns a reviewed test's load-step table adds: the fields an engineer set (space-separated), by whom,
+/// and the automatic proposal's values beside the adjusted ones (empty where the step stands as proposed).
+pub(crate) const REVIEW_COLUMNS: [&str; 7] = [
+    "adjusted",
+    "adjusted_by",
+    "proposal_settlement_eop_mm",
+    "proposal_t50_min",
+    "proposal_t90_min",
+    "proposal_cv_taylor_mm2_per_min",
+    "proposal_cv_casagrande_mm2_per_min",
+];
+
 /// The increment table of a test.
 async fn increment_table(State(state): State<AppState>, Path(id): Path<String>) -> Result<Response, ApiError> {
     let id = test_id(&id)?;
     let reduced = state.reduce_test(id).await?;
     let mut csv = Csv::default();
-    let header = [
+    let mut header = vec![
         "seq",
         "stress_kpa",
         "from_kpa",
@@ -131,6 +145,11 @@ async fn increment_table(State(state): State<AppState>, Path(id): Path<String>) 
         "settlement_measured_mm",
         "apparatus_deflection_mm",
     ];
+    // A test an engineer adjusted says which steps, by whom, and what the constructions proposed.
+    let reviewed = reduced.increments.iter().any(|i| !i.adjusted.is_empty());
+    if reviewed {
+        header.extend(REVIEW_COLUMNS);
+    }
     let u = state.display;
     let extra = Extra::new(
         &state,
@@ -152,29 +171,42 @@ async fn increment_table(State(state): State<AppState>, Path(id): Path<String>) 
         let (armed, onset, ready, ended) =
             (text(&inc.row.armed_at), text(&inc.row.onset_at), text(&inc.row.ready_at), text(&inc.row.ended_at));
         let flags = inc.flags.join(" ");
-        extra.row(
-            &mut csv,
-            &[
-                Cell::Int(inc.row.seq),
-                Cell::Number(Some(inc.row.stress_kpa)),
-                Cell::Number(inc.row.from_kpa),
-                Cell::Text(&armed),
-                Cell::Text(&onset),
-                Cell::Text(&ready),
-                Cell::Text(&ended),
-                Cell::Int(inc.reading_count as i64),
-                Cell::Number(inc.settlement_mm),
-                Cell::Number(inc.settlement_eop_mm),
-                Cell::Number(inc.t50_min),
-                Cell::Number(inc.t90_min),
-                Cell::Number(inc.cv_taylor_mm2_per_min),
-                Cell::Number(inc.cv_casagrande_mm2_per_min),
-                Cell::Number(inc.c_alpha_strain),
-                Cell::Text(&flags),
-                Cell::Number(inc.settlement_measured_mm),
-                Cell::Number(inc.apparatus_deflection_mm),
-            ],
-        );
+        let adjusted = inc.adjusted.join(" ");
+        let by = inc.revision.as_ref().filter(|_| !inc.adjusted.is_empty()).map(|v| v.by.clone()).unwrap_or_default();
+        let p = inc.proposal.as_ref();
+        let review = [
+            Cell::Text(&adjusted),
+            Cell::Text(&by),
+            Cell::Number(p.and_then(|p| p.settlement_eop_mm)),
+            Cell::Number(p.and_then(|p| p.t50_min)),
+            Cell::Number(p.and_then(|p| p.t90_min)),
+            Cell::Number(p.and_then(|p| p.cv_taylor_mm2_per_min)),
+            Cell::Number(p.and_then(|p| p.cv_casagrande_mm2_per_min)),
+        ];
+        let mut cells = vec![
+            Cell::Int(inc.row.seq),
+            Cell::Number(Some(inc.row.stress_kpa)),
+            Cell::Number(inc.row.from_kpa),
+            Cell::Text(&armed),
+            Cell::Text(&onset),
+            Cell::Text(&ready),
+            Cell::Text(&ended),
+            Cell::Int(inc.reading_count as i64),
+            Cell::Number(inc.settlement_mm),
+            Cell::Number(inc.settlement_eop_mm),
+            Cell::Number(inc.t50_min),
+            Cell::Number(inc.t90_min),
+            Cell::Number(inc.cv_taylor_mm2_per_min),
+            Cell::Number(inc.cv_casagrande_mm2_per_min),
+            Cell::Number(inc.c_alpha_strain),
+            Cell::Text(&flags),
+            Cell::Number(inc.settlement_measured_mm),
+            Cell::Number(inc.apparatus_deflection_mm),
+        ];
+        if reviewed {
+            cells.extend(review);
+        }
+        extra.row(&mut csv, &cells);
     }
     Ok(csv_response(format!("test-{id}-increments.csv"), csv.finish()))
 }

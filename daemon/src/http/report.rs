@@ -14,6 +14,7 @@ use axum::routing::get;
 use super::lab_book::test_id;
 use super::overview::{escape, minute_text};
 use super::queries::TestSummary;
+use super::words;
 use super::{ApiError, AppState};
 use oedolog_core::analysis::{CompressionReduction, IncrementReduction};
 use oedolog_core::units::DisplayUnits;
@@ -446,7 +447,8 @@ td{{white-space:nowrap}}table.facts th{{text-align:left}}@media (min-width:40rem
 .steps{{display:grid;grid-template-columns:repeat(auto-fill,minmax(520px,1fr));gap:.6rem}}figure.step{{margin:0;break-inside:avoid}}\
 figure.step figcaption{{font-size:.85rem;font-weight:600}}.pair{{display:grid;grid-template-columns:1fr 1fr;gap:.3rem}}.step-plot{{width:100%}}\
 @page{{size:auto;margin:14mm 12mm}}.sim{{border:1px solid #e0c860;background:#fff3c4;padding:.4rem .7rem}}.plot{{max-width:640px;width:100%}}\
-.caution{{border:1px solid #c9a13b;background:#fff8e0;padding:.5rem .8rem}}.sign td{{height:2.2rem;min-width:12rem}}.units{{font-size:.9rem}}\
+.approved{{border:2px solid #1f6f43;background:#eef7f0;padding:.4rem .7rem}}.unreviewed{{border:1px dashed #8a6d1f;padding:.4rem .7rem}}\
+tr.adjusted td:first-child{{font-weight:700}}.caution{{border:1px solid #c9a13b;background:#fff8e0;padding:.5rem .8rem}}.sign td{{height:2.2rem;min-width:12rem}}.units{{font-size:.9rem}}\
 @media print{{body{{margin:0;font-size:9.5pt;max-width:none}}.noprint{{display:none}}h2{{break-after:avoid}}table{{break-inside:auto}}tr,figure{{break-inside:avoid}}\
 table.steps-table{{width:100%;font-size:8pt}}table.steps-table td,th{{white-space:normal}}table.steps-table td.l{{min-width:8em}}td,th{{padding:.15rem .25rem}}.steps{{grid-template-columns:1fr}}.plot{{max-width:150mm}}}}\
 </style></head><body>",
@@ -473,6 +475,7 @@ dates and durations below are simulated, not the lab's.</p>"
         "<p class=\"units\">Units: {}. Stored and computed in kPa, mm, mm²/min and m/s; converted for this report with the factors of NIST SP 811 (2008), Appendix B.9.</p>",
         u.sentence()
     );
+    html += &review_block(r, sim_mark, &stress_text, u);
     html += "<h2>Specimen and method</h2><table class=\"facts\">";
     let mut row = |k: &str, v: String| {
         let _ = write!(html, "<tr><th class=\"l\">{k}</th><td class=\"l\">{v}</td></tr>");
@@ -535,8 +538,14 @@ dates and durations below are simulated, not the lab's.</p>"
             html,
             "<tr data-seq=\"{}\"{}><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td class=\"l\">{}</td></tr>",
             i.row.seq,
-            if i.row.void.is_some() { " class=\"void\"" } else { "" },
-            i.row.seq,
+            if i.row.void.is_some() {
+                " class=\"void\""
+            } else if !i.adjusted.is_empty() {
+                " class=\"adjusted\""
+            } else {
+                ""
+            },
+            if i.adjusted.is_empty() { i.row.seq.to_string() } else { format!("{} ✎", i.row.seq) },
             stress(Some(i.row.stress_kpa), 4),
             length(i.settlement_mm, u),
             length(i.settlement_eop_mm, u),
@@ -554,7 +563,15 @@ dates and durations below are simulated, not the lab's.</p>"
                     words.extend(i.flag_messages.iter().cloned());
                     words.join("; ")
                 }
-                None => i.flag_messages.join("; "),
+                None => {
+                    let mut words: Vec<String> = Vec::new();
+                    if let Some(v) = i.revision.as_ref().filter(|_| !i.adjusted.is_empty()) {
+                        let fields: Vec<&str> = i.adjusted.iter().map(|f| words::choice(f)).collect();
+                        words.push(format!("adjusted by {} ({}): {}", v.by, fields.join(", "), v.reason));
+                    }
+                    words.extend(i.flag_messages.iter().cloned());
+                    words.join("; ")
+                }
             })
         );
     }
@@ -638,18 +655,41 @@ Casagrande's construction for σ′p dotted in green.</p>";
                 let _ = write!(html, "<tr><th class=\"l\">{k}</th><td>{v}</td><td class=\"l\">{how}</td></tr>");
             };
             row("e0", num(Some(c.e0), 3), "from H0 and the height of solids Hs = Ms/(Gs·ρw·A)".into());
+            let adjusted = |field: &str| r.review.compression_adjusted.contains(&field);
+            let by = r.review.compression_revision.as_ref().map_or(String::new(), |v| escape(&v.by));
+            let proposal = r.review.compression_proposal.as_ref();
             row(
                 "Cc",
                 num(c.cc.as_ref().map(|l| l.index), 3),
-                "slope of the steepest straight run of consecutive loading points past the break (virgin line)."
-                    .to_string()
-                    + &used(c.cc.as_ref()),
+                if adjusted("virgin_points_kpa") {
+                    format!(
+                        "adjusted by {by}: the line through the loading points the engineer chose (proposal {}).",
+                        num(proposal.and_then(|p| p.cc), 3)
+                    )
+                } else {
+                    "slope of the steepest straight run of consecutive loading points past the break (virgin line)."
+                        .to_string()
+                } + &used(c.cc.as_ref()),
             );
             row(
                 "Cr",
                 num(c.cr.as_ref().map(|l| l.index), 3),
-                "slope of the unload–reload branch.".to_string() + &used(c.cr.as_ref()),
+                if adjusted("unload_reload_points_kpa") {
+                    format!(
+                        "adjusted by {by}: the line through the unload–reload points the engineer chose (proposal {}).",
+                        num(proposal.and_then(|p| p.cr), 3)
+                    )
+                } else {
+                    "slope of the unload–reload branch.".to_string()
+                } + &used(c.cr.as_ref()),
             );
+            if let Some(chosen) = c.sigma_p_chosen_kpa {
+                row(
+                    "σ′p",
+                    stress_text(chosen),
+                    format!("set by the engineer ({by}); the constructions' values follow"),
+                );
+            }
             row(
                 "σ′p",
                 c.sigma_p_casagrande.as_ref().map_or("—".into(), |p| stress_text(p.sigma_p_kpa)),
@@ -682,11 +722,106 @@ Casagrande's construction for σ′p dotted in green.</p>";
         "<div class=\"caution\"><p><strong>Cautions.</strong> These results are proposals for a qualified engineer to review before they are used in design. \
 Follow the governing standard and local codes. oedolog never changes a load on a dead-weight frame: every load is put on by a person.</p></div>\
 <h2>Review</h2><table class=\"sign\"><tr><th class=\"l\">Tested by</th><td></td><th class=\"l\">Date</th><td></td></tr>\
-<tr><th class=\"l\">Checked by</th><td></td><th class=\"l\">Date</th><td></td></tr></table>\
+<tr><th class=\"l\">Checked by</th><td>{checked_by}</td><th class=\"l\">Date</th><td>{checked_at}</td></tr></table>\
 <p><small>Printed from oedolog {} at {}{sim_mark}.</small></p></body></html>",
         env!("CARGO_PKG_VERSION"),
-        super::overview::minute(now_us)
+        super::overview::minute(now_us),
+        checked_by = r.review.approval.as_ref().map_or(String::new(), |a| escape(&a.by)),
+        checked_at = r.review.approval.as_ref().map_or(String::new(), |a| format!("{}{sim_mark}", minute_text(&a.at))),
     );
+    html
+}
+
+/// Where the review stands, at the top of the report: approved (by whom, when, what it covers), or not, and
+/// every adjustment in force with the proposal beside it.
+fn review_block(r: &TestSummary, sim_mark: &str, stress_text: &dyn Fn(f64) -> String, u: &DisplayUnits) -> String {
+    let review = &r.review;
+    let mut html = String::new();
+    match &review.approval {
+        Some(a) => {
+            let steps = a.frozen["load_steps"].as_array().map_or(0, Vec::len);
+            let _ = write!(
+                html,
+                "<div class=\"approved\" data-approved-by=\"{by}\"><p><strong>Reviewed and approved by {by} on {at}{sim_mark}</strong> ({steps} load step{s}, {n} adjustment{ns}).{note}</p></div>",
+                by = escape(&a.by),
+                at = minute_text(&a.at),
+                s = if steps == 1 { "" } else { "s" },
+                n = a.revisions.as_array().map_or(0, Vec::len),
+                ns = if a.revisions.as_array().map_or(0, Vec::len) == 1 { "" } else { "s" },
+                note = if a.note.is_empty() { String::new() } else { format!(" Note: {}", escape(&a.note)) },
+            );
+        }
+        None => {
+            let withdrawn = review.approvals.last().filter(|a| a.withdrawn_at.is_some());
+            let why = match withdrawn {
+                Some(a) => format!(
+                    "The approval by {} on {}{sim_mark} was withdrawn by revision {} on {}{sim_mark}: the values below are not approved.",
+                    escape(&a.by),
+                    minute_text(&a.at),
+                    a.withdrawn_by_revision.unwrap_or_default(),
+                    a.withdrawn_at.as_deref().map(minute_text).unwrap_or_default()
+                ),
+                None => "Not yet reviewed by an engineer: the values below are the automatic proposals.".to_string(),
+            };
+            let _ = write!(html, "<p class=\"unreviewed\">{why}</p>");
+        }
+    }
+    let in_force: Vec<_> = review.revisions.iter().filter(|v| v.in_force).collect();
+    if in_force.is_empty() {
+        return html;
+    }
+    html += "<h2>Adjustments by the engineer</h2><table class=\"adjustments\"><tr><th>Scope</th><th class=\"l\">What was set</th><th class=\"l\">Proposal → adjusted</th><th class=\"l\">By, when</th><th class=\"l\">Why</th></tr>";
+    let cv = |x: Option<f64>| sig(x.map(|v| u.cv.show(v)), 3);
+    for v in in_force {
+        let (scope, fields, change) = match v.seq {
+            Some(seq) => {
+                let step = r.increments.iter().find(|i| i.row.seq == seq);
+                let fields: Vec<&str> =
+                    step.map(|s| s.adjusted.iter().map(|f| words::choice(f)).collect()).unwrap_or_default();
+                let change = match (step, step.and_then(|s| s.proposal.as_ref())) {
+                    (Some(s), Some(p)) => format!(
+                        "t50 {} → {} min; t90 {} → {} min; cv {} → {} {}",
+                        sig(p.t50_min, 3),
+                        sig(s.t50_min, 3),
+                        sig(p.t90_min, 3),
+                        sig(s.t90_min, 3),
+                        cv(p.cv_mm2_per_min),
+                        cv(s.cv_mm2_per_min),
+                        u.cv.name
+                    ),
+                    _ => "—".to_string(),
+                };
+                (format!("Load step {seq}"), fields, change)
+            }
+            None => {
+                let fields = review.compression_adjusted.iter().map(|f| words::choice(f)).collect();
+                let now = super::queries::CurveValues::of(r.compression.as_ref());
+                let change = match &review.compression_proposal {
+                    Some(p) => format!(
+                        "Cc {} → {}; Cr {} → {}; σ′p {} → {}",
+                        num(p.cc, 3),
+                        num(now.cc, 3),
+                        num(p.cr, 3),
+                        num(now.cr, 3),
+                        p.sigma_p_casagrande_kpa.map_or("—".into(), stress_text),
+                        now.sigma_p_chosen_kpa.or(now.sigma_p_casagrande_kpa).map_or("—".into(), stress_text)
+                    ),
+                    None => "—".to_string(),
+                };
+                ("e–log σ′ curve".to_string(), fields, change)
+            }
+        };
+        let _ = write!(
+            html,
+            "<tr data-revision=\"{}\"><td>{scope}</td><td class=\"l\">{}</td><td class=\"l\">{change}</td><td class=\"l\">{}, {}{sim_mark}</td><td class=\"l\">{}</td></tr>",
+            v.id,
+            escape(&fields.join(", ")),
+            escape(&v.by),
+            minute_text(&v.at),
+            escape(&v.reason)
+        );
+    }
+    html += "</table>";
     html
 }
 

@@ -38,6 +38,26 @@ pub(crate) fn span(seconds: f64) -> String {
     }
 }
 
+/// An engineer's choice (a field of the review's choices) in the words the pages and the report use.
+pub(crate) fn choice(field: &str) -> &str {
+    match field {
+        "taylor_window_min" => "√t straight-line window",
+        "primary_window_min" => "log-t primary tangent window",
+        "secondary_window_min" => "log-t secondary line window",
+        "d0_mm" => "d0",
+        "d100_mm" => "d100",
+        "t50_min" => "t50",
+        "t90_min" => "t90",
+        "drainage" => "drainage",
+        "virgin_points_kpa" => "virgin-line points (Cc)",
+        "unload_reload_points_kpa" => "unload–reload points (Cr)",
+        "max_curvature_kpa" => "point of greatest curvature (σ′p)",
+        "sigma_p_kpa" => "σ′p set directly",
+        "sigma_v0_kpa" => "σ′v0",
+        other => other,
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -280,3 +280,70 @@ async fn bad_review_input_is_refused_by_name_and_changes_nothing() {
     let journal = testing::journal(&store::reader(&b.state.store_path).unwrap());
     assert!(!journal.iter().any(|e| e.kind == EventKind::Revised));
 }
+
+#[tokio::test]
+async fn a_step_revision_reaches_the_csv_and_the_report_with_the_proposal_and_the_approval() {
+    let b = bench(true);
+    let id = test_with_steps(&b).await;
+    let report = |b: &Bench| {
+        let state = b.state.clone();
+        async move { send(&state, request("GET", &format!("/tests/{id}/report"), None, Who::Viewer)).await.2 }
+    };
+    assert!(report(&b).await.contains("Not yet reviewed by an engineer"));
+    let proposed = get(&b, &format!("/api/tests/{id}/compression")).await["increments"][2].clone();
+    let auto_t90 = proposed["t90_min"].as_f64().unwrap();
+    let chosen = (auto_t90 * 1.5 * 100.0).round() / 100.0;
+    let body = json!({"seq": 3, "choices": {"t90_min": chosen}, "reason": "t90 read by hand from the √t plot"});
+    let (status, saved) = post(&b, &format!("/api/tests/{id}/revisions"), body, Who::Engineer).await;
+    assert_eq!(status, StatusCode::CREATED, "{saved}");
+    assert_eq!(saved["adjusted"], json!(["t90_min"]));
+    let step = get(&b, &format!("/api/tests/{id}/compression")).await["increments"][2].clone();
+    assert_eq!(step["t90_min"].as_f64(), Some(chosen));
+    assert_eq!(step["proposal"]["t90_min"].as_f64(), Some(auto_t90));
+    assert_eq!(step["revision"]["by"], "erik");
+    // cv(√t) = 0.848·Hdr²/t90 [ref: cv-formula]: 1.5 × t90 gives cv / 1.5 (computed).
+    let ratio = proposed["cv_taylor_mm2_per_min"].as_f64().unwrap() / step["cv_taylor_mm2_per_min"].as_f64().unwrap();
+    assert!((ratio - chosen / auto_t90).abs() < 1e-9, "{ratio} vs {}", chosen / auto_t90);
+
+    let (_, _, csv) =
+        send(&b.state, request("GET", &format!("/api/tests/{id}/increments.csv"), None, Who::Viewer)).await;
+    let rows: Vec<Vec<&str>> = csv.lines().map(|l| l.split(',').collect()).collect();
+    let col =
+        |name: &str| rows[0].iter().position(|h| *h == name).unwrap_or_else(|| panic!("no {name}: {:?}", rows[0]));
+    assert!(rows[0].ends_with(&super::super::export::REVIEW_COLUMNS), "{:?}", rows[0]);
+    assert_eq!((rows[3][col("adjusted")], rows[3][col("adjusted_by")]), ("t90_min", "erik"));
+    assert_eq!(rows[3][col("t90_min")].parse::<f64>().unwrap(), chosen);
+    let proposal: f64 = rows[3][col("proposal_t90_min")].parse().unwrap();
+    assert!((proposal - auto_t90).abs() <= 1e-6 * auto_t90, "{proposal} vs {auto_t90}");
+    assert_eq!((rows[1][col("adjusted")], rows[1][col("proposal_t90_min")]), ("", ""), "step 1 stands as proposed");
+
+    let (status, _) =
+        post(&b, &format!("/api/tests/{id}/approve"), json!({"note": "t90 of step 3 by hand"}), Who::Engineer).await;
+    assert_eq!(status, StatusCode::CREATED);
+    let html = report(&b).await;
+    for needle in [
+        "Reviewed and approved by erik on",
+        "Adjustments by the engineer",
+        "Load step 3",
+        "t90 read by hand",
+        "3 ✎",
+        "Checked by</th><td>erik",
+    ] {
+        assert!(html.contains(needle), "the report lacks {needle:?}");
+    }
+    assert!(html.contains("qualified engineer"), "the cautions stay");
+    // A later change withdraws the approval, and the report says so.
+    let (status, _) = post(
+        &b,
+        &format!("/api/tests/{id}/revisions/{}/withdraw", saved["revision"]),
+        json!({"reason": "the plot reading was wrong"}),
+        Who::Engineer,
+    )
+    .await;
+    assert_eq!(status, StatusCode::CREATED);
+    let html = report(&b).await;
+    assert!(
+        html.contains("was withdrawn by revision") && !html.contains("Reviewed and approved by"),
+        "the report still shows the approval"
+    );
+}
