@@ -37,6 +37,7 @@
   // A sentence for an error reply: a viewer's 403 says plainly that this account only looks.
   O.errorText = function (reply) {
     const d = reply.data || {};
+    if (reply.status === 403 && /engineer/.test(d.error || "")) return d.error;
     if (reply.status === 403) return "Your account may view only — an operator has to do this. (" + (d.error || "403") + ")";
     if (reply.status === 401) return "Sign in first (the browser asks for a name and token).";
     let text = d.error || d.message || "HTTP " + reply.status;

@@ -63,6 +63,10 @@
             const px = u.valToPos(x, "x", true), py = u.valToPos(y, "y", true);
             i ? ctx.lineTo(px, py) : ctx.moveTo(px, py);
           });
+        } else if (it.ring) {
+          const [x, y] = it.ring;
+          ctx.setLineDash([]);
+          ctx.arc(u.valToPos(x, "x", true), u.valToPos(y, "y", true), 8 * devicePixelRatio, 0, 2 * Math.PI);
         } else if (it.dot) {
           const [x, y] = it.dot;
           ctx.arc(u.valToPos(x, "x", true), u.valToPos(y, "y", true), 4.5 * devicePixelRatio, 0, 2 * Math.PI);
@@ -90,6 +94,14 @@
       }
       ctx.restore();
     };
+  }
+
+  // A drag across a time chart: (chart, from, to) in minutes, for the review panel; the selection box goes.
+  function selected(u, chart, toMinutes) {
+    if (!(u.select.width > 3) || !O.onChartWindow) return;
+    const a = toMinutes(u.posToVal(u.select.left, "x")), b = toMinutes(u.posToVal(u.select.left + u.select.width, "x"));
+    u.setSelect({ left: 0, top: 0, width: 0, height: 0 }, false);
+    O.onChartWindow(chart, Math.max(0, Math.min(a, b)), Math.max(a, b));
   }
 
   function makeChart(key, hostId, opts, data) {
@@ -156,7 +168,8 @@
       scales: { x: { time: false, distr: 3 }, y: { dir: -1 } },
       axes: [Object.assign({}, baseAxis, { label: "time since loading, min (log scale)" }), yAxis],
       series: series("t min", (u, v) => fmt.sig(v, 3)),
-      hooks: { draw: [overlayHook(() => O.constructions.logt)] },
+      cursor: { drag: { x: true, y: false, setScale: false } },
+      hooks: { draw: [overlayHook(() => O.constructions.logt)], setSelect: [(u) => selected(u, "logt", (v) => v)] },
     }, logData);
     // Taylor's construction lives in the early part: unless the whole step is asked for, √t runs to 2.5·√t90
     // (or 2.5× the straight part's end), where the construction and its labels have room.
@@ -176,7 +189,9 @@
       } } },
       axes: [Object.assign({}, baseAxis, { label: "√time, √min" }), yAxis],
       series: series("√t", (u, v) => (v === null ? "—" : fmt.num(v, 2) + " (" + fmt.sig(v * v, 3) + " min)")),
-      hooks: { draw: [overlayHook(() => O.constructions.sqrt)] },
+      // An engineer drags across the readings to choose the straight part (review.js); nobody zooms by it.
+      cursor: { drag: { x: true, y: false, setScale: false } },
+      hooks: { draw: [overlayHook(() => O.constructions.sqrt)], setSelect: [(u) => selected(u, "sqrt", (v) => v * v)] },
     }, sqrtData);
 
     const cvT = red && red.cv_taylor, cvC = red && red.cv_casagrande;
@@ -203,6 +218,7 @@
     if (!cols.t.length && red && red.nodes) cols = { t: red.nodes.map((n) => n.t_min), d: red.nodes.map((n) => n.d_mm) };
     O.step = { seq, readings: rr.status, analysis: ar.status, points: cols.t.length };
     timeCharts(cols, red);
+    if (O.renderReview) O.renderReview();
     const note = document.getElementById("step-values");
     if (!rr.ok && !ar.ok) note.textContent = "No curve for step " + seq + " (" + O.errorText(rr) + ").";
     else if (!red && ar.ok && ar.data.unavailable) note.textContent = "No constructions yet: " + ar.data.unavailable + ".";
@@ -254,6 +270,9 @@
       items.push({ dot: [p, logLine(sp.virgin)(p)], color: MARK });
       items.push({ x: p, color: MARK, dash: [1, 0], label: "σ′p " + fmt.sig(p, 3) + " " + su });
     }
+    // Chosen points (review.js) ringed; a click on the chart names the point nearest it.
+    for (const i of O.chosenPoints || []) if (x[i] > 0 || linear) items.push({ ring: [x[i], y[i]], color: FIT });
+    O.compressionOrder = sorted;
     O.constructions.compression = items;
     // A few points (or one) would get uPlot's wide default range; pad around the data instead.
     const pad = (lo, hi, min) => { const span = Math.max(hi - lo, min); return [lo - span * 0.15, hi + span * 0.15]; };
@@ -264,7 +283,10 @@
       },
       axes: [Object.assign({}, baseAxis, { label: "effective stress σ′, " + su + (linear ? "" : " (log scale)") }), Object.assign({}, baseAxis, { label: "void ratio e", size: 56, values: (u, v) => v.map((a) => a.toFixed(3)) })],
       series: [{ label: "σ′ " + su }, { label: "e", stroke: INK, width: 0, paths: () => null, points: { show: true, size: 7, fill: "#fff" }, value: (u, v) => fmt.num(v, 4) }],
-      hooks: { draw: [overlayHook(() => O.constructions.compression)] },
+      hooks: { draw: [overlayHook(() => O.constructions.compression)], ready: [(u) => u.over.addEventListener("click", () => {
+        const k = u.cursor.idx;
+        if (k !== null && k !== undefined && O.onPointClick) O.onPointClick(O.compressionOrder[k]);
+      })] },
     }, data);
     const v = [];
     if (c.e0 != null) v.push("e0 " + fmt.num(c.e0, 3));
@@ -291,7 +313,12 @@
     if (!r.ok) document.getElementById("comp-values").textContent = "Curve not available: " + O.errorText(r);
     else if (!compression && r.data.compression_unavailable) document.getElementById("comp-values").textContent = "No curve yet: " + r.data.compression_unavailable;
     renderTable();
+    if (O.renderReview) O.renderReview();
   }
+  // For the review panel (review.js): draw a previewed reduction, and reload after a saved change.
+  O.drawStep = (red) => { if (O.lastStep) timeCharts(O.lastStep.cols, red); };
+  O.drawCompression = (c) => { compression = c; compressionChart(); };
+  O.reloadReview = () => { if (O.step) loadStep(O.step.seq); loadCompression(); };
 
   // A table cell of quantity q: the value in the chosen unit, and the API's SI value beside it for checks.
   const qcell = (q, si, digits, attrs) => el("td", Object.assign({ "data-quantity": q, "data-si": si ?? "" }, attrs || {}), fmt.sig(O.show(q, si), digits));

@@ -12,6 +12,7 @@ fs.mkdirSync(shots, { recursive: true });
 const STATES = ["offline", "idle", "seating", "armed", "primary", "ready", "finished"];
 const VIEWER = { username: "vera", password: "viewer-token-3f9a27c1d4" };
 const OPERATOR = { username: "otto", password: "operator-token-8b41e6c0a2" };
+const ENGINEER = { username: "erik", password: "engineer-token-5d2c9e7f13" };
 const AUTH_CONFIG = `[http]
 [[http.user]]
 name = "${VIEWER.username}"
@@ -22,6 +23,11 @@ token = "${VIEWER.password}"
 name = "${OPERATOR.username}"
 role = "operator"
 token = "${OPERATOR.password}"
+
+[[http.user]]
+name = "${ENGINEER.username}"
+role = "engineer"
+token = "${ENGINEER.password}"
 
 # A band the emulated frames (about 19.5 °C) are outside: every frame raises a temperature alarm.
 [alarms]
@@ -493,6 +499,95 @@ await step("a viewer cannot act; an operator can, and acknowledges an alarm by n
     await authDemo.stop();
   }
 }, 60000);
+
+// ---- review: an engineer adjusts a construction and approves; a viewer sees it -------------------------
+await step("an engineer drags a √t window, sees t90 change before saving, saves it; a viewer sees who; the report shows the approval", async () => {
+  const reviewDemo = await startDemo({ binary, config: AUTH_CONFIG, label: "demo for the review" });
+  const engineer = await openBrowser({ httpCredentials: ENGINEER });
+  const viewer = await openBrowser({ httpCredentials: VIEWER });
+  const asEngineer = scriptApi(reviewDemo.base, ENGINEER);
+  try {
+    // A frame whose first load step has ended.
+    let frame = null;
+    for (let i = 0; i < 60 && !frame; i++) {
+      const frames = await asEngineer("/api/frames");
+      frame = frames.find((f) => f.test && f.test.increment >= 2);
+      if (!frame) await new Promise((r) => setTimeout(r, 1000));
+    }
+    check(frame, "no frame reached its second load step");
+    const id = frame.test.test_id;
+    const before = await asEngineer("/api/tests/" + id + "/compression");
+    const proposalT90 = before.increments[0].t90_min;
+    check(proposalT90 > 0, "step 1 has no t90 to adjust: " + JSON.stringify(before.increments[0]));
+    const e = watch(await engineer.newPage(), "engineer");
+    await e.setViewportSize({ width: 1440, height: 900 });
+    await e.goto(reviewDemo.base + "/frame.html?id=" + frame.id);
+    await e.waitForFunction(() => window.oedolog.frame && window.oedolog.mayReview, null, { timeout: 20000 });
+    await e.click('#seq-pick button[data-seq="1"]');
+    await e.waitForFunction(() => window.oedolog.step && window.oedolog.step.seq === 1 && document.querySelector("#step-review-form h3")?.textContent.startsWith("Load step 1"), null, { timeout: 15000 });
+    // Drag across the √t chart from √(0.5·t90) to √(1.6·t90): a window reaching past the straight part (U ≳ 60 %,
+    // where the √t curve bends), so the line is flatter and t90 comes later (computed on the Terzaghi curve).
+    const box = await e.evaluate((t90) => {
+      const u = window.oedolog.charts.sqrt, r = u.over.getBoundingClientRect();
+      return { y: r.top + r.height / 2, a: r.left + u.valToPos(Math.sqrt(0.5 * t90), "x"), b: r.left + u.valToPos(Math.sqrt(1.6 * t90), "x") };
+    }, proposalT90);
+    await e.mouse.move(box.a, box.y);
+    await e.mouse.down();
+    await e.mouse.move((box.a + box.b) / 2, box.y, { steps: 4 });
+    await e.mouse.move(box.b, box.y, { steps: 4 });
+    await e.mouse.up();
+    await e.waitForFunction(() => document.getElementById("step-review-form").dataset.preview, null, { timeout: 10000 });
+    const shown = await e.evaluate(() => ({
+      status: document.getElementById("step-review-form").dataset.preview,
+      from: document.getElementById("rv-taylor_window_min-from").value,
+      to: document.getElementById("rv-taylor_window_min-to").value,
+      text: document.querySelector("#step-review-form [data-role=preview]").textContent,
+      values: window.oedolog.preview && window.oedolog.preview.values,
+      drawn: window.oedolog.preview && window.oedolog.preview.reduction && window.oedolog.preview.reduction.taylor.t90_min,
+    }));
+    check(shown.status === "200" && shown.values, "the preview failed: " + JSON.stringify(shown));
+    const t90 = shown.values.t90_min;
+    check(t90 > 1.03 * proposalT90, "t90 did not come later with the late window: " + t90 + " vs " + proposalT90 + " " + JSON.stringify(shown));
+    check(shown.drawn === t90 && /proposal/.test(shown.text), "the preview is not drawn: " + JSON.stringify(shown));
+    check((await asEngineer("/api/tests/" + id)).revisions.length === 0, "a preview stored a revision");
+    await e.screenshot({ path: path.join(shots, "review-preview-wide.png"), fullPage: true });
+    await e.fill("#rv-step-reason", "browser test: bedding excluded from the straight part");
+    await e.click("#step-review-form button[type=submit]");
+    await e.waitForFunction(() => document.getElementById("step-review-form")?.dataset.status || document.querySelector("#review-list li"), null, { timeout: 10000 });
+    const detail = await asEngineer("/api/tests/" + id);
+    check(detail.revisions.length === 1 && detail.revisions[0].by === ENGINEER.username && detail.revisions[0].in_force, "the revision: " + JSON.stringify(detail.revisions));
+    const saved = (await asEngineer("/api/tests/" + id + "/compression")).increments[0];
+    check(Math.abs(saved.t90_min - t90) < 1e-9 && Math.abs(saved.proposal.t90_min - proposalT90) < 1e-9, "adjusted and proposal: " + JSON.stringify(saved));
+
+    // A viewer sees the adjusted value and who made it, and no controls.
+    const v = watch(await viewer.newPage(), "viewer (review)");
+    await v.goto(reviewDemo.base + "/frame.html?id=" + frame.id);
+    await v.waitForFunction(() => window.oedolog.frame && document.querySelector("#review-list li"), null, { timeout: 20000 });
+    await v.click('#seq-pick button[data-seq="1"]');
+    await v.waitForFunction((t) => window.oedolog.analysis[1] && Math.abs(window.oedolog.analysis[1].taylor.t90_min - t) < 1e-9, t90, { timeout: 15000 });
+    const seen = await v.evaluate(() => ({ list: document.getElementById("review-list").textContent, tools: !!document.getElementById("review-tools") }));
+    check(/erik/.test(seen.list) && /√t window/.test(seen.list) && !seen.tools, "the viewer's review panel: " + JSON.stringify(seen));
+    await v.screenshot({ path: path.join(shots, "review-viewer-wide.png"), fullPage: true });
+
+    // Approved; the report says by whom.
+    await e.fill("#rv-note", "browser test: reviewed");
+    await e.click("#approve-form button[type=submit]");
+    await e.waitForFunction(() => /Reviewed and approved by/.test(document.getElementById("review-panel").textContent), null, { timeout: 10000 });
+    const report = watch(await engineer.newPage(), "report (review)");
+    await report.goto(reviewDemo.base + "/tests/" + id + "/report");
+    const text = await report.textContent("body");
+    check(/Reviewed and approved by erik/.test(text) && /Adjustments by the engineer/.test(text) && /qualified engineer/i.test(text), "the report does not show the approval");
+    await report.emulateMedia({ media: "print" });
+    await report.screenshot({ path: path.join(shots, "report-approved.png"), fullPage: true });
+    await e.setViewportSize({ width: 390, height: 844 });
+    await e.waitForTimeout(300);
+    await e.screenshot({ path: path.join(shots, "review-phone.png"), fullPage: true });
+  } finally {
+    await engineer.close();
+    await viewer.close();
+    await reviewDemo.stop();
+  }
+}, 90000);
 
 await step("no page raised an error", async () => { check(pageErrors.length === 0, pageErrors.join("\n")); }, 1000);
 

@@ -610,7 +610,9 @@ async fn analysis(
             let test = frame_test(conn, key, &id)?;
             let inc = queries::increment(conn, test.id, seq)?;
             let running = test.finished_at.is_none() && inc.ended_us.is_none();
-            let live = live.filter(|_| running);
+            // A step an engineer adjusted is drawn as the adjusted reduction, which the live watch does not know.
+            let adjusted = queries::review_of(conn, test.id)?.1.iter().any(|(s, _)| *s == Some(seq));
+            let live = live.filter(|_| running && !adjusted);
             let source = if live.is_some() { "live-watch" } else { "stored-readings" };
             let (reduction, unavailable) = match live {
                 Some(r) => (Some(r), None),

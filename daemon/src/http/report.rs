@@ -448,7 +448,7 @@ td{{white-space:nowrap}}table.facts th{{text-align:left}}@media (min-width:40rem
 figure.step figcaption{{font-size:.85rem;font-weight:600}}.pair{{display:grid;grid-template-columns:1fr 1fr;gap:.3rem}}.step-plot{{width:100%}}\
 @page{{size:auto;margin:14mm 12mm}}.sim{{border:1px solid #e0c860;background:#fff3c4;padding:.4rem .7rem}}.plot{{max-width:640px;width:100%}}\
 .approved{{border:2px solid #1f6f43;background:#eef7f0;padding:.4rem .7rem}}.unreviewed{{border:1px dashed #8a6d1f;padding:.4rem .7rem}}\
-tr.adjusted td:first-child{{font-weight:700}}.caution{{border:1px solid #c9a13b;background:#fff8e0;padding:.5rem .8rem}}.sign td{{height:2.2rem;min-width:12rem}}.units{{font-size:.9rem}}\
+tr.adjusted td:first-child{{font-weight:700}}.caution{{border:1px solid #c9a13b;background:#fff8e0;padding:.5rem .8rem}}.sign td{{height:2.2rem;min-width:12rem;text-align:left}}.units{{font-size:.9rem}}\
 @media print{{body{{margin:0;font-size:9.5pt;max-width:none}}.noprint{{display:none}}h2{{break-after:avoid}}table{{break-inside:auto}}tr,figure{{break-inside:avoid}}\
 table.steps-table{{width:100%;font-size:8pt}}table.steps-table td,th{{white-space:normal}}table.steps-table td.l{{min-width:8em}}td,th{{padding:.15rem .25rem}}.steps{{grid-template-columns:1fr}}.plot{{max-width:150mm}}}}\
 </style></head><body>",
