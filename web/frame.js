@@ -350,7 +350,7 @@
         qcell("k", p.k_m_per_s, 3),
         el("td", { class: "flags" }, [...new Set(words)].join("; "))));
       // On a phone the remarks go on their own full-width line under the step instead of a far-right column.
-      if (words.length) rows.push(el("tr", { class: "remarks-row" + (s.void ? " void" : ""), "data-remarks-for": s.seq }, el("td", { colspan: 8, class: "flags" }, [...new Set(words)].join("; "))));
+      if (words.length) rows.push(el("tr", { class: "remarks-row" + (s.void ? " void" : ""), "data-remarks-for": s.seq }, el("td", { colspan: 8, class: "flags" }, el("div", { class: "remarks" }, [...new Set(words)].join("; ")))));
     }
     body.replaceChildren(...(rows.length ? rows : [el("tr", {}, el("td", { colspan: 9, class: "empty-note" }, "No load step yet."))]));
     renderStepTools();

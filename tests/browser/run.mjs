@@ -223,6 +223,19 @@ try {
   await page.setViewportSize({ width: 390, height: 844 });
   await page.waitForTimeout(400);
   await page.screenshot({ path: path.join(shots, "frame-phone.png"), fullPage: true });
+  await step("on a phone the frame page and the board fit the screen's width", async () => {
+    const wide = (p) => p.evaluate(() => ({ scroll: document.documentElement.scrollWidth, client: document.documentElement.clientWidth,
+      over: [...document.querySelectorAll("main section, main .tile")].filter((e) => e.getBoundingClientRect().right > document.documentElement.clientWidth + 1).map((e) => e.id || e.className).slice(0, 5) }));
+    const framePage = await wide(page);
+    check(framePage.scroll <= framePage.client + 1 && framePage.over.length === 0, "the frame page is wider than a phone: " + JSON.stringify(framePage));
+    const board = watch(await context.newPage(), "board on a phone");
+    await board.setViewportSize({ width: 390, height: 844 });
+    await board.goto(demo.base + "/");
+    await board.waitForFunction(() => document.querySelectorAll(".tile[data-frame-id]").length === 4, null, { timeout: 20000 });
+    const b = await wide(board);
+    check(b.scroll <= b.client + 1 && b.over.length === 0, "the board is wider than a phone: " + JSON.stringify(b));
+    await board.close();
+  });
   await page.setViewportSize({ width: 1440, height: 900 });
 
   await step("the units switch shows every quantity in the chosen unit, per browser, and back", async () => {
