@@ -104,6 +104,20 @@
     O.onChartWindow(chart, Math.max(0, Math.min(a, b)), Math.max(a, b));
   }
 
+  // The same on a touch screen (uPlot's drag is for a mouse): a finger drawn across the chart sideways.
+  const touchWindow = (chart, toMinutes) => (u) => {
+    let x0 = null;
+    u.over.style.touchAction = "pan-y";
+    u.over.addEventListener("pointerdown", (ev) => { if (ev.pointerType !== "mouse") x0 = ev.offsetX; });
+    u.over.addEventListener("pointerup", (ev) => {
+      const from = x0;
+      x0 = null;
+      if (from === null || ev.pointerType === "mouse" || Math.abs(ev.offsetX - from) < 6 || !O.onChartWindow) return;
+      const a = toMinutes(u.posToVal(Math.min(from, ev.offsetX), "x")), b = toMinutes(u.posToVal(Math.max(from, ev.offsetX), "x"));
+      O.onChartWindow(chart, Math.max(0, a), b);
+    });
+  };
+
   function makeChart(key, hostId, opts, data) {
     const host = document.getElementById(hostId);
     const old = O.charts[key];
@@ -169,7 +183,7 @@
       axes: [Object.assign({}, baseAxis, { label: "time since loading, min (log scale)" }), yAxis],
       series: series("t min", (u, v) => fmt.sig(v, 3)),
       cursor: { drag: { x: true, y: false, setScale: false } },
-      hooks: { draw: [overlayHook(() => O.constructions.logt)], setSelect: [(u) => selected(u, "logt", (v) => v)] },
+      hooks: { draw: [overlayHook(() => O.constructions.logt)], setSelect: [(u) => selected(u, "logt", (v) => v)], ready: [touchWindow("logt", (v) => v)] },
     }, logData);
     // Taylor's construction lives in the early part: unless the whole step is asked for, √t runs to 2.5·√t90
     // (or 2.5× the straight part's end), where the construction and its labels have room.
@@ -191,7 +205,7 @@
       series: series("√t", (u, v) => (v === null ? "—" : fmt.num(v, 2) + " (" + fmt.sig(v * v, 3) + " min)")),
       // An engineer drags across the readings to choose the straight part (review.js); nobody zooms by it.
       cursor: { drag: { x: true, y: false, setScale: false } },
-      hooks: { draw: [overlayHook(() => O.constructions.sqrt)], setSelect: [(u) => selected(u, "sqrt", (v) => v * v)] },
+      hooks: { draw: [overlayHook(() => O.constructions.sqrt)], setSelect: [(u) => selected(u, "sqrt", (v) => v * v)], ready: [touchWindow("sqrt", (v) => v * v)] },
     }, sqrtData);
 
     const cvT = red && red.cv_taylor, cvC = red && red.cv_casagrande;

@@ -538,6 +538,17 @@ await step("an engineer drags a √t window, sees t90 change before saving, save
     await e.waitForFunction(() => window.oedolog.frame && window.oedolog.mayReview, null, { timeout: 20000 });
     await e.click('#seq-pick button[data-seq="1"]');
     await e.waitForFunction(() => window.oedolog.step && window.oedolog.step.seq === 1 && document.querySelector("#step-review-form h3")?.textContent.startsWith("Load step 1"), null, { timeout: 15000 });
+    // On a tablet a window is drawn with a finger (pointer events of type touch, as a touch screen sends).
+    const touched = await e.evaluate((t90) => {
+      const u = window.oedolog.charts.sqrt, at = (t) => u.valToPos(Math.sqrt(t), "x");
+      const send = (type, x) => u.over.dispatchEvent(new PointerEvent(type, { pointerType: "touch", bubbles: true, clientX: u.over.getBoundingClientRect().left + x, clientY: u.over.getBoundingClientRect().top + 20 }));
+      document.getElementById("rv-taylor_window_min-from").value = "";
+      send("pointerdown", at(0.3 * t90)); send("pointerup", at(1.2 * t90));
+      return Number(document.getElementById("rv-taylor_window_min-from").value) / t90;
+    }, proposalT90);
+    check(Math.abs(touched - 0.3) < 0.05, "a finger's window starts at " + touched + "·t90, not 0.3·t90");
+    await e.waitForFunction(() => document.getElementById("step-review-form").dataset.preview, null, { timeout: 10000 });
+    await e.evaluate(() => { delete document.getElementById("step-review-form").dataset.preview; });
     // Drag across the √t chart from √(0.5·t90) to √(1.6·t90): a window reaching past the straight part (U ≳ 60 %,
     // where the √t curve bends), so the line is flatter and t90 comes later (computed on the Terzaghi curve).
     const box = await e.evaluate((t90) => {
