@@ -216,7 +216,7 @@ async fn compression_table(State(state): State<AppState>, Path(id): Path<String>
     let id = test_id(&id)?;
     let reduced = state.reduce_test(id).await?;
     let mut csv = Csv::default();
-    let header = [
+    let mut header = vec![
         "stress_kpa",
         "branch",
         "void_ratio",
@@ -228,6 +228,11 @@ async fn compression_table(State(state): State<AppState>, Path(id): Path<String>
         "mv_per_kpa",
         "k_m_per_s",
     ];
+    // A test an engineer adjusted: the automatic reduction's values of each point beside.
+    let proposals = reduced.review.point_proposals.as_ref();
+    if proposals.is_some() {
+        header.extend(["proposal_void_ratio", "proposal_mv_per_kpa", "proposal_k_m_per_s"]);
+    }
     let u = state.display;
     let extra = Extra::new(
         &state,
@@ -236,24 +241,30 @@ async fn compression_table(State(state): State<AppState>, Path(id): Path<String>
     );
     extra.header(&mut csv, &header);
     if let Some(c) = &reduced.compression {
-        for p in &c.points {
+        for (i, p) in c.points.iter().enumerate() {
             let branch =
                 serde_json::to_value(p.branch).ok().and_then(|v| v.as_str().map(String::from)).unwrap_or_default();
-            extra.row(
-                &mut csv,
-                &[
-                    Cell::Number(Some(p.stress_kpa)),
-                    Cell::Text(&branch),
-                    Cell::Number(Some(p.e)),
-                    Cell::Number(Some(p.e_end)),
-                    Cell::Number(p.e_eop),
-                    Cell::Number(Some(p.strain)),
-                    Cell::Number(p.load_increment_ratio),
-                    Cell::Number(p.av_per_kpa),
-                    Cell::Number(p.mv_per_kpa),
-                    Cell::Number(p.k_m_per_s),
-                ],
-            );
+            let mut cells = vec![
+                Cell::Number(Some(p.stress_kpa)),
+                Cell::Text(&branch),
+                Cell::Number(Some(p.e)),
+                Cell::Number(Some(p.e_end)),
+                Cell::Number(p.e_eop),
+                Cell::Number(Some(p.strain)),
+                Cell::Number(p.load_increment_ratio),
+                Cell::Number(p.av_per_kpa),
+                Cell::Number(p.mv_per_kpa),
+                Cell::Number(p.k_m_per_s),
+            ];
+            if let Some(proposals) = proposals {
+                let q = proposals.get(i);
+                cells.extend([
+                    Cell::Number(q.map(|q| q.e)),
+                    Cell::Number(q.and_then(|q| q.mv_per_kpa)),
+                    Cell::Number(q.and_then(|q| q.k_m_per_s)),
+                ]);
+            }
+            extra.row(&mut csv, &cells);
         }
     }
     Ok(csv_response(format!("test-{id}-e-log-stress.csv"), csv.finish()))

@@ -392,6 +392,20 @@ pub(crate) struct Review {
     pub compression_revision: Option<RevisionView>,
     /// The curve's automatic values, beside the adjusted ones (only when something was adjusted).
     pub compression_proposal: Option<CurveValues>,
+    /// Each point of the e–log σ′ curve as the automatic reduction gives it, in the curve's order (only when
+    /// something of the test was adjusted: a d100 or a cv moves e, mv and k).
+    pub point_proposals: Option<Vec<PointValues>>,
+}
+
+/// One point of the e–log σ′ curve, the values a review can move.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub(crate) struct PointValues {
+    /// e on the curve's basis.
+    pub e: f64,
+    /// mv, 1/kPa.
+    pub mv_per_kpa: Option<f64>,
+    /// k, m/s.
+    pub k_m_per_s: Option<f64>,
 }
 
 /// The choices in force, by scope: (load step `seq`, or `None` for the e–log σ′ curve; choices as JSON).
@@ -588,6 +602,11 @@ pub(crate) fn reduce_test_trying(
     };
     let proposal = reduce(&TestChoices::default());
     let adjusted = (!choices.is_empty()).then(|| reduce(&choices));
+    if adjusted.is_some() {
+        review.point_proposals = proposal.compression.as_ref().ok().map(|c| {
+            c.points.iter().map(|p| PointValues { e: p.e, mv_per_kpa: p.mv_per_kpa, k_m_per_s: p.k_m_per_s }).collect()
+        });
+    }
     let proposal_summaries = summaries(id, &rows, &curves, proposal.steps.clone());
     let reduced = adjusted.unwrap_or_else(|| proposal.clone());
     let mut increments = summaries(id, &rows, &curves, reduced.steps.clone());

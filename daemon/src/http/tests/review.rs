@@ -316,6 +316,18 @@ async fn a_step_revision_reaches_the_csv_and_the_report_with_the_proposal_and_th
     let proposal: f64 = rows[3][col("proposal_t90_min")].parse().unwrap();
     assert!((proposal - auto_t90).abs() <= 1e-6 * auto_t90, "{proposal} vs {auto_t90}");
     assert_eq!((rows[1][col("adjusted")], rows[1][col("proposal_t90_min")]), ("", ""), "step 1 stands as proposed");
+    // The e–σ′ table: the proposal's values beside each point (k = cv·mv·γw [ref: permeability]).
+    let (_, _, csv) =
+        send(&b.state, request("GET", &format!("/api/tests/{id}/compression.csv"), None, Who::Viewer)).await;
+    let rows: Vec<Vec<&str>> = csv.lines().map(|l| l.split(',').collect()).collect();
+    let col =
+        |name: &str| rows[0].iter().position(|h| *h == name).unwrap_or_else(|| panic!("no {name}: {:?}", rows[0]));
+    let (k, k0): (f64, f64) =
+        (rows[3][col("k_m_per_s")].parse().unwrap(), rows[3][col("proposal_k_m_per_s")].parse().unwrap());
+    // k takes the cv proposed for the step: moved by t90 only when that cv is √t's.
+    let expected = if step["cv_method"] == "taylor" { chosen / auto_t90 } else { 1.0 };
+    assert!((k0 / k - expected).abs() < 1e-5, "k {k} vs proposal {k0} ({})", step["cv_method"]);
+    assert_eq!(rows[1][col("k_m_per_s")], rows[1][col("proposal_k_m_per_s")], "step 1's k is as proposed");
 
     let (status, _) =
         post(&b, &format!("/api/tests/{id}/approve"), json!({"note": "t90 of step 3 by hand"}), Who::Engineer).await;
