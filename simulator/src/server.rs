@@ -25,12 +25,28 @@ pub struct Shared {
     pub sim: Mutex<Simulation>,
     /// Simulated time.
     pub clock: Arc<dyn Clock>,
+    /// Requests left unanswered on a line-timed RTU line because they began less than t3.5 after a reply.
+    early_requests: std::sync::atomic::AtomicU64,
 }
 
 impl Shared {
     /// Shares `sim` under `clock`.
     pub fn new(sim: Simulation, clock: Arc<dyn Clock>) -> Arc<Shared> {
-        Arc::new(Shared { sim: Mutex::new(sim), clock })
+        Arc::new(Shared { sim: Mutex::new(sim), clock, early_requests: Default::default() })
+    }
+
+    /// Counts a request that came too soon after a reply (said once on stderr, for whoever runs the line).
+    pub fn note_early_request(&self) {
+        if self.early_requests.fetch_add(1, std::sync::atomic::Ordering::Relaxed) == 0 {
+            eprintln!(
+                "rtu: a request began less than t3.5 after a reply and was not answered (a master must keep the silence)"
+            );
+        }
+    }
+
+    /// Requests not answered because they came less than t3.5 after a reply.
+    pub fn early_requests(&self) -> u64 {
+        self.early_requests.load(std::sync::atomic::Ordering::Relaxed)
     }
 
     /// Runs `f` on the simulation (a poisoned lock is recovered: the simulation has no invariants a
@@ -245,6 +261,8 @@ pub async fn serve_rtu_port<S: AsyncRead + AsyncWrite + Unpin>(
     // (the last reply's last character off the wire); a request cannot have begun before either.
     let mut first_byte: Option<std::time::Instant> = None;
     let mut line_free_at = std::time::Instant::now();
+    // When our last reply's last character left the wire: the next request must come t3.5 after it.
+    let mut reply_end: Option<std::time::Instant> = None;
     loop {
         let read = tokio::time::timeout(idle, port.read(&mut buf)).await;
         match read {
@@ -268,7 +286,16 @@ pub async fn serve_rtu_port<S: AsyncRead + AsyncWrite + Unpin>(
             // and t3.5 of silence has followed; the device then takes its turnaround.
             let mut reply_start = None;
             if let Some(timing) = &timing {
-                let began = first_byte.take().unwrap_or_else(std::time::Instant::now).max(line_free_at);
+                let seen = first_byte.take().unwrap_or_else(std::time::Instant::now);
+                // A frame starts only after t3.5 of silence (Modbus over Serial Line V1.02 §2.5.1.1): a
+                // request whose first byte came sooner after our reply's last is not a frame to this
+                // device, and gets no answer (the master times out, as on a cable). 50 µs for the pty.
+                if reply_end.is_some_and(|end| seen + Duration::from_micros(50) < end + timing.t3_5()) {
+                    shared.note_early_request();
+                    slave.reset();
+                    continue;
+                }
+                let began = seen.max(line_free_at);
                 let received = began + timing.wire_time(request_frame_len(&frame.request)) + timing.t3_5();
                 line_free_at = received;
                 let start = received + timing.turnaround;
@@ -310,6 +337,7 @@ pub async fn serve_rtu_port<S: AsyncRead + AsyncWrite + Unpin>(
             match (&timing, reply_start, fault) {
                 (Some(timing), Some(start), None) => {
                     line_free_at = release_at_wire_rate(port, &bytes, start, timing).await?;
+                    reply_end = Some(line_free_at);
                 }
                 _ => {
                     send(port, Wire { bytes, fault, fault_ms, noise }).await?;

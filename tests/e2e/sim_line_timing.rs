@@ -98,3 +98,51 @@ fn line_timed_rtu_replies_come_no_earlier_than_the_wire_allows_at_9600_8e1() -> 
 fn line_timed_rtu_replies_come_no_earlier_than_the_wire_allows_at_115200_8n2() -> Result<()> {
     check_line(115_200, "8N2", LineTiming::new(115_200, false, 2, Duration::ZERO))
 }
+
+// A frame starts only after t3.5 of silence (Modbus over Serial Line V1.02 §2.5.1.1): a request a master
+// sends while the device's reply is still on the line (so less than t3.5 after its last character) is not a
+// frame to the device and gets no answer; one sent after the silence does. At 9 600 baud 8E1 the reply takes
+// 8.6 ms and t3.5 is 4.0 ms, room for a loaded machine's scheduling.
+#[test]
+fn a_request_sent_before_t3_5_of_silence_is_not_answered() -> Result<()> {
+    let dir = temp_dir();
+    let line = pty_pair(dir.path())?;
+    let sim = Simulator::start_rtu(
+        &line.device_end,
+        &["--frames", "1", "--schedule", "manual", "--baud", "9600", "--line-timing", "--line-framing", "8E1"],
+    )?;
+    let timing = LineTiming::new(9_600, true, 1, Duration::ZERO);
+    let mut port = serialport::new(line.master_end.to_string_lossy(), 9_600)
+        .parity(serialport::Parity::None)
+        .timeout(Duration::from_millis(20))
+        .open()
+        .with_context(|| format!("open {}", line.master_end.display()))?;
+    exchange(port.as_mut(), 5).with_context(|| sim.process.output_log())?;
+    std::thread::sleep(timing.t3_5());
+    // Request A; at its reply's first byte, request B, which is on the line before A's reply has ended.
+    let mut master = RtuMaster::new();
+    let request = Request::ReadInputRegisters { address: 0, quantity: 5 };
+    let frame = master.begin(UnitId(1), &request).context("request")?;
+    port.write_all(&frame)?;
+    let (mut got, mut sent_b, started) = (Vec::new(), false, Instant::now());
+    let mut buf = [0u8; 64];
+    while started.elapsed() < Duration::from_secs(1) {
+        match port.read(&mut buf) {
+            Ok(n) => got.extend_from_slice(&buf[..n]),
+            Err(e) if e.kind() == ErrorKind::TimedOut => {}
+            Err(e) => return Err(e.into()),
+        }
+        if !got.is_empty() && !sent_b {
+            port.write_all(&frame)?;
+            sent_b = true;
+        }
+    }
+    // A's reply (5 registers: 15 bytes) and nothing for B.
+    assert!(sent_b, "no reply to A: {}", sim.process.output_log());
+    assert_eq!(got.len(), 15, "B, sent during A's reply, was answered: {got:02x?}");
+    // After the silence the device answers again.
+    std::thread::sleep(timing.t3_5() * 2);
+    let (_, words) = exchange(port.as_mut(), 5).with_context(|| sim.process.output_log())?;
+    assert_eq!(words.len(), 5);
+    Ok(())
+}
