@@ -38,6 +38,8 @@ pub struct DemoOptions {
     pub users: Vec<crate::config::User>,
     /// `[[notify.webhook]]` of the `--config` file.
     pub notify: crate::config::NotifyConfig,
+    /// `[[publish.mqtt]]` of the `--config` file.
+    pub publish: crate::config::PublishConfig,
     /// `[alarms]` of the `--config` file (else the defaults).
     pub alarms: oedolog_core::alarms::AlarmRules,
     /// `[display]` of the `--config` file (else SI).
@@ -137,6 +139,7 @@ pub fn demo_config(
         }],
         frames,
         notify: options.notify.clone(),
+        publish: options.publish.clone(),
         alarms: options.alarms.clone(),
         display: options.display,
     }

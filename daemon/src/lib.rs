@@ -12,6 +12,7 @@ pub mod http;
 pub mod lab;
 pub mod logging;
 pub mod notify;
+pub mod publish;
 pub mod service;
 pub mod store;
 pub mod watch;

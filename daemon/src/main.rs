@@ -48,7 +48,7 @@ enum Command {
         /// The database file (default: a file under the user's data folder).
         #[arg(long, value_name = "PATH")]
         db: Option<PathBuf>,
-        /// A configuration file whose [http], [log], [alarms] and [[notify.webhook]] tables apply to the demo.
+        /// A configuration file whose [http], [log], [alarms], [[notify.webhook]] and [[publish.mqtt]] tables apply to the demo.
         #[arg(long, value_name = "FILE")]
         config: Option<PathBuf>,
         /// Write the simulator's answer key to FILE: one JSON line per load step it applies (frame, seq,
@@ -189,17 +189,28 @@ async fn run(command: Command) -> anyhow::Result<()> {
             let db = db.unwrap_or_else(demo::default_db);
             let users = file.as_ref().map(|c| c.http.users.clone()).unwrap_or_default();
             let notify = file.as_ref().map(|c| c.notify.clone()).unwrap_or_default();
+            let publish = file.as_ref().map(|c| c.publish.clone()).unwrap_or_default();
             let alarms = file.as_ref().map(|c| c.alarms.clone()).unwrap_or_default();
             let display = file.as_ref().map(|c| c.display).unwrap_or_default();
             println!(
                 "demo: {frames} simulated frames, clock {speed}× real time (simulated), database {}",
                 db.display()
             );
-            let (running, _clock) =
-                demo::start(demo::DemoOptions { frames, speed, listen, db, users, notify, alarms, display, truth })
-                    .await
-                    .map_err(|e| anyhow::anyhow!("{e}"))
-                    .context("starting the demo")?;
+            let (running, _clock) = demo::start(demo::DemoOptions {
+                frames,
+                speed,
+                listen,
+                db,
+                users,
+                notify,
+                publish,
+                alarms,
+                display,
+                truth,
+            })
+            .await
+            .map_err(|e| anyhow::anyhow!("{e}"))
+            .context("starting the demo")?;
             // A demo on every interface (0.0.0.0, ::) is reached on this machine through loopback, and from
             // others through its name: print addresses a browser can open.
             let addr = running.http_addr;

@@ -178,6 +178,7 @@ pub fn assemble(config: &Config, clock: Arc<dyn Clock>, options: Options) -> Res
         guard: Arc::new(crate::http::Guard::new(config.http.listen, config.http.public_origins.clone())),
         streams: Default::default(),
         connections: Default::default(),
+        publish: Arc::new(crate::publish::PublishStats::for_brokers(&config.publish.mqtt)),
     };
     Ok(Assembled { state, keys, writer_thread, open_alarms })
 }
@@ -228,6 +229,17 @@ impl Assembled {
             crate::notify::NotifyPolicy::default(),
         )?;
         tasks.push(notify);
+        // Likewise: a broker seen for the first time gets every reading committed from here on.
+        if !config.publish.mqtt.is_empty() {
+            let publish = crate::publish::start(
+                &config.publish.mqtt,
+                &state,
+                &keys,
+                &state.publish,
+                crate::publish::PublishPolicy::default(),
+            )?;
+            tasks.push(publish);
+        }
         let http_addr =
             listener.local_addr().map_err(|source| StartError::Bind { addr: config.http.listen, source })?;
         state.guard.bound(http_addr);

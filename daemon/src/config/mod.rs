@@ -5,6 +5,7 @@
 //! technician can fix a file in one pass. Nothing invalid gets past this module: the rest of the daemon
 //! trusts a [`Config`]. A commented sample lives in `daemon/oedolog.sample.toml`.
 
+mod publish;
 mod raw;
 
 use std::collections::{HashMap, HashSet};
@@ -23,6 +24,7 @@ use toml::Spanned;
 
 use crate::store::EventKind;
 
+pub use publish::{MqttBroker, MqttUrl, PublishConfig, Secret, check_topic_levels};
 use raw::{RawBus, RawBusKind, RawCalibration, RawChannel, RawConfig, RawDeflection, RawFrame};
 
 /// Baud rates a serial line may use.
@@ -83,6 +85,8 @@ pub struct Config {
     pub frames: Vec<Frame>,
     /// Notifications.
     pub notify: NotifyConfig,
+    /// Brokers the store is published to (`[[publish.mqtt]]`).
+    pub publish: PublishConfig,
     /// Alarm thresholds (`[alarms]`).
     pub alarms: oedolog_core::alarms::AlarmRules,
     /// The units the dashboard starts in (`[display]`); storage and the API stay SI.
@@ -512,7 +516,9 @@ impl NotifyEvent {
             | EventKind::ClockBehind
             | EventKind::ValueRefused
             | EventKind::ValueRecovered
-            | EventKind::LoadReported => None,
+            | EventKind::LoadReported
+            | EventKind::PublishLag
+            | EventKind::PublishCaughtUp => None,
         }
     }
 
@@ -820,6 +826,9 @@ impl Config {
             let events: Vec<&str> = hook.events.iter().map(|e| e.name()).collect();
             out += &format!("webhook {}: {}\n", hook.url.redacted(), events.join(", "));
         }
+        for b in &self.publish.mqtt {
+            out += &format!("mqtt {} as {}: topics {}/…, QoS {}\n", b.url.text, b.client_id, b.lab_topic(), b.qos);
+        }
         out += &format!("{} frame(s), {} bus(es)", self.frames.len(), self.buses.len());
         out
     }
@@ -964,9 +973,20 @@ fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
         }
     }
     let notify = check_notify(c, &raw.notify);
+    let publish = publish::check_publish(c, &raw.publish);
     let alarms = check_alarms(c, &raw.alarms);
     let display = check_display(c, &raw.display);
-    Config { store, http: HttpConfig { listen, users, public_origins }, log, buses, frames, notify, alarms, display }
+    Config {
+        store,
+        http: HttpConfig { listen, users, public_origins },
+        log,
+        buses,
+        frames,
+        notify,
+        publish,
+        alarms,
+        display,
+    }
 }
 
 /// `[alarms]`: each threshold within a range that still makes sense; defaults for the rest.

@@ -28,6 +28,9 @@ pub(crate) struct RawConfig {
     /// Notifications.
     #[serde(default)]
     pub notify: RawNotify,
+    /// Publishing to MQTT brokers.
+    #[serde(default)]
+    pub publish: super::publish::RawPublish,
     /// Alarm thresholds.
     #[serde(default)]
     pub alarms: RawAlarms,

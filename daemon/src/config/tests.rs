@@ -638,3 +638,110 @@ fn display_units_are_chosen_by_name_and_an_unknown_one_is_refused_with_the_list(
     let error = Config::parse(&format!("{BASE}\n[display]\ntemperature = \"F\"\n"), Purpose::Run).unwrap_err();
     assert!(error.to_string().contains("unknown field `temperature`"), "{error}");
 }
+
+/// `[[publish.mqtt]]` appended to BASE: the first problem's field, line and message.
+fn publish_problem(table: &str) -> ConfigProblem {
+    let text = format!("{BASE}[[publish.mqtt]]\n{table}");
+    let error = Config::parse(&text, Purpose::Run).expect_err("must be refused");
+    error.problems[0].clone()
+}
+
+#[test]
+fn a_publish_table_is_checked_whole_and_each_bad_value_is_refused_at_its_line_and_field() {
+    let dir = tempfile::tempdir().unwrap();
+    let password = dir.path().join("pw");
+    std::fs::write(&password, "s3cret\n").unwrap();
+    let good = format!(
+        "url = \"mqtt://broker.lab:1884\"\nclient_id = \"labA\"\ntopic_prefix = \"geo/soil\"\nlab = \"lab-a\"\nusername = \"u\"\npassword_file = \"{}\"\n",
+        password.display()
+    );
+    let config =
+        Config::parse(&format!("{BASE}[[publish.mqtt]]\n{good}"), Purpose::Run).unwrap_or_else(|e| panic!("{e}"));
+    let b = &config.publish.mqtt[0];
+    assert_eq!((b.url.host.as_str(), b.url.port, b.url.tls), ("broker.lab", 1884, false));
+    assert_eq!(b.lab_topic(), "geo/soil/lab-a");
+    assert_eq!(b.credentials, Some(("u".into(), Some(Secret("s3cret".into())))));
+    assert_eq!((b.qos, b.lag_alarm), (1, Duration::from_secs(300)));
+    assert!(!format!("{b:?}").contains("s3cret"), "the password is never printed");
+    let first = BASE.lines().count() + 2;
+    let base = "client_id = \"labA\"\ntopic_prefix = \"soil\"\nlab = \"lab-a\"\n";
+    let cases: Vec<(String, &str, &str, usize)> = vec![
+        (format!("url = \"http://broker\"\n{base}"), "publish.mqtt[0].url", "not an MQTT URL", first),
+        (format!("url = \"mqtt://broker:99999\"\n{base}"), "publish.mqtt[0].url", "not a port", first),
+        (format!("url = \"mqtt://u:p@broker\"\n{base}"), "publish.mqtt[0].url", "password_file", first),
+        (
+            "url = \"mqtt://b\"\nclient_id = \"labA\"\ntopic_prefix = \"soil/+\"\nlab = \"a\"\n".into(),
+            "publish.mqtt[0].topic_prefix",
+            "wildcard",
+            first + 2,
+        ),
+        (
+            "url = \"mqtt://b\"\nclient_id = \"labA\"\ntopic_prefix = \"soil/#\"\nlab = \"a\"\n".into(),
+            "publish.mqtt[0].topic_prefix",
+            "wildcard",
+            first + 2,
+        ),
+        (
+            "url = \"mqtt://b\"\nclient_id = \"labA\"\ntopic_prefix = \"$SYS\"\nlab = \"a\"\n".into(),
+            "publish.mqtt[0].topic_prefix",
+            "belong to the broker",
+            first + 2,
+        ),
+        (
+            "url = \"mqtt://b\"\nclient_id = \"labA\"\ntopic_prefix = \"soil//x\"\nlab = \"a\"\n".into(),
+            "publish.mqtt[0].topic_prefix",
+            "empty level",
+            first + 2,
+        ),
+        (
+            "url = \"mqtt://b\"\nclient_id = \"labA\"\ntopic_prefix = \"soil\"\nlab = \"a/b\"\n".into(),
+            "publish.mqtt[0].lab",
+            "not a lab name",
+            first + 3,
+        ),
+        (
+            "url = \"mqtt://b\"\nclient_id = \"lab-a\"\ntopic_prefix = \"soil\"\nlab = \"a\"\n".into(),
+            "publish.mqtt[0].client_id",
+            "1–23 letters and digits",
+            first + 1,
+        ),
+        (
+            format!("url = \"mqtt://b\"\n{base}username = \"u\"\npassword_file = \"/nonexistent/pw\"\n"),
+            "publish.mqtt[0].password_file",
+            "cannot read `/nonexistent/pw`",
+            first + 5,
+        ),
+        (
+            format!("url = \"mqtt://b\"\n{base}password_file = \"{}\"\n", password.display()),
+            "publish.mqtt[0].password_file",
+            "needs `username`",
+            first + 4,
+        ),
+        (format!("url = \"mqtts://b\"\n{base}"), "publish.mqtt[0].ca_file", "needs `ca_file`", first),
+        (
+            format!("url = \"mqtts://b\"\n{base}ca_file = \"{}\"\n", password.display()),
+            "publish.mqtt[0].ca_file",
+            "no PEM certificate",
+            first + 4,
+        ),
+        (format!("url = \"mqtt://b\"\n{base}qos = 2\n"), "publish.mqtt[0].qos", "allowed 0 or 1", first + 4),
+        (
+            format!("url = \"mqtt://b\"\n{base}lag_alarm_s = 1\n"),
+            "publish.mqtt[0].lag_alarm_s",
+            "10 to 86400",
+            first + 4,
+        ),
+        (format!("url = \"mqtt://b\"\n{base}colour = 1\n"), "publish.mqtt", "unknown field `colour`", first + 4),
+    ];
+    for (table, field, message, line) in cases {
+        let p = publish_problem(&table);
+        assert!(p.field.starts_with(field), "{table}: field {} ≠ {field} ({p})", p.field);
+        assert!(p.message.contains(message), "{table}: {p}");
+        assert_eq!(p.line, line, "{table}: {p}");
+    }
+    // The same broker and client id twice: one of the two would be dropped by the broker.
+    let twice =
+        format!("{BASE}[[publish.mqtt]]\nurl = \"mqtt://b\"\n{base}[[publish.mqtt]]\nurl = \"mqtt://b\"\n{base}");
+    let error = Config::parse(&twice, Purpose::Run).unwrap_err();
+    assert!(error.to_string().contains("publish.mqtt[1].client_id: the same url and client_id"), "{error}");
+}

@@ -108,10 +108,58 @@ pub(crate) fn render(state: &AppState) -> String {
     let _ = writeln!(out, "# HELP oedolog_event_streams_open Event streams (/api/stream) open now.");
     let _ = writeln!(out, "# TYPE oedolog_event_streams_open gauge");
     let _ = writeln!(out, "oedolog_event_streams_open {}", state.streams.open());
+    render_publish(state, &mut out);
     let _ = writeln!(out, "# HELP oedolog_uptime_seconds Clock seconds since the daemon started.");
     let _ = writeln!(out, "# TYPE oedolog_uptime_seconds gauge");
     let _ = writeln!(out, "oedolog_uptime_seconds {}", (state.clock.now_us() - state.started_us) as f64 / 1e6);
     out
+}
+
+/// Each `[[publish.mqtt]]` broker: connected, acknowledged messages and readings, failures, lag, alarm.
+fn render_publish(state: &AppState, out: &mut String) {
+    if state.publish.brokers.is_empty() {
+        return;
+    }
+    type Series = (&'static str, &'static str, &'static str, fn(&crate::publish::BrokerStats) -> f64);
+    let series: [Series; 6] = [
+        ("oedolog_publish_connected", "gauge", "1 while a session with the MQTT broker is up.", |b| {
+            f64::from(u8::from(b.connected()))
+        }),
+        (
+            "oedolog_publish_messages_total",
+            "counter",
+            "Messages the broker acknowledged since the daemon started.",
+            |b| b.messages() as f64,
+        ),
+        (
+            "oedolog_publish_readings_total",
+            "counter",
+            "Readings the broker acknowledged since the daemon started.",
+            |b| b.readings() as f64,
+        ),
+        ("oedolog_publish_errors_total", "counter", "Failed connections and sessions since the daemon started.", |b| {
+            b.errors() as f64
+        }),
+        (
+            "oedolog_publish_lag_seconds",
+            "gauge",
+            "Real seconds since the oldest stored reading or journal entry the broker has not acknowledged was stored (0: caught up).",
+            |b| b.lag_s(),
+        ),
+        (
+            "oedolog_publish_lag_alarm",
+            "gauge",
+            "1 while the publish-lag alarm is raised (lag over lag_alarm_s).",
+            |b| f64::from(u8::from(b.lag_alarm())),
+        ),
+    ];
+    for (name, kind, help, value) in series {
+        let _ = writeln!(out, "# HELP {name} {help}");
+        let _ = writeln!(out, "# TYPE {name} {kind}");
+        for b in &state.publish.brokers {
+            let _ = writeln!(out, "{name}{{broker=\"{}\"}} {}", label(&b.name), value(b));
+        }
+    }
 }
 
 async fn metrics(State(state): State<AppState>) -> impl IntoResponse {

@@ -49,6 +49,7 @@ pub use auth::{Caller, constant_time_eq};
 pub use cache::Caches;
 pub use error::ApiError;
 pub use events::{MAX_STREAMS, MAX_STREAMS_PER_USER, StreamSlots};
+pub(crate) use frames::views as frame_views;
 pub use frames::{FrameView, frame_state};
 pub use guard::Guard;
 pub use increments::{STANDARD_GRAVITY_M_PER_S2, hanger_stress_kpa};
@@ -89,6 +90,8 @@ pub struct AppState {
     pub streams: Arc<StreamSlots>,
     /// The open HTTP connections (counted by [`serve`]).
     pub connections: Arc<ConnectionCount>,
+    /// Each MQTT broker's publishing (`[[publish.mqtt]]`), for `/metrics`.
+    pub publish: Arc<crate::publish::PublishStats>,
 }
 
 thread_local! {

@@ -61,6 +61,10 @@ stored_names! {
         AlarmCleared = "alarm-cleared",
         /// A webhook refused a notification for good.
         NotifyFailed = "notify-failed",
+        /// Publishing to an MQTT broker fell further behind the store than its `lag_alarm_s`.
+        PublishLag = "publish-lag",
+        /// That broker caught up again.
+        PublishCaughtUp = "publish-caught-up",
         /// An armed load step that never began was withdrawn.
         StepWithdrawn = "step-withdrawn",
         /// A load step was marked void (kept, left out of the reduction).

@@ -14,6 +14,7 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
     ("0004_alarms.sql", include_str!("../../../migrations/0004_alarms.sql")),
     ("0005_void_steps.sql", include_str!("../../../migrations/0005_void_steps.sql")),
     ("0006_review.sql", include_str!("../../../migrations/0006_review.sql")),
+    ("0007_publish.sql", include_str!("../../../migrations/0007_publish.sql")),
 ];
 
 /// The schema version this binary writes.

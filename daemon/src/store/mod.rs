@@ -7,7 +7,7 @@
 //!
 //! The store owns the SQL: every statement lives in this module tree, behind typed functions grouped by
 //! what they keep — [`lab_book`] (frames, tests, increments), [`journal`] (events), [`alarms`],
-//! [`notify`] (webhook cursors) and [`read`] (what the API reads). Each write is one writer job: what it
+//! [`notify`] (webhook cursors), [`publish`] (MQTT cursors) and [`read`] (what the API reads). Each write is one writer job: what it
 //! changes commits in one transaction, and it returns only once that is durable. The names kept as text
 //! are enums ([`EventKind`], [`TestState`], onset sources, alarm codes) read back with `FromSql`, which
 //! refuses a name this oedolog does not know. Outside the store a connection is only a [`Reader`] (or
@@ -19,6 +19,7 @@ pub mod lab_book;
 pub mod migrations;
 mod names;
 pub mod notify;
+pub mod publish;
 pub mod read;
 pub mod review;
 #[cfg(test)]
