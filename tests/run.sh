@@ -28,16 +28,23 @@ apt_install() {
 }
 
 install_debian_peers() {
-  local missing=()
-  command -v socat >/dev/null 2>&1 || missing+=(socat)
-  command -v mbpoll >/dev/null 2>&1 || missing+=(mbpoll)
+  local missing=() commands=()
+  # command:package; the MQTT broker's clients (mosquitto_sub) come in mosquitto-clients.
+  local pair cmd
+  for pair in socat:socat mbpoll:mbpoll mosquitto:mosquitto mosquitto_sub:mosquitto-clients; do
+    cmd="${pair%%:*}"
+    if ! command -v "$cmd" >/dev/null 2>&1; then
+      missing+=("${pair#*:}")
+      commands+=("$cmd")
+    fi
+  done
   [ "${#missing[@]}" -eq 0 ] && return 0
   if ! is_root; then
     die "missing test peers: ${missing[*]}; install them (e.g. sudo apt-get install -y ${missing[*]}) or run as root"
   fi
   log "installing Debian packages: ${missing[*]}"
   apt_install "${missing[@]}" || die "could not install ${missing[*]} with apt-get; install them by hand"
-  for cmd in "${missing[@]}"; do
+  for cmd in "${commands[@]}"; do
     command -v "$cmd" >/dev/null 2>&1 || die "$cmd still not on PATH after installing it"
   done
 }
