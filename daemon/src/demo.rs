@@ -140,6 +140,7 @@ pub fn demo_config(
         frames,
         notify: options.notify.clone(),
         publish: options.publish.clone(),
+        fleet: None,
         alarms: options.alarms.clone(),
         display: options.display,
     }

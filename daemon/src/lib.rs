@@ -8,6 +8,7 @@ pub mod analyze;
 pub mod clock;
 pub mod config;
 pub mod demo;
+pub mod fleet;
 pub mod http;
 pub mod lab;
 pub mod logging;

@@ -56,6 +56,13 @@ enum Command {
         #[arg(long, value_name = "FILE")]
         truth: Option<PathBuf>,
     },
+    /// The fleet board: read every lab's retained status and frame states from MQTT brokers and serve one
+    /// read-only board of all of them, who needs a person first.
+    Fleet {
+        /// A configuration file with [fleet], [[fleet.broker]], [http] and [log].
+        #[arg(long, value_name = "FILE")]
+        config: PathBuf,
+    },
     /// Check a configuration file: a summary, or every problem with its line, column and field.
     CheckConfig {
         /// The file.
@@ -234,8 +241,20 @@ async fn run(command: Command) -> anyhow::Result<()> {
             running.stop(why);
             Ok(())
         }
+        Command::Fleet { config } => {
+            let config = load(&config, Purpose::Fleet)?;
+            let _guard = logging::init(&config.log).map_err(anyhow::Error::msg)?;
+            let running = oedolog::fleet::board::start(&config).await?;
+            // One line on stdout once serving: scripts and tests wait for it.
+            println!("listening on http://{}/", running.http_addr);
+            let why = shutdown_signal().await;
+            tracing::info!("fleet board: {why}, stopping");
+            running.stop();
+            Ok(())
+        }
         Command::CheckConfig { file } => {
-            let config = load(&file, Purpose::Run)?;
+            let source = std::fs::read_to_string(&file).unwrap_or_default();
+            let config = load(&file, Purpose::of_text(&source))?;
             println!("{}: valid", file.display());
             println!("{}", config.summary());
             Ok(())

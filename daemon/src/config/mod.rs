@@ -5,6 +5,7 @@
 //! technician can fix a file in one pass. Nothing invalid gets past this module: the rest of the daemon
 //! trusts a [`Config`]. A commented sample lives in `daemon/oedolog.sample.toml`.
 
+mod fleet;
 mod publish;
 mod raw;
 
@@ -24,6 +25,7 @@ use toml::Spanned;
 
 use crate::store::EventKind;
 
+pub use fleet::FleetConfig;
 pub use publish::{MqttBroker, MqttUrl, PublishConfig, Secret, check_topic_levels};
 use raw::{RawBus, RawBusKind, RawCalibration, RawChannel, RawConfig, RawDeflection, RawFrame};
 
@@ -87,6 +89,8 @@ pub struct Config {
     pub notify: NotifyConfig,
     /// Brokers the store is published to (`[[publish.mqtt]]`).
     pub publish: PublishConfig,
+    /// The fleet board's brokers (`[fleet]`; only in a file for `oedolog fleet`).
+    pub fleet: Option<FleetConfig>,
     /// Alarm thresholds (`[alarms]`).
     pub alarms: oedolog_core::alarms::AlarmRules,
     /// The units the dashboard starts in (`[display]`); storage and the API stay SI.
@@ -659,6 +663,18 @@ pub enum Purpose {
     Run,
     /// `oedolog demo --config`.
     Demo,
+    /// `oedolog fleet --config`: `[fleet]`, `[http]` and `[log]` only.
+    Fleet,
+}
+
+impl Purpose {
+    /// What `check-config` checks a file for: a fleet file when it has a `[fleet]` table, else `run`.
+    pub fn of_text(source: &str) -> Purpose {
+        match toml::from_str::<toml::Table>(source) {
+            Ok(table) if table.contains_key("fleet") => Purpose::Fleet,
+            _ => Purpose::Run,
+        }
+    }
 }
 
 struct Checker<'a> {
@@ -829,6 +845,16 @@ impl Config {
         for b in &self.publish.mqtt {
             out += &format!("mqtt {} as {}: topics {}/…, QoS {}\n", b.url.text, b.client_id, b.lab_topic(), b.qos);
         }
+        if let Some(fleet) = &self.fleet {
+            for b in &fleet.brokers {
+                out += &format!(
+                    "fleet broker {} as {}: reads {}/+/status and {}/+/+/state\n",
+                    b.url.text, b.client_id, b.topic_prefix, b.topic_prefix
+                );
+            }
+            out += &format!("a lab is quiet after {} s without a state", fleet.quiet_after.as_secs());
+            return out;
+        }
         out += &format!("{} frame(s), {} bus(es)", self.frames.len(), self.buses.len());
         out
     }
@@ -878,8 +904,16 @@ fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
             });
             None
         }
-        (None, Purpose::Demo) => None,
+        (None, Purpose::Demo | Purpose::Fleet) => None,
     };
+    if purpose == Purpose::Fleet && store.is_some() {
+        c.problems.push(ConfigProblem {
+            line: 1,
+            column: 1,
+            field: "store".into(),
+            message: "a fleet file has no [store]: the board keeps only the latest states, in memory".into(),
+        });
+    }
 
     let listen = match &raw.http.listen {
         None => DEFAULT_LISTEN.parse().expect("constant"),
@@ -972,6 +1006,41 @@ fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
             });
         }
     }
+    let fleet = match (&raw.fleet, purpose) {
+        (Some(f), Purpose::Fleet) => Some(fleet::check_fleet(c, f)),
+        (None, Purpose::Fleet) => {
+            c.problems.push(ConfigProblem {
+                line: 1,
+                column: 1,
+                field: "fleet".into(),
+                message: "missing table [fleet] with [[fleet.broker]]: `oedolog fleet` needs it".into(),
+            });
+            None
+        }
+        (Some(f), _) => {
+            c.at(
+                f.span(),
+                "fleet",
+                "[fleet] is for `oedolog fleet` only (a lab's file publishes with [[publish.mqtt]])",
+            );
+            None
+        }
+        (None, _) => None,
+    };
+    if purpose == Purpose::Fleet {
+        for (present, field) in
+            [(!frames.is_empty(), "frame"), (!buses.is_empty(), "bus"), (!raw.publish.mqtt.is_empty(), "publish.mqtt")]
+        {
+            if present {
+                c.problems.push(ConfigProblem {
+                    line: 1,
+                    column: 1,
+                    field: field.into(),
+                    message: format!("a fleet file has no [[{field}]]: the board reads brokers and commands nothing"),
+                });
+            }
+        }
+    }
     let notify = check_notify(c, &raw.notify);
     let publish = publish::check_publish(c, &raw.publish);
     let alarms = check_alarms(c, &raw.alarms);
@@ -984,6 +1053,7 @@ fn check(c: &mut Checker<'_>, raw: RawConfig, purpose: Purpose) -> Config {
         frames,
         notify,
         publish,
+        fleet,
         alarms,
         display,
     }

@@ -139,7 +139,7 @@ pub struct MqttBroker {
     pub client_id: String,
     /// Topic levels before the lab, without a trailing `/`.
     pub topic_prefix: String,
-    /// The lab's topic level.
+    /// The lab's topic level (empty for a `[[fleet.broker]]`, which reads every lab).
     pub lab: String,
     /// User name and password, if the broker wants them.
     pub credentials: Option<(String, Option<Secret>)>,
@@ -201,9 +201,59 @@ pub(super) fn check_publish(c: &mut Checker<'_>, publish: &RawPublish) -> Publis
     let mut out = Vec::new();
     let mut seen: HashMap<(String, String), usize> = HashMap::new();
     for (i, table) in publish.mqtt.iter().enumerate() {
-        let field = |name: &str| format!("publish.mqtt[{i}].{name}");
+        if let Some(broker) = check_broker(c, table, &format!("publish.mqtt[{i}]"), BrokerUse::Publish) {
+            if let Some(first) = seen.insert((broker.url.text.clone(), broker.client_id.clone()), i) {
+                let span = table.get_ref().client_id.as_ref().map_or(table.span(), |v| v.span());
+                c.at(
+                    span,
+                    format!("publish.mqtt[{i}].client_id"),
+                    format!("the same url and client_id as publish.mqtt[{first}] (a broker drops one of two clients with one id, MQTT 3.1.1 §3.1.4)"),
+                );
+            } else {
+                out.push(broker);
+            }
+        }
+    }
+    PublishConfig { mqtt: out }
+}
+
+/// What a broker table is for: publishing this lab, or the fleet board subscribing to many.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub(super) enum BrokerUse {
+    /// `[[publish.mqtt]]`: needs `lab`; may set `qos`, `lag_alarm_s`, `dashboard_url`.
+    Publish,
+    /// `[[fleet.broker]]`: subscribes under `topic_prefix`; the publishing-only fields are refused.
+    Subscribe,
+}
+
+/// One broker table, checked; `None` when it has a problem (each recorded with `prefix.field`).
+pub(super) fn check_broker(
+    c: &mut Checker<'_>,
+    table: &Spanned<RawMqtt>,
+    prefix: &str,
+    purpose: BrokerUse,
+) -> Option<MqttBroker> {
+    {
+        let field = |name: &str| format!("{prefix}.{name}");
         let raw = table.get_ref();
         let before = c.problems.len();
+        if purpose == BrokerUse::Subscribe {
+            let publishing_only = [
+                ("lab", raw.lab.as_ref().map(|v| v.span())),
+                ("qos", raw.qos.as_ref().map(|v| v.span())),
+                ("lag_alarm_s", raw.lag_alarm_s.as_ref().map(|v| v.span())),
+                ("dashboard_url", raw.dashboard_url.as_ref().map(|v| v.span())),
+            ];
+            for (name, span) in publishing_only {
+                if let Some(span) = span {
+                    c.at(
+                        span,
+                        field(name),
+                        "only for [[publish.mqtt]]: the fleet board reads every lab under topic_prefix",
+                    );
+                }
+            }
+        }
         let url = match &raw.url {
             None => {
                 c.at(table.span(), field("url"), "missing `url` (allowed: mqtt://host[:port] or mqtts://host[:port])");
@@ -242,6 +292,7 @@ pub(super) fn check_publish(c: &mut Checker<'_>, publish: &RawPublish) -> Publis
             }
         };
         let lab = match &raw.lab {
+            None if purpose == BrokerUse::Subscribe => String::new(),
             None => {
                 c.at(table.span(), field("lab"), "missing `lab` (allowed: 1–32 letters, digits, `-`, `_`)");
                 String::new()
@@ -357,20 +408,10 @@ pub(super) fn check_publish(c: &mut Checker<'_>, publish: &RawPublish) -> Publis
                 }
             }
         });
-        if let Some(u) = &url
-            && let Some(first) = seen.insert((u.text.clone(), client_id.clone()), i)
-        {
-            let span = raw.client_id.as_ref().map_or(table.span(), |v| v.span());
-            c.at(
-                span,
-                field("client_id"),
-                format!("the same url and client_id as publish.mqtt[{first}] (a broker drops one of two clients with one id, MQTT 3.1.1 §3.1.4)"),
-            );
-        }
         if c.problems.len() == before
             && let Some(url) = url
         {
-            out.push(MqttBroker {
+            return Some(MqttBroker {
                 url,
                 client_id,
                 topic_prefix,
@@ -383,6 +424,6 @@ pub(super) fn check_publish(c: &mut Checker<'_>, publish: &RawPublish) -> Publis
                 dashboard_url,
             });
         }
+        None
     }
-    PublishConfig { mqtt: out }
 }

@@ -31,6 +31,8 @@ pub(crate) struct RawConfig {
     /// Publishing to MQTT brokers.
     #[serde(default)]
     pub publish: super::publish::RawPublish,
+    /// The fleet board's brokers (`oedolog fleet` only).
+    pub fleet: Option<toml::Spanned<super::fleet::RawFleet>>,
     /// Alarm thresholds.
     #[serde(default)]
     pub alarms: RawAlarms,

@@ -745,3 +745,55 @@ fn a_publish_table_is_checked_whole_and_each_bad_value_is_refused_at_its_line_an
     let error = Config::parse(&twice, Purpose::Run).unwrap_err();
     assert!(error.to_string().contains("publish.mqtt[1].client_id: the same url and client_id"), "{error}");
 }
+
+const FLEET: &str =
+    "[fleet]\n[[fleet.broker]]\nurl = \"mqtt://broker\"\nclient_id = \"board1\"\ntopic_prefix = \"soil-labs\"\n";
+
+#[test]
+fn a_fleet_file_is_read_with_its_brokers_and_check_config_tells_it_from_a_lab_s_file() {
+    assert_eq!(Purpose::of_text(FLEET), Purpose::Fleet);
+    assert_eq!(Purpose::of_text(BASE), Purpose::Run);
+    let c = Config::parse(FLEET, Purpose::Fleet).unwrap_or_else(|e| panic!("{e}"));
+    let fleet = c.fleet.unwrap();
+    assert_eq!(fleet.quiet_after, Duration::from_secs(300));
+    assert_eq!((fleet.brokers[0].url.port, fleet.brokers[0].topic_prefix.as_str()), (1883, "soil-labs"));
+    let c = Config::parse(&format!("{FLEET}[http]\nlisten = \"127.0.0.1:0\"\n"), Purpose::Fleet).unwrap();
+    assert_eq!(c.http.listen.port(), 0);
+}
+
+#[test]
+fn bad_fleet_files_are_refused_at_the_line_and_field() {
+    let first = |text: &str, purpose| Config::parse(text, purpose).unwrap_err().problems[0].clone();
+    let cases: [(String, &str, &str, usize); 9] = [
+        ("[fleet]\nquiet_after_s = 60\n".into(), "fleet.broker", "at least one broker", 1),
+        (FLEET.replace("[fleet]\n", "[fleet]\nquiet_after_s = 5\n"), "fleet.quiet_after_s", "allowed 20 to 86400", 2),
+        (FLEET.replace("mqtt://broker", "http://broker"), "fleet.broker[0].url", "not an MQTT URL", 3),
+        (FLEET.replace("soil-labs", "soil/#"), "fleet.broker[0].topic_prefix", "wildcard", 5),
+        (FLEET.replace("board1", "board-1"), "fleet.broker[0].client_id", "1–23 letters", 4),
+        (format!("{FLEET}lab = \"x\"\n"), "fleet.broker[0].lab", "only for [[publish.mqtt]]", 6),
+        (
+            format!("{FLEET}password_file = \"/nonexistent/pw\"\nusername = \"u\"\n"),
+            "fleet.broker[0].password_file",
+            "cannot read",
+            6,
+        ),
+        (FLEET.replace("mqtt://", "mqtts://"), "fleet.broker[0].ca_file", "needs `ca_file`", 3),
+        (
+            format!("{FLEET}[[fleet.broker]]\nurl = \"mqtt://broker\"\nclient_id = \"board1\"\ntopic_prefix = \"b\"\n"),
+            "fleet.broker[1].client_id",
+            "same url and client_id",
+            8,
+        ),
+    ];
+    for (text, field, message, line) in cases {
+        let p = first(&text, Purpose::Fleet);
+        assert_eq!((p.field.as_str(), p.line), (field, line), "{text}\n{p}");
+        assert!(p.message.contains(message), "{p}");
+    }
+    // A fleet file holds no lab, and a lab's file no [fleet].
+    assert_eq!(first(&format!("{FLEET}{BASE}"), Purpose::Fleet).field, "store");
+    assert_eq!(first(&format!("{BASE}{FLEET}"), Purpose::Run).field, "fleet");
+    let fields: Vec<String> =
+        Config::parse(BASE, Purpose::Fleet).unwrap_err().problems.into_iter().map(|p| p.field).collect();
+    assert_eq!(fields, ["store", "fleet", "frame", "bus"]);
+}

@@ -134,7 +134,7 @@ fn acts(method: &Method) -> bool {
 
 /// The checks, in order: `Host` (421), then for actions `Sec-Fetch-Site` and `Origin` (403) and
 /// `Content-Type` (415).
-fn check(guard: &Guard, request: &Request) -> Result<(), ApiError> {
+pub(crate) fn check(guard: &Guard, request: &Request) -> Result<(), ApiError> {
     let host = request_host(request);
     if let Some(h) = &host
         && !guard.host_ok(h)

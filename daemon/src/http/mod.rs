@@ -45,6 +45,7 @@ use crate::lab::Lab;
 use crate::store::{Reader, Writer};
 use crate::watch::Hub;
 
+pub(crate) use auth::authenticate;
 pub use auth::{Caller, constant_time_eq};
 pub use cache::Caches;
 pub use error::ApiError;
@@ -52,7 +53,9 @@ pub use events::{MAX_STREAMS, MAX_STREAMS_PER_USER, StreamSlots};
 pub(crate) use frames::views as frame_views;
 pub use frames::{FrameView, frame_state};
 pub use guard::Guard;
+pub(crate) use guard::{check as check_request, security_headers};
 pub use increments::{STANDARD_GRAVITY_M_PER_S2, hanger_stress_kpa};
+pub(crate) use overview::escape as escape_html;
 pub use serve::{ConnectionCount, ServeLimits, serve};
 
 /// What the handlers share.

@@ -274,17 +274,7 @@ impl BrokerTask {
             options.set_credentials(user.clone(), password.as_ref().map_or(String::new(), |p| p.0.clone()));
         }
         if b.url.tls {
-            let mut roots = rustls::RootCertStore::empty();
-            for cert in &b.ca {
-                roots.add(cert.clone()).map_err(|e| SessionError::Tls(e.to_string()))?;
-            }
-            let config =
-                rustls::ClientConfig::builder_with_provider(Arc::new(rustls::crypto::ring::default_provider()))
-                    .with_safe_default_protocol_versions()
-                    .map_err(|e| SessionError::Tls(e.to_string()))?
-                    .with_root_certificates(roots)
-                    .with_no_client_auth();
-            options.set_transport(Transport::tls_with_config(rumqttc::TlsConfiguration::Rustls(Arc::new(config))));
+            options.set_transport(tls_transport(&b.ca).map_err(SessionError::Tls)?);
         }
         Ok(options)
     }
@@ -518,6 +508,20 @@ impl BrokerTask {
                 self.writer.event(Event { at_us: now, frame_key: None, kind, message, actor: None, data: Some(data) });
         }
     }
+}
+
+/// TLS through rustls trusting only the authorities of `ca` (an `mqtts://` broker's `ca_file`).
+pub(crate) fn tls_transport(ca: &[rustls::pki_types::CertificateDer<'static>]) -> Result<Transport, String> {
+    let mut roots = rustls::RootCertStore::empty();
+    for cert in ca {
+        roots.add(cert.clone()).map_err(|e| e.to_string())?;
+    }
+    let config = rustls::ClientConfig::builder_with_provider(Arc::new(rustls::crypto::ring::default_provider()))
+        .with_safe_default_protocol_versions()
+        .map_err(|e| e.to_string())?
+        .with_root_certificates(roots)
+        .with_no_client_auth();
+    Ok(Transport::tls_with_config(rumqttc::TlsConfiguration::Rustls(Arc::new(config))))
 }
 
 /// Why a frame wants a person, most urgent first: for the fleet board's order.
