@@ -1,9 +1,10 @@
 //! The daemon end to end: `oedolog run` against the simulator over Modbus TCP and RTU (pty pairs),
 //! faults, a vanishing serial device, power loss by `kill -9`, restart resume, `check-config`, `backup`,
-//! webhook notifications from `demo --config`, publishing to a real MQTT broker.
+//! webhook notifications from `demo --config`, publishing to a real MQTT broker, the fleet board reading one.
 
 mod acquire;
 mod cli;
+mod fleet;
 mod mqtt;
 mod notify;
 pub(crate) mod power;

@@ -16,7 +16,7 @@ use serde_json::Value;
 use super::*;
 
 /// A process killed when dropped (mosquitto_sub writes to a file, so no pipes).
-struct Killed(Child);
+pub(super) struct Killed(pub(super) Child);
 
 impl Drop for Killed {
     fn drop(&mut self) {
@@ -25,12 +25,12 @@ impl Drop for Killed {
     }
 }
 
-fn free_port() -> u16 {
+pub(super) fn free_port() -> u16 {
     std::net::TcpListener::bind("127.0.0.1:0").unwrap().local_addr().unwrap().port()
 }
 
 /// mosquitto on `port`, persisting its sessions in `dir` (saved on SIGTERM); waits for its `running` line.
-fn broker(dir: &Path, port: u16) -> ChildGuard {
+pub(super) fn broker(dir: &Path, port: u16) -> ChildGuard {
     let conf = dir.join("mosquitto.conf");
     let text = format!(
         "listener {port} 127.0.0.1\nallow_anonymous true\npersistence true\npersistence_location {}/\nlog_dest stderr\n",
@@ -74,7 +74,7 @@ fn metric(daemon: &Daemon, name: &str) -> f64 {
         .unwrap_or_else(|| panic!("no {name} in /metrics"))
 }
 
-fn wait_until(what: &str, timeout: Duration, ready: impl Fn() -> bool) {
+pub(super) fn wait_until(what: &str, timeout: Duration, ready: impl Fn() -> bool) {
     let deadline = Instant::now() + timeout;
     while !ready() {
         assert!(Instant::now() < deadline, "{what}: not within {timeout:?}");
