@@ -73,6 +73,62 @@ fn status_of(board: &Daemon, method: &str, path: &str) -> String {
     response.lines().next().unwrap_or("").to_string()
 }
 
+/// `oedolog fleet` on a free loopback port reading `PREFIX` on the broker at `port`, its file checked first.
+fn start_board(dir: &Path, port: u16) -> Daemon {
+    let config = dir.join("fleet.toml");
+    std::fs::write(
+        &config,
+        format!(
+            "[fleet]\nquiet_after_s = 600\n\n[[fleet.broker]]\nurl = \"mqtt://127.0.0.1:{port}\"\nclient_id = \"fleetboard1\"\ntopic_prefix = \"{PREFIX}\"\n\n[http]\nlisten = \"127.0.0.1:0\"\n"
+        ),
+    )
+    .unwrap();
+    let check = Command::new(workspace_binary("oedolog")).arg("check-config").arg(&config).output().unwrap();
+    assert!(check.status.success(), "{}", String::from_utf8_lossy(&check.stderr));
+    let mut command = Command::new(workspace_binary("oedolog"));
+    command.arg("fleet").arg("--config").arg(&config);
+    Daemon::start_command(command, READY_TIMEOUT).unwrap()
+}
+
+#[test]
+fn the_fleet_board_reads_a_real_demo_s_publications_and_shows_the_lab_offline_after_a_kill() {
+    let dir = temp_dir();
+    let port = free_port();
+    let _broker = broker(dir.path(), port);
+    let demo_config = dir.path().join("demo.toml");
+    std::fs::write(
+        &demo_config,
+        format!(
+            "[[publish.mqtt]]\nurl = \"mqtt://127.0.0.1:{port}\"\nclient_id = \"eastlab\"\ntopic_prefix = \"{PREFIX}\"\nlab = \"east\"\ndashboard_url = \"http://east.lab.example:8321/\"\n"
+        ),
+    )
+    .unwrap();
+    let mut command = Command::new(workspace_binary("oedolog"));
+    command.arg("demo").args(["--frames", "3", "--speed", "300", "--listen", "127.0.0.1:0", "--db"]);
+    command.arg(dir.path().join("demo.sqlite")).arg("--config").arg(&demo_config);
+    let (demo, _line) =
+        oedolog_tests::ChildGuard::spawn_ready("oedolog demo", command, "dashboard at http://").unwrap();
+    let board = start_board(dir.path(), port);
+    wait_until("the demo's three frames on the board", Duration::from_secs(30), || {
+        fleet_view(&board)["frames"].as_array().is_some_and(|f| f.len() == 3)
+    });
+    let v = fleet_view(&board);
+    let east = lab(&v, "east");
+    assert_eq!((east["status"].as_str(), east["frames"].as_u64()), (Some("online"), Some(3)), "{v}");
+    assert_eq!(east["dashboard"], "http://east.lab.example:8321/");
+    assert_eq!(v["ignored"]["malformed"], 0, "the publisher's own payloads all parse: {v}");
+    for f in v["frames"].as_array().unwrap() {
+        assert!(f["state"].as_str().is_some_and(|s| !s.is_empty()) && f["lab_status"] == "online", "{f}");
+    }
+    // kill -9: no DISCONNECT, so the broker publishes the daemon's last will (MQTT 3.1.1 §3.1.2.5).
+    drop(demo);
+    wait_until("east offline after the kill", Duration::from_secs(90), || {
+        lab(&fleet_view(&board), "east")["status"] == "offline"
+    });
+    let v = fleet_view(&board);
+    assert!(v["frames"].as_array().unwrap().iter().all(|f| f["rank"] == 2 && f["lab_status"] == "offline"), "{v}");
+}
+
 #[test]
 fn the_fleet_board_lists_both_labs_ready_first_and_shows_a_lab_offline_after_its_last_will() {
     let dir = temp_dir();
@@ -100,19 +156,7 @@ fn the_fleet_board_lists_both_labs_ready_first_and_shows_a_lab_offline_after_its
             .expect("start mosquitto_sub"),
     );
 
-    let config = dir.path().join("fleet.toml");
-    std::fs::write(
-        &config,
-        format!(
-            "[fleet]\nquiet_after_s = 600\n\n[[fleet.broker]]\nurl = \"mqtt://127.0.0.1:{port}\"\nclient_id = \"fleetboard1\"\ntopic_prefix = \"{PREFIX}\"\n\n[http]\nlisten = \"127.0.0.1:0\"\n"
-        ),
-    )
-    .unwrap();
-    let check = Command::new(workspace_binary("oedolog")).arg("check-config").arg(&config).output().unwrap();
-    assert!(check.status.success(), "{}", String::from_utf8_lossy(&check.stderr));
-    let mut command = Command::new(workspace_binary("oedolog"));
-    command.arg("fleet").arg("--config").arg(&config);
-    let board = Daemon::start_command(command, READY_TIMEOUT).unwrap();
+    let board = start_board(dir.path(), port);
 
     wait_until("both labs and three frames on the board", Duration::from_secs(15), || {
         let v = fleet_view(&board);
