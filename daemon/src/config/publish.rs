@@ -175,7 +175,9 @@ pub fn check_topic_levels(text: &str) -> Result<(), String> {
         return Err("must not be empty".into());
     }
     if text.contains(['+', '#']) {
-        return Err(format!("`{text}` holds an MQTT wildcard (+ or #): a topic we publish to names one place"));
+        return Err(format!(
+            "`{text}` holds an MQTT wildcard (+ or #): a prefix names one place (the fleet board adds its own `+`)"
+        ));
     }
     if text.starts_with('$') {
         return Err(format!("`{text}` starts with `$`: such topics belong to the broker (MQTT 3.1.1 §4.7.2)"));

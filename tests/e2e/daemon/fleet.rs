@@ -3,7 +3,8 @@
 //! "Publishing to MQTT"), one of them holding a `mosquitto_sub` connection whose last will is its
 //! `offline` status. `oedolog fleet` must list both labs and every frame, who needs a person first, ignore a
 //! malformed payload and an odd topic, refuse a write, and show the lab offline once that connection is
-//! killed and the broker publishes the will (MQTT 3.1.1 §3.1.2.5).
+//! killed and the broker publishes the will (MQTT 3.1.1 §3.1.2.5). Then the same with a real `oedolog demo`
+//! publishing as a lab: its payloads all parse, and a `kill -9` shows the lab offline.
 
 use std::process::{Command, Stdio};
 
