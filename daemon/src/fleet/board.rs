@@ -194,7 +194,8 @@ table{border-collapse:collapse;width:100%;margin-bottom:1.6rem}th,td{padding:.35
 vertical-align:top;border-bottom:1px solid #d5d9de}th{font-size:.8rem;text-transform:uppercase;color:#56606b}\
 .dim{color:#6b7580;font-size:.85rem}tr.down td{background:#fde3e0}tr.r0 td:first-child{border-left:6px solid #2f7d32}\
 tr.r1 td:first-child{border-left:6px solid #c62828}tr.r2 td:first-child{border-left:6px solid #8a6d00}\
-tr.r3 td:first-child{border-left:6px solid #c9ced4}";
+tr.r3 td:first-child{border-left:6px solid #c9ced4}\
+.alert{background:#fde3e0;border:2px solid #c62828;padding:.5rem .8rem;font-weight:600}";
 
 /// The board as one HTML page.
 pub fn render(view: &FleetView) -> String {
@@ -212,6 +213,14 @@ pub fn render(view: &FleetView) -> String {
         view.frames.len(),
         escape_html(&view.at),
     );
+    for b in view.brokers.iter().filter(|b| !b.connected) {
+        out += &format!(
+            "<p class=\"alert\">The board itself is not connected to {} (prefix {}) since {}: labs read there only look quiet.</p>\n",
+            escape_html(&b.url),
+            escape_html(&b.prefix),
+            escape_html(&b.since),
+        );
+    }
     out += "<h2>Frames, who needs a person first</h2>\n<table><thead><tr><th>Lab</th><th>Frame</th><th>State</th><th>What needs doing</th><th>Since</th><th>Test</th><th>Link</th></tr></thead><tbody>\n";
     for f in &view.frames {
         out += &frame_row(f, now_us, view.quiet_after_s);

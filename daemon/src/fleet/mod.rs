@@ -135,6 +135,23 @@ pub struct Fleet {
     /// Keyed by (`PREFIX/LAB`, frame).
     frames: BTreeMap<(String, String), FrameEntry>,
     ignored: IgnoredCounts,
+    /// The board's own link to each broker, keyed by (url, prefix).
+    brokers: BTreeMap<(String, String), (bool, i64)>,
+}
+
+/// The board's own link to one broker: while it is down every lab under it only looks quiet.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct BrokerView {
+    /// The broker's URL as configured.
+    pub url: String,
+    /// The prefix read there.
+    pub prefix: String,
+    /// Whether the board is connected and subscribed.
+    pub connected: bool,
+    /// Since when (RFC 3339 UTC).
+    pub since: String,
+    /// µs since 1970 UTC of `since`.
+    pub since_us: i64,
 }
 
 /// A lab as the board shows it.
@@ -207,6 +224,8 @@ pub struct FleetView {
     pub frames: Vec<FrameView>,
     /// Messages not taken.
     pub ignored: IgnoredCounts,
+    /// The board's own link to each broker.
+    pub brokers: Vec<BrokerView>,
 }
 
 /// A plain topic level: what the publisher's checked ids allow (letters, digits, `-`, `_`, up to 64).
@@ -245,6 +264,15 @@ impl Fleet {
             labs: BTreeMap::new(),
             frames: BTreeMap::new(),
             ignored: IgnoredCounts::default(),
+            brokers: BTreeMap::new(),
+        }
+    }
+
+    /// Records the board's link to the broker at `url` (read under `prefix`) going up or down at `now_us`.
+    pub fn broker_link(&mut self, url: &str, prefix: &str, connected: bool, now_us: i64) {
+        let entry = self.brokers.entry((url.to_string(), prefix.to_string())).or_insert((connected, now_us));
+        if entry.0 != connected {
+            *entry = (connected, now_us);
         }
     }
 
@@ -466,6 +494,17 @@ impl Fleet {
             labs,
             frames,
             ignored: self.ignored,
+            brokers: self
+                .brokers
+                .iter()
+                .map(|((url, prefix), (connected, since))| BrokerView {
+                    url: url.clone(),
+                    prefix: prefix.clone(),
+                    connected: *connected,
+                    since: rfc3339(*since),
+                    since_us: *since,
+                })
+                .collect(),
         }
     }
 }

@@ -51,8 +51,13 @@ async fn run(broker: MqttBroker, fleet: Arc<Mutex<Fleet>>, clock: Arc<dyn Clock>
     };
     let (client, mut events) = AsyncClient::new(options, 16);
     let mut backoff = BACKOFF_FIRST;
+    let link = |up: bool| {
+        fleet.lock().expect("the fleet board").broker_link(&broker.url.text, &broker.topic_prefix, up, clock.now_us());
+    };
+    link(false);
     loop {
         match events.poll().await {
+            Ok(Event::Incoming(Packet::SubAck(_))) => link(true),
             Ok(Event::Incoming(Packet::ConnAck(_))) => {
                 backoff = BACKOFF_FIRST;
                 tracing::info!("fleet: connected to {}, reading {}/…", broker.url.text, broker.topic_prefix);
@@ -79,6 +84,7 @@ async fn run(broker: MqttBroker, fleet: Arc<Mutex<Fleet>>, clock: Arc<dyn Clock>
             }
             Ok(_) => {}
             Err(e) => {
+                link(false);
                 tracing::warn!("fleet: {}: {e}; again in {} s", broker.url.text, backoff.as_secs());
                 tokio::time::sleep(backoff).await;
                 backoff = (backoff * 2).min(BACKOFF_LAST);

@@ -239,3 +239,16 @@ async fn a_foreign_host_is_refused() {
     let r = router.oneshot(req.unwrap()).await.unwrap();
     assert_eq!(r.status(), axum::http::StatusCode::MISDIRECTED_REQUEST);
 }
+
+#[test]
+fn the_board_s_own_broker_link_is_shown_with_since_when_it_last_changed() {
+    let mut f = board();
+    f.broker_link("mqtt://b", P, false, T0);
+    f.broker_link("mqtt://b", P, true, T0 + S);
+    f.broker_link("mqtt://b", P, true, T0 + 2 * S);
+    let v = f.view(T0 + 3 * S);
+    assert_eq!((v.brokers[0].connected, v.brokers[0].since_us), (true, T0 + S));
+    assert!(!board::render(&v).contains("not connected"));
+    f.broker_link("mqtt://b", P, false, T0 + 4 * S);
+    assert!(board::render(&f.view(T0 + 5 * S)).contains("The board itself is not connected to mqtt://b"));
+}

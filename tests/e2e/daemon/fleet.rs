@@ -173,6 +173,7 @@ fn the_fleet_board_lists_both_labs_ready_first_and_shows_a_lab_offline_after_its
     assert_eq!(lab(&v, "south")["status"], "online");
     assert_eq!(v["ignored"]["malformed"], 1, "{v}");
     assert_eq!(v["ignored"]["unexpected_topic"], 1, "{v}");
+    assert_eq!(v["brokers"][0]["connected"], true, "{v}");
     let page = board.get("/").unwrap();
     for text in ["north", "south", "http://north.lab.example:8321/", "gauge &lt;near&gt; its end", "content=\"10\""] {
         assert!(page.contains(text), "{text} not on the page:\n{page}");
