@@ -4,14 +4,15 @@
 //! `offline` status. `oedolog fleet` must list both labs and every frame, who needs a person first, ignore a
 //! malformed payload and an odd topic, refuse a write, and show the lab offline once that connection is
 //! killed and the broker publishes the will (MQTT 3.1.1 §3.1.2.5). Then the same with a real `oedolog demo`
-//! publishing as a lab: its payloads all parse, and a `kill -9` shows the lab offline.
+//! publishing as a lab: its payloads all parse, and a `kill -9` shows the lab offline. Stopping the broker
+//! shows the board's own link down.
 
 use std::process::{Command, Stdio};
 
 use oedolog_tests::temp_dir;
 use serde_json::{Value, json};
 
-use super::mqtt::{Killed, broker, free_port, wait_until};
+use super::mqtt::{Killed, broker, free_port, stop_broker, wait_until};
 use super::*;
 
 const PREFIX: &str = "soil-labs";
@@ -134,7 +135,7 @@ fn the_fleet_board_reads_a_real_demo_s_publications_and_shows_the_lab_offline_af
 fn the_fleet_board_lists_both_labs_ready_first_and_shows_a_lab_offline_after_its_last_will() {
     let dir = temp_dir();
     let port = free_port();
-    let _broker = broker(dir.path(), port);
+    let mosquitto = broker(dir.path(), port);
     let topic = |rest: &str| format!("{PREFIX}/{rest}");
     retain(port, &topic("north/status"), &lab_status("north", "online"));
     retain(port, &topic("north/f1/state"), &frame_state("north", "f1", "loading", &[]));
@@ -199,4 +200,12 @@ fn the_fleet_board_lists_both_labs_ready_first_and_shows_a_lab_offline_after_its
     assert_eq!(south_f1["rank"], 2, "{south_f1}");
     assert!(south_f1["needs"].as_array().unwrap().contains(&json!("lab-offline")), "{south_f1}");
     assert!(board.get("/").unwrap().contains("OFFLINE"), "no sign of the offline lab on the page");
+
+    // The board's own broker goes away: the page says the board is cut off, not that the labs are.
+    stop_broker(mosquitto);
+    wait_until("the board's broker link down", Duration::from_secs(15), || {
+        fleet_view(&board)["brokers"][0]["connected"] == false
+    });
+    assert!(board.get("/").unwrap().contains("The board itself is not connected"), "no banner for the lost broker");
+    assert_eq!(lab(&fleet_view(&board), "north")["status"], "online", "north's last word stands");
 }

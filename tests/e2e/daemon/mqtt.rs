@@ -44,7 +44,7 @@ pub(super) fn broker(dir: &Path, port: u16) -> ChildGuard {
     guard
 }
 
-fn stop_broker(guard: ChildGuard) {
+pub(super) fn stop_broker(guard: ChildGuard) {
     let status = Command::new("kill").args(["-TERM", &guard.id().to_string()]).status().unwrap();
     assert!(status.success());
     guard.wait_for_exit(Duration::from_secs(10)).unwrap();
