@@ -199,7 +199,7 @@ tr.r3 td:first-child{border-left:6px solid #c9ced4}\
 
 /// The board as one HTML page.
 pub fn render(view: &FleetView) -> String {
-    let now_us = chrono::DateTime::parse_from_rfc3339(&view.at).map_or(0, |t| t.timestamp_micros());
+    let now_us = view.at_us;
     let down = view.labs.iter().filter(|l| l.status != "online").count();
     let mut out = String::with_capacity(4096 + 600 * view.frames.len());
     out += "<!doctype html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">\

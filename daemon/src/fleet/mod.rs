@@ -216,6 +216,8 @@ pub struct FrameView {
 pub struct FleetView {
     /// When it was made (RFC 3339 UTC).
     pub at: String,
+    /// µs since 1970 UTC of `at`.
+    pub at_us: i64,
     /// `quiet_after_s` of the configuration.
     pub quiet_after_s: u64,
     /// Labs by prefix and name.
@@ -490,6 +492,7 @@ impl Fleet {
         });
         FleetView {
             at: rfc3339(now_us),
+            at_us: now_us,
             quiet_after_s: u64::try_from(self.quiet_after_us / 1_000_000).unwrap_or(0),
             labs,
             frames,
