@@ -3,7 +3,9 @@
 // Usage: node run.mjs [path/to/oedolog]   (default: target/debug/oedolog)
 import fs from "node:fs";
 import path from "node:path";
-import { openBrowser, repoRoot, startDemo } from "./demo.mjs";
+import net from "node:net";
+import { spawn } from "node:child_process";
+import { openBrowser, repoRoot, startDemo, tempDir } from "./demo.mjs";
 import { crossSiteAttack } from "./cross-site.mjs";
 
 const binary = path.resolve(process.argv[2] || path.join(repoRoot, "target/debug/oedolog"));
@@ -612,6 +614,95 @@ await step("an engineer drags a √t window, sees t90 change before saving, save
     await reviewDemo.stop();
   }
 }, 90000);
+
+// ---- fleet: three labs' demos publish into one broker; the board in Chromium lists them all ---------------
+// A free loopback port, and a process that is ready once a line of its output matches `ready`.
+const freePort = () => new Promise((resolve) => { const srv = net.createServer(); srv.listen(0, "127.0.0.1", () => { const { port } = srv.address(); srv.close(() => resolve(port)); }); });
+function startProcess(program, args, ready, label) {
+  const child = spawn(program, args, { stdio: ["ignore", "pipe", "pipe"], env: { ...process.env, RUST_LOG: process.env.RUST_LOG || "warn" } });
+  let out = "";
+  const stop = () => new Promise((resolve) => {
+    if (child.exitCode !== null || child.signalCode !== null) return resolve();
+    child.once("exit", () => resolve());
+    child.kill("SIGTERM");
+  });
+  return new Promise((resolve, reject) => {
+    const timer = setTimeout(() => { stop(); reject(new Error(label + ": not ready in 30 s:\n" + out.slice(-2000))); }, 30000);
+    const look = (chunk) => {
+      out += chunk.toString();
+      const m = out.match(ready);
+      if (m) { clearTimeout(timer); resolve({ match: m, stop, pid: child.pid, output: () => out }); }
+    };
+    child.stdout.on("data", look);
+    child.stderr.on("data", look);
+    child.once("exit", (code, signal) => { clearTimeout(timer); reject(new Error(label + " exited (" + (code ?? signal) + "):\n" + out.slice(-2000))); });
+  });
+}
+
+await step("three labs publish to one broker; the fleet board in Chromium lists every frame, and a killed lab goes offline", async () => {
+  const dir = tempDir("oedolog-fleet-");
+  const port = await freePort();
+  fs.writeFileSync(path.join(dir, "mosquitto.conf"), "listener " + port + " 127.0.0.1\nallow_anonymous true\nlog_dest stderr\n");
+  const broker = await startProcess("mosquitto", ["-c", path.join(dir, "mosquitto.conf")], / running/, "mosquitto");
+  const labs = ["north", "south", "west"];
+  const demos = [];
+  let board = null, browser = null;
+  try {
+    // keep_alive_s = 5: the broker sends a dead lab's last will within 1.5 keep-alives (MQTT 3.1.1 §3.1.2.10).
+    for (const lab of labs) {
+      demos.push(await startDemo({ binary, frames: 2, speed: 500, label: "demo " + lab, config:
+        `[[publish.mqtt]]\nurl = "mqtt://127.0.0.1:${port}"\nclient_id = "bt${lab}"\ntopic_prefix = "oedolog-bt"\nlab = "${lab}"\nkeep_alive_s = 5\n` }));
+    }
+    fs.writeFileSync(path.join(dir, "fleet.toml"), `[fleet]\nquiet_after_s = 20\n\n[[fleet.broker]]\nurl = "mqtt://127.0.0.1:${port}"\nclient_id = "btboard"\ntopic_prefix = "oedolog-bt"\n\n[http]\nlisten = "127.0.0.1:0"\n`);
+    board = await startProcess(binary, ["fleet", "--config", path.join(dir, "fleet.toml")], /listening on (http:\/\/[^\s/]+)\//, "oedolog fleet");
+    const base = board.match[1];
+    browser = await openBrowser();
+    const page = watch(await browser.newPage(), "fleet board");
+    // The page as a person reads it: the frames table's lab and frame cells, the labs table's status cells.
+    const read = async () => {
+      await page.goto(base + "/");
+      return page.evaluate(() => {
+        const [frames, labsTable] = document.querySelectorAll("table");
+        const rows = (t) => [...t.querySelectorAll("tbody tr")].map((r) => [...r.cells].map((c) => c.textContent.trim()));
+        return { frames: rows(frames).filter((r) => r.length > 2), labs: rows(labsTable) };
+      });
+    };
+    let seen = null;
+    for (let i = 0; i < 40; i++) {
+      seen = await read();
+      if (labs.every((l) => seen.frames.filter((r) => r[0] === l).length === 2)) break;
+      await page.waitForTimeout(500);
+    }
+    for (const l of labs) check(seen.frames.filter((r) => r[0] === l).length === 2, "lab " + l + " does not show its 2 frames: " + JSON.stringify(seen));
+    check(labs.every((l) => seen.labs.some((r) => r[0] === l && /online/i.test(r.join(" ")))), "labs not online: " + JSON.stringify(seen.labs));
+    await page.setViewportSize({ width: 1440, height: 900 });
+    await page.screenshot({ path: path.join(shots, "fleet-wide.png"), fullPage: true });
+    // kill -9 one lab: no DISCONNECT, so the broker publishes its will (at once here: the kernel closes the
+    // socket; a half-open link would take 1.5 keep-alives).
+    const killedAt = Date.now();
+    process.kill(demos[1].pid, "SIGKILL");
+    let gone = null;
+    for (let i = 0; i < 60 && !gone; i++) {
+      const v = await read();
+      const row = v.labs.find((r) => r[0] === "south");
+      if (row && /offline|quiet/i.test(row.join(" "))) gone = { after_s: (Date.now() - killedAt) / 1000, row };
+      else await page.waitForTimeout(500);
+    }
+    check(gone && gone.after_s <= 1.5 * 5 + 10, "south not shown offline within 1.5 keep-alives (+ 10 s): " + JSON.stringify(gone));
+    const after = await read();
+    check(after.labs.filter((r) => /online/i.test(r.join(" "))).length === 2, "the other labs stay online: " + JSON.stringify(after.labs));
+    await page.setViewportSize({ width: 390, height: 844 });
+    await page.screenshot({ path: path.join(shots, "fleet-phone.png"), fullPage: true });
+    const narrow = await page.evaluate(() => ({ scroll: document.documentElement.scrollWidth, client: document.documentElement.clientWidth }));
+    check(narrow.scroll <= narrow.client + 1, "the fleet board is wider than a phone: " + JSON.stringify(narrow));
+    console.log("  fleet: 3 labs × 2 frames listed; south offline " + gone.after_s.toFixed(1) + " s after kill -9; phone width " + narrow.scroll + "/" + narrow.client + " px");
+  } finally {
+    if (browser) await browser.close();
+    if (board) await board.stop();
+    for (const d of demos) await d.stop();
+    await broker.stop();
+  }
+}, 120000);
 
 await step("no page raised an error", async () => { check(pageErrors.length === 0, pageErrors.join("\n")); }, 1000);
 

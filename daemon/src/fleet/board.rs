@@ -136,7 +136,7 @@ fn lab_row(l: &LabView, now_us: i64) -> String {
         escape_html(&l.lab),
         escape_html(&l.prefix),
         span(now_us - l.since_us),
-        escape_html(&l.since),
+        escape_html(&crate::http::minute_text(&l.since)),
         l.frames,
         link(l.dashboard.as_deref()),
     )
@@ -155,8 +155,10 @@ fn frame_row(f: &FrameView, now_us: i64, quiet_after_s: u64) -> String {
             if let Some(s) = specimen {
                 parts.push(escape_html(s));
             }
-            if let Some(n) = step {
-                parts.push(format!("step {n}"));
+            match step {
+                Some(0) => parts.push("seating".to_string()),
+                Some(n) => parts.push(format!("load step {n}")),
+                None => {}
             }
             if let Some(kpa) = stress {
                 parts.push(format!("{kpa:.1} kPa"));
@@ -182,9 +184,10 @@ fn frame_row(f: &FrameView, now_us: i64, quiet_after_s: u64) -> String {
     format!(
         "<tr class=\"{class}\"><td>{}</td><td>{frame}</td><td><b>{}</b></td><td>{needs}</td><td>{} ago<br><span class=\"dim\">{}</span></td><td>{test}</td><td>{}</td></tr>\n",
         escape_html(&f.lab),
-        escape_html(&f.state),
+        // The dashboard's words for the lab's state codes (an unknown code shows as sent, escaped).
+        escape_html(crate::http::state_word(&f.state)),
         span(now_us - f.since_us),
-        escape_html(&f.since),
+        escape_html(&crate::http::minute_text(&f.since)),
         link(f.dashboard.as_deref()),
     )
 }
@@ -195,7 +198,9 @@ vertical-align:top;border-bottom:1px solid #d5d9de}th{font-size:.8rem;text-trans
 .dim{color:#6b7580;font-size:.85rem}tr.down td{background:#fde3e0}tr.r0 td:first-child{border-left:6px solid #2f7d32}\
 tr.r1 td:first-child{border-left:6px solid #c62828}tr.r2 td:first-child{border-left:6px solid #8a6d00}\
 tr.r3 td:first-child{border-left:6px solid #c9ced4}\
-.alert{background:#fde3e0;border:2px solid #c62828;padding:.5rem .8rem;font-weight:600}";
+.alert{background:#fde3e0;border:2px solid #c62828;padding:.5rem .8rem;font-weight:600}\
+@media (max-width:600px){body{margin:.6rem}thead{display:none}table,tbody,tr,td{display:block}\
+tr{border-bottom:1px solid #d5d9de;padding:.3rem 0}td{border:none;padding:.1rem .4rem}td:first-child{font-weight:600}}";
 
 /// The board as one HTML page.
 pub fn render(view: &FleetView) -> String {
@@ -211,14 +216,14 @@ pub fn render(view: &FleetView) -> String {
         "<h1>oedolog fleet</h1>\n<p class=\"dim\">{} lab(s), {} frame(s), {down} lab(s) not online · as of {} · reloads every 10 s · read-only: act on each lab's own dashboard</p>\n",
         view.labs.len(),
         view.frames.len(),
-        escape_html(&view.at),
+        escape_html(&crate::http::minute_text(&view.at)),
     );
     for b in view.brokers.iter().filter(|b| !b.connected) {
         out += &format!(
             "<p class=\"alert\">The board itself is not connected to {} (prefix {}) since {}: labs read there only look quiet.</p>\n",
             escape_html(&b.url),
             escape_html(&b.prefix),
-            escape_html(&b.since),
+            escape_html(&crate::http::minute_text(&b.since)),
         );
     }
     out += "<h2>Frames, who needs a person first</h2>\n<table><thead><tr><th>Lab</th><th>Frame</th><th>State</th><th>What needs doing</th><th>Since</th><th>Test</th><th>Link</th></tr></thead><tbody>\n";

@@ -56,7 +56,9 @@ pub use guard::Guard;
 pub(crate) use guard::{check as check_request, security_headers};
 pub use increments::{STANDARD_GRAVITY_M_PER_S2, hanger_stress_kpa};
 pub(crate) use overview::escape as escape_html;
+pub(crate) use overview::minute_text;
 pub use serve::{ConnectionCount, ServeLimits, serve};
+pub(crate) use words::state_word;
 
 /// What the handlers share.
 #[derive(Clone)]

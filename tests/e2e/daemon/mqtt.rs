@@ -128,9 +128,9 @@ fn a_broker_away_at_start_stopped_mid_run_and_a_kill_dash_nine_lose_no_reading_a
     wait_until("connected", Duration::from_secs(30), || metric(&daemon, "oedolog_publish_connected") == 1.0);
     wait_until("caught up", Duration::from_secs(30), || metric(&daemon, "oedolog_publish_lag_seconds") < 2.0);
 
-    // 3. The broker is stopped for 5 s mid-run, then restarted.
+    // 3. The broker is stopped for 30 s mid-run (as the issue asks), then restarted.
     stop_broker(second);
-    std::thread::sleep(Duration::from_secs(5));
+    std::thread::sleep(Duration::from_secs(30));
     let third = broker(dir.path(), port);
     wait_until("reconnected", Duration::from_secs(60), || metric(&daemon, "oedolog_publish_connected") == 1.0);
     wait_until("caught up again", Duration::from_secs(30), || metric(&daemon, "oedolog_publish_lag_seconds") < 2.0);
