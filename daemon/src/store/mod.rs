@@ -194,6 +194,10 @@ pub fn open(path: &Path) -> Result<Database, StoreError> {
     debug_assert_eq!(mode, "wal");
     conn.pragma_update(None, "synchronous", "FULL")?;
     conn.pragma_update(None, "foreign_keys", "ON")?;
+    // 16 MiB of page cache (SQLite's default is 2 MiB): the writer's inserts into the readings index re-read
+    // fewer pages from the OS cache; tests/bench/cpu-per-reading.sh went from 15.4 to 12.1–12.6 µs per
+    // stored reading with it.
+    conn.pragma_update(None, "cache_size", -16_384)?;
     let check: String = conn.query_row("PRAGMA quick_check", [], |r| r.get(0))?;
     if check != "ok" {
         return Err(StoreError::Damaged(check));
