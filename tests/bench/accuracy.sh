@@ -22,7 +22,7 @@ cleanup() {
 }
 trap cleanup EXIT
 
-target/release/oedolog demo --frames "$frames" --speed "$speed" --listen 127.0.0.1:0 --db "$work/demo.sqlite" \
+"${CARGO_TARGET_DIR:-target}"/release/oedolog demo --frames "$frames" --speed "$speed" --listen 127.0.0.1:0 --db "$work/demo.sqlite" \
   --truth "$work/truth.jsonl" > "$work/demo.out" 2> "$work/demo.err" &
 demo=$!
 for _ in $(seq 1 200); do
