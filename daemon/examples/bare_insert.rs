@@ -1,5 +1,6 @@
 //! The baseline of `tests/bench/cpu-per-reading.sh`: readings straight into rusqlite, no writer thread,
-//! no channel, same schema and pragmas as the store (WAL, synchronous=FULL), in transactions of BATCH;
+//! no channel, same schema and pragmas as the store (WAL, synchronous=FULL, the writer's page cache), in
+//! transactions of BATCH;
 //! prints the process's CPU time per reading (from /proc/self/stat, all threads).
 //! Run: `cargo run --release -p oedolog --example bare_insert -- DB READINGS BATCH FRAMES`.
 
@@ -32,6 +33,7 @@ fn main() {
     drop(db);
     let mut conn = rusqlite::Connection::open(path).expect("reopen");
     conn.pragma_update(None, "synchronous", "FULL").expect("synchronous");
+    conn.pragma_update(None, "cache_size", -store::WRITER_CACHE_KIB).expect("cache_size");
     let start_us = 1_796_000_000_000_000i64;
     let cpu0 = cpu_us();
     let started = Instant::now();

@@ -158,8 +158,8 @@ pub struct PolledFrame {
     pub unit: UnitId,
     /// Channels.
     pub channels: Vec<ChannelPlan>,
-    /// Requests that read them.
-    pub reads: Vec<ReadPlan>,
+    /// Requests that read them (shared: a poll walks them while the frame takes readings).
+    pub reads: Arc<[ReadPlan]>,
     /// Poll periods.
     pub poll: PollSchedule,
     /// Fast polling lasts until this clock instant, µs.
@@ -223,7 +223,7 @@ impl PolledFrame {
         if let Some(t) = &frame.temperature {
             channels.push(channel_plan(ChannelKind::Temperature, t));
         }
-        let reads = plan_reads(&channels);
+        let reads = plan_reads(&channels).into();
         let refused = vec![None; channels.len()];
         PolledFrame {
             index,

@@ -213,7 +213,8 @@ async fn poll_frame<L: Link>(
     sinks: &Sinks,
     timeouts_in_row: &mut u32,
 ) -> Result<(), io::Error> {
-    for read in frame.reads.clone() {
+    let reads = std::sync::Arc::clone(&frame.reads);
+    for read in reads.iter() {
         let mut attempt = 0;
         let mut counters = Counters::default();
         let outcome = loop {
@@ -303,7 +304,9 @@ pub async fn run_bus<C: Connector>(
         let mut due: Vec<Instant> = frames.iter().map(|_| start).collect();
         let error = loop {
             let (i, &when) = due.iter().enumerate().min_by_key(|(_, d)| **d).expect("a bus has frames");
-            tokio::time::sleep_until(when).await;
+            if when > Instant::now() {
+                tokio::time::sleep_until(when).await;
+            }
             let result = poll_frame(
                 &mut link,
                 &mut master,
