@@ -170,6 +170,7 @@
     "load-drift": "Load off target",
     temperature: "Temperature out of band",
     "bus-errors": "Bus errors",
+    "publish-lag": "Publishing behind",
   };
 
   // The frame's alarms: the daemon's own (raised, perhaps acknowledged, until their condition clears) and
@@ -256,6 +257,21 @@
     b.textContent = text;
   }
 
+  // Alarms about the lab as a whole (a bus, a broker the readings are published to): one banner each,
+  // in the daemon's words, until the condition clears.
+  function labAlarms(alarms) {
+    const host = document.getElementById("banners");
+    if (!host) return;
+    const open = new Set(alarms.map((a) => "lab-alarm-" + a.id));
+    host.querySelectorAll("[data-lab-alarm]").forEach((b) => { if (!open.has(b.id)) b.remove(); });
+    for (const a of alarms) {
+      const seen = a.acknowledged_by ? " (seen by " + a.acknowledged_by + ")" : "";
+      banner("lab-alarm-" + a.id, "lab-alarm", "⚠ " + (O.ALARM_WORDS[a.code] || a.code) + ": " + a.message + seen);
+      const b = document.getElementById("lab-alarm-" + a.id);
+      if (b) { b.dataset.labAlarm = a.code; b.setAttribute("role", "alert"); }
+    }
+  }
+
   async function checkHealth() {
     const r = await O.api("GET", "/healthz");
     if (r.ok) {
@@ -265,6 +281,7 @@
       document.body.dataset.simulated = sim ? "true" : "false";
       applyUnits();
       banner("sim-banner", "sim", sim ? "Demo: simulated time, " + r.data.clock_speed + "× faster than real time; the frames are emulated." : null);
+      labAlarms(Array.isArray(r.data.lab_alarms) ? r.data.lab_alarms : []);
     }
     return r.ok;
   }

@@ -252,6 +252,7 @@ impl Assembled {
             stale_after: state.stale_after.clone(),
             keys: keys.clone(),
             facts: FrameFacts::of(config),
+            outlets: crate::alarms::task::OutletSource::of(config, &state.publish),
         };
         tasks.push(tokio::spawn(
             AlarmTask::new(sources, config.alarms.clone(), state.alarms.clone(), open_alarms).run(),

@@ -639,7 +639,7 @@ function startProcess(program, args, ready, label) {
   });
 }
 
-await step("three labs publish to one broker; the fleet board in Chromium lists every frame, and a killed lab goes offline", async () => {
+await step("three labs publish to one broker; the fleet board in Chromium lists every frame, and a killed lab goes offline; the broker gone, a lab's page shows the publish-lag banner", async () => {
   const dir = tempDir("oedolog-fleet-");
   const port = await freePort();
   fs.writeFileSync(path.join(dir, "mosquitto.conf"), "listener " + port + " 127.0.0.1\nallow_anonymous true\nlog_dest stderr\n");
@@ -651,7 +651,7 @@ await step("three labs publish to one broker; the fleet board in Chromium lists 
     // keep_alive_s = 5: the broker sends a dead lab's last will within 1.5 keep-alives (MQTT 3.1.1 §3.1.2.10).
     for (const lab of labs) {
       demos.push(await startDemo({ binary, frames: 2, speed: 500, label: "demo " + lab, config:
-        `[[publish.mqtt]]\nurl = "mqtt://127.0.0.1:${port}"\nclient_id = "bt${lab}"\ntopic_prefix = "oedolog-bt"\nlab = "${lab}"\nkeep_alive_s = 5\n` }));
+        `[[publish.mqtt]]\nurl = "mqtt://127.0.0.1:${port}"\nclient_id = "bt${lab}"\ntopic_prefix = "oedolog-bt"\nlab = "${lab}"\nkeep_alive_s = 5\nlag_alarm_s = 10\n` }));
     }
     fs.writeFileSync(path.join(dir, "fleet.toml"), `[fleet]\nquiet_after_s = 20\n\n[[fleet.broker]]\nurl = "mqtt://127.0.0.1:${port}"\nclient_id = "btboard"\ntopic_prefix = "oedolog-bt"\n\n[http]\nlisten = "127.0.0.1:0"\n`);
     board = await startProcess(binary, ["fleet", "--config", path.join(dir, "fleet.toml")], /listening on (http:\/\/[^\s/]+)\//, "oedolog fleet");
@@ -695,14 +695,29 @@ await step("three labs publish to one broker; the fleet board in Chromium lists 
     await page.screenshot({ path: path.join(shots, "fleet-phone.png"), fullPage: true });
     const narrow = await page.evaluate(() => ({ scroll: document.documentElement.scrollWidth, client: document.documentElement.clientWidth }));
     check(narrow.scroll <= narrow.client + 1, "the fleet board is wider than a phone: " + JSON.stringify(narrow));
-    console.log("  fleet: 3 labs × 2 frames listed; south offline " + gone.after_s.toFixed(1) + " s after kill -9; phone width " + narrow.scroll + "/" + narrow.client + " px");
+    // The broker goes away: past lag_alarm_s (10 s, real time) a lab's own dashboard says so on a banner.
+    await broker.stop();
+    const brokerGoneAt = Date.now();
+    const labPage = watch(await browser.newPage(), "north dashboard, broker away");
+    await labPage.setViewportSize({ width: 390, height: 844 });
+    await labPage.goto(demos[0].base + "/");
+    const lagBanner = labPage.locator('#banners [data-lab-alarm="publish-lag"]');
+    await lagBanner.waitFor({ timeout: 40000 });
+    const lagWords = await lagBanner.textContent();
+    const lagAfter = (Date.now() - brokerGoneAt) / 1000;
+    check(/Publishing behind/.test(lagWords) && lagWords.includes("mqtt://127.0.0.1:" + port + " (lab north)") && /behind the store by more than its limit of 10 s/.test(lagWords),
+      "the publish-lag banner does not say what and where: " + lagWords);
+    await labPage.screenshot({ path: path.join(shots, "publish-lag-phone.png") });
+    const lagFits = await labPage.evaluate(() => document.documentElement.scrollWidth <= document.documentElement.clientWidth + 1);
+    check(lagFits, "the publish-lag banner makes the page wider than a phone");
+    console.log("  fleet: 3 labs × 2 frames listed; south offline " + gone.after_s.toFixed(1) + " s after kill -9; phone width " + narrow.scroll + "/" + narrow.client + " px; publish-lag banner " + lagAfter.toFixed(1) + " s after the broker stopped");
   } finally {
     if (browser) await browser.close();
     if (board) await board.stop();
     for (const d of demos) await d.stop();
     await broker.stop();
   }
-}, 120000);
+}, 180000);
 
 await step("no page raised an error", async () => { check(pageErrors.length === 0, pageErrors.join("\n")); }, 1000);
 

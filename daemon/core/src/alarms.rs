@@ -13,7 +13,9 @@
 //! - `load-drift`: the load differs from the increment's expected force by more than ±0.5 % (the watch's
 //!   load check);
 //! - `temperature`: the temperature channel is outside the configured band;
-//! - `bus-errors`: the share of failed requests on a bus over the window is above the threshold.
+//! - `bus-errors`: the share of failed requests on a bus over the window is above the threshold;
+//! - `publish-lag`: an outlet (an MQTT broker) is further behind the store than its limit (the
+//!   publisher keeps the hysteresis: raised past the limit, cleared under half of it).
 //!
 //! Each condition has a hysteresis so a value hovering at a limit does not raise and clear every poll.
 
@@ -70,6 +72,8 @@ pub enum Subject {
     Frame(usize),
     /// A bus, by config id.
     Bus(String),
+    /// An outlet the store is published to (an MQTT broker), by its key (`url client_id`).
+    Outlet(String),
 }
 
 /// One kind of alarm.
@@ -90,6 +94,8 @@ pub enum Code {
     Temperature,
     /// Too many failed requests on a bus.
     BusErrors,
+    /// Publishing to an outlet is too far behind the store.
+    PublishLag,
 }
 
 impl Code {
@@ -103,11 +109,12 @@ impl Code {
             Code::LoadDrift => "load-drift",
             Code::Temperature => "temperature",
             Code::BusErrors => "bus-errors",
+            Code::PublishLag => "publish-lag",
         }
     }
 
     /// Every code, for `/metrics`.
-    pub const ALL: [Code; 7] = [
+    pub const ALL: [Code; 8] = [
         Code::Stale,
         Code::GaugeTravel,
         Code::OutOfRange,
@@ -115,6 +122,7 @@ impl Code {
         Code::LoadDrift,
         Code::Temperature,
         Code::BusErrors,
+        Code::PublishLag,
     ];
 
     /// The code of a stored name.
@@ -157,6 +165,22 @@ pub struct BusInput {
     pub requests: u64,
     /// Requests that failed: timeouts, CRC or framing errors, exceptions.
     pub errors: u64,
+}
+
+/// What the publisher knows of one outlet now.
+#[derive(Clone, Debug, Default)]
+pub struct OutletInput {
+    /// Its key (`url client_id`), the alarm's subject.
+    pub id: String,
+    /// What a person reads: the broker's URL and the lab name it publishes as.
+    pub name: String,
+    /// The publisher's own verdict, with its hysteresis: behind by more than the limit (and not yet back
+    /// under half of it).
+    pub behind: bool,
+    /// How far behind the store, real seconds.
+    pub lag_s: f64,
+    /// The limit (`lag_alarm_s`), s.
+    pub limit_s: f64,
 }
 
 /// A transition the engine decided.
@@ -425,6 +449,30 @@ impl AlarmEngine {
                 || format!("frame {}: temperature back in its band", f.id),
             ));
         }
+    }
+
+    /// The transitions of the outlets at `now_us`.
+    pub fn evaluate_outlets(&mut self, now_us: i64, outlets: &[OutletInput]) -> Vec<Transition> {
+        let mut out = Vec::new();
+        for o in outlets {
+            out.extend(self.set(
+                now_us,
+                &Subject::Outlet(o.id.clone()),
+                Code::PublishLag,
+                Some(o.behind),
+                || {
+                    (
+                        format!(
+                            "publishing to {} fell behind the store by more than its limit of {:.0} s ({:.1} s when raised): every reading is kept and goes out when the broker takes it",
+                            o.name, o.limit_s, o.lag_s
+                        ),
+                        serde_json::json!({"lag_s": o.lag_s, "limit_s": o.limit_s}),
+                    )
+                },
+                || format!("publishing to {} caught up", o.name),
+            ));
+        }
+        out
     }
 
     fn bus(&mut self, now_us: i64, bus: &BusInput, out: &mut Vec<Transition>) {

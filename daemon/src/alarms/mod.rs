@@ -20,6 +20,8 @@ pub struct AlarmView {
     pub frame: Option<String>,
     /// The bus id, for a bus alarm.
     pub bus: Option<String>,
+    /// The outlet (an MQTT broker's `url client_id`), for a `publish-lag` alarm.
+    pub outlet: Option<String>,
     /// What a person reads.
     pub message: String,
     /// Raised, UTC µs.
@@ -34,20 +36,23 @@ pub struct AlarmView {
 }
 
 impl AlarmView {
-    /// A just-raised alarm: nobody has acknowledged it yet.
+    /// A just-raised alarm: nobody has acknowledged it yet. `place` is the stored `bus` column: a bus id,
+    /// or for a `publish-lag` alarm the outlet's key (see [`place`]).
     pub fn raised(
         id: i64,
         code: Code,
         frame: Option<String>,
-        bus: Option<String>,
+        place: Option<String>,
         message: String,
         raised_us: i64,
     ) -> Self {
+        let (bus, outlet) = self::place(code, place);
         AlarmView {
             id,
             code: code.name(),
             frame,
             bus,
+            outlet,
             message,
             raised_us,
             raised_at: crate::clock::rfc3339(raised_us),
@@ -55,6 +60,12 @@ impl AlarmView {
             acknowledged_at: None,
         }
     }
+}
+
+/// (bus, outlet) of an alarm from its stored `bus` column: the column names the outlet of a
+/// `publish-lag` alarm (an alarm about neither a frame nor a bus; no column of its own was needed).
+pub fn place(code: Code, stored: Option<String>) -> (Option<String>, Option<String>) {
+    if code == Code::PublishLag { (None, stored) } else { (stored, None) }
 }
 
 /// Counters for `/metrics`.
@@ -81,6 +92,11 @@ impl AlarmBoard {
     /// The counters.
     pub fn counts(&self) -> AlarmCounts {
         self.inner.read().unwrap_or_else(|e| e.into_inner()).1.clone()
+    }
+
+    /// The open alarms about the lab as a whole (a bus, an outlet), not one frame.
+    pub fn of_lab(&self) -> Vec<AlarmView> {
+        self.open().into_iter().filter(|a| a.frame.is_none()).collect()
     }
 
     /// The open alarms of frame `id`.

@@ -14,7 +14,7 @@ use crate::lab::Lab;
 use crate::store::alarms::{self as stored, Acknowledged, AlarmChange, AlarmStored};
 use crate::store::{Reader, StoreError, Writer};
 use crate::watch::Hub;
-use oedolog_core::alarms::{AlarmEngine, AlarmRules, BusInput, Code, FrameInput, Subject, Transition};
+use oedolog_core::alarms::{AlarmEngine, AlarmRules, BusInput, Code, FrameInput, OutletInput, Subject, Transition};
 
 /// How often the conditions are judged, clock time.
 pub const PERIOD: Duration = Duration::from_secs(5);
@@ -65,9 +65,52 @@ pub struct AlarmSources {
     pub keys: Vec<i64>,
     /// The configured facts.
     pub facts: FrameFacts,
+    /// The outlets publishing the store (`[[publish.mqtt]]`), with their publishers' stats.
+    pub outlets: Vec<OutletSource>,
+}
+
+/// One outlet as the alarm task sees it.
+#[derive(Clone, Debug)]
+pub struct OutletSource {
+    /// What a person reads: "MQTT broker URL (lab LAB)".
+    pub name: String,
+    /// `lag_alarm_s`.
+    pub limit: Duration,
+    /// Its publisher's stats (the subject's key is `stats.name`).
+    pub stats: Arc<crate::publish::BrokerStats>,
+}
+
+impl OutletSource {
+    /// One per `[[publish.mqtt]]`, with the stats its publisher updates (both in config order).
+    pub fn of(config: &Config, stats: &crate::publish::PublishStats) -> Vec<OutletSource> {
+        config
+            .publish
+            .mqtt
+            .iter()
+            .zip(&stats.brokers)
+            .map(|(b, s)| OutletSource {
+                name: format!("MQTT broker {} (lab {})", b.url.text, b.lab),
+                limit: b.lag_alarm,
+                stats: s.clone(),
+            })
+            .collect()
+    }
 }
 
 impl AlarmSources {
+    fn outlet_inputs(&self) -> Vec<OutletInput> {
+        self.outlets
+            .iter()
+            .map(|o| OutletInput {
+                id: o.stats.name.clone(),
+                name: o.name.clone(),
+                behind: o.stats.lag_alarm(),
+                lag_s: o.stats.lag_s(),
+                limit_s: o.limit.as_secs_f64(),
+            })
+            .collect()
+    }
+
     fn inputs(&self) -> (Vec<FrameInput>, Vec<BusInput>) {
         let live = self.live.snapshot();
         let tests = self.lab.snapshot();
@@ -119,6 +162,7 @@ pub fn load_open(conn: &Reader, keys: &[i64]) -> Result<Vec<(Subject, Code, Alar
         let Some(code) = alarm.code else { continue };
         let subject = match (alarm.frame_key.and_then(|k| keys.iter().position(|&x| x == k)), &alarm.bus) {
             (Some(index), _) => Subject::Frame(index),
+            (None, Some(b)) if code == Code::PublishLag => Subject::Outlet(b.clone()),
             (None, Some(b)) => Subject::Bus(b.clone()),
             // A frame no longer configured: its alarm can never clear by itself; leave it out.
             (None, None) => continue,
@@ -157,7 +201,8 @@ impl AlarmTask {
     pub async fn tick(&mut self) -> usize {
         let now = self.sources.clock.now_us();
         let (frames, buses) = self.sources.inputs();
-        let transitions = self.engine.evaluate(now, &frames, &buses);
+        let mut transitions = self.engine.evaluate(now, &frames, &buses);
+        transitions.extend(self.engine.evaluate_outlets(now, &self.sources.outlet_inputs()));
         if transitions.is_empty() {
             return 0;
         }
@@ -234,7 +279,7 @@ fn apply(
             Transition::Raise { subject, code, message, data } => {
                 let (frame_key, bus) = match &subject {
                     Subject::Frame(i) => (keys.get(*i).copied(), None),
-                    Subject::Bus(b) => (None, Some(b.clone())),
+                    Subject::Bus(b) | Subject::Outlet(b) => (None, Some(b.clone())),
                 };
                 about.push((subject, code, Some((message.clone(), bus.clone()))));
                 changes.push(AlarmChange::Raise { frame_key, bus, code, message, data });

@@ -45,7 +45,7 @@ pub(crate) struct RawMqtt {
     pub ca_file: Option<Spanned<String>>,
     /// QoS of every publication: 0 or 1 (default 1).
     pub qos: Option<Spanned<i64>>,
-    /// Publishing further behind the store than this raises the `publish-lag` journal alarm, s (10..=86400;
+    /// Publishing further behind the store than this raises the `publish-lag` alarm, s (10..=86400;
     /// default 300).
     pub lag_alarm_s: Option<Spanned<i64>>,
     /// MQTT keep-alive, s (5..=600; default 30).
@@ -147,7 +147,7 @@ pub struct MqttBroker {
     pub ca: Vec<CertificateDer<'static>>,
     /// 0 or 1.
     pub qos: u8,
-    /// Lag behind the store that raises the `publish-lag` journal alarm.
+    /// Lag behind the store that raises the `publish-lag` alarm.
     pub lag_alarm: Duration,
     /// MQTT keep-alive.
     pub keep_alive: Duration,

@@ -17,6 +17,7 @@ use crate::alarms::AlarmView;
 use crate::alarms::task::{AckError, acknowledge};
 use crate::clock::rfc3339;
 use crate::store::alarms::history;
+use oedolog_core::alarms::Code;
 
 /// One alarm of the store, open or closed.
 #[derive(Debug, Serialize)]
@@ -25,6 +26,7 @@ struct StoredAlarm {
     code: String,
     frame: Option<String>,
     bus: Option<String>,
+    outlet: Option<String>,
     message: String,
     raised_at: String,
     acknowledged_by: Option<String>,
@@ -44,17 +46,24 @@ async fn list(
         Some("all") => {
             let rows = state
                 .read(move |conn| {
-                    let rows = history(conn, limit)?.into_iter().map(|a| StoredAlarm {
-                        id: a.id,
-                        code: a.code,
-                        frame: a.frame,
-                        bus: a.bus,
-                        message: a.message,
-                        raised_at: rfc3339(a.raised_us),
-                        acknowledged_by: a.acknowledged_by,
-                        acknowledged_at: a.acknowledged_us.map(rfc3339),
-                        cleared_at: a.cleared_us.map(rfc3339),
-                        open: a.cleared_us.is_none(),
+                    let rows = history(conn, limit)?.into_iter().map(|a| {
+                        let (bus, outlet) = match Code::from_name(&a.code) {
+                            Some(code) => crate::alarms::place(code, a.bus),
+                            None => (a.bus, None),
+                        };
+                        StoredAlarm {
+                            id: a.id,
+                            code: a.code,
+                            frame: a.frame,
+                            bus,
+                            outlet,
+                            message: a.message,
+                            raised_at: rfc3339(a.raised_us),
+                            acknowledged_by: a.acknowledged_by,
+                            acknowledged_at: a.acknowledged_us.map(rfc3339),
+                            cleared_at: a.cleared_us.map(rfc3339),
+                            open: a.cleared_us.is_none(),
+                        }
                     });
                     Ok(rows.collect::<Vec<_>>())
                 })

@@ -177,6 +177,8 @@ async fn healthz(State(state): State<AppState>) -> impl IntoResponse {
         "display": state.display,
         // Every unit the dashboard's switch offers, with its factor.
         "display_options": oedolog_core::units::OPTIONS,
+        // Open alarms about the lab as a whole (a bus, an outlet): every page shows them as a banner.
+        "lab_alarms": state.alarms.of_lab(),
     }))
 }
 

@@ -903,6 +903,7 @@ async fn an_alarm_is_raised_acknowledged_by_name_and_cleared_with_every_step_jou
             bus_of: vec!["sim".into(), "sim".into()],
             buses: vec!["sim".into()],
         },
+        outlets: Vec::new(),
     };
     let mut task = AlarmTask::new(sources, Default::default(), s.alarms.clone(), Vec::new());
     assert_eq!(task.tick().await, 0, "nothing wrong yet");
@@ -1010,6 +1011,7 @@ async fn armed_with_an_open_alarm(b: &Bench, who: Who) -> i64 {
             bus_of: vec!["sim".into(), "sim".into()],
             buses: vec!["sim".into()],
         },
+        outlets: Vec::new(),
     };
     let mut task = AlarmTask::new(sources, Default::default(), s.alarms.clone(), Vec::new());
     b.clock.advance_us(31_000_000);

@@ -7,8 +7,8 @@
 //! away, slow or refusing is caught up in store order on its return, with no gap, and a repeat only where
 //! QoS 1's at-least-once allows one — every reading carries its channel's sequence number, every journal
 //! entry its id, for a consumer to drop repeats. Acquisition and the store never wait on it: it reads
-//! what is committed and writes nothing but its cursors and the `publish-lag`/`publish-caught-up`
-//! entries. Each session is a fresh rumqttc connection with a clean session; on any failure the
+//! what is committed and writes nothing but its cursors; how far behind it is (and its verdict, behind
+//! the `publish-lag` alarm) is in [`BrokerStats`]. Each session is a fresh rumqttc connection with a clean session; on any failure the
 //! connection is dropped and the task retries with doubling back-off from the saved cursors. It must
 //! never command anything: it only publishes, and subscribes to nothing.
 
@@ -27,7 +27,7 @@ use crate::clock::{Clock, rfc3339};
 use crate::config::MqttBroker;
 use crate::http::AppState;
 use crate::store::publish::{Cursors, ReadingCursor};
-use crate::store::{self, ChannelKind, Event, EventKind, Reader, StoreError, Writer, journal};
+use crate::store::{self, ChannelKind, Reader, StoreError, Writer, journal};
 
 /// Readings of one channel in one message at most (a catching-up pass sends full batches back to back).
 const READINGS_PER_CHANNEL: i64 = 200;
@@ -262,7 +262,6 @@ impl BrokerTask {
         options.set_clean_session(true);
         options.set_max_packet_size(MAX_PACKET_BYTES, MAX_PACKET_BYTES);
         options.set_inflight(u16::MAX);
-        options.set_request_channel_capacity(self.frames.len() * 2 + EVENTS_PER_PASS as usize + 8);
         // MQTT 3.1.1 §3.1.2.5–§3.1.2.7: the broker publishes this, retained, when we vanish without DISCONNECT.
         options.set_last_will(LastWill::new(
             format!("{}/status", b.lab_topic()),
@@ -293,7 +292,7 @@ impl BrokerTask {
 
     /// One connection: CONNACK, `online`, then passes until something fails.
     async fn session(&mut self, reader: &mut Option<Reader>, backoff: &mut Backoff) -> Result<(), SessionError> {
-        let (client, mut events) = AsyncClient::new(self.options()?, 16);
+        let (client, mut events) = new_client(self.options()?, self.frames.len());
         let within = self.policy.answer_within;
         loop {
             match tokio::time::timeout(within, events.poll()).await {
@@ -456,7 +455,7 @@ impl BrokerTask {
     }
 
     /// Measures the lag from the store (the oldest reading or entry after the cursors) and raises or
-    /// clears the `publish-lag` journal alarm.
+    /// clears the verdict behind the `publish-lag` alarm.
     async fn measure_lag(&self, reader: &mut Option<Reader>) {
         let (path, cursors) = (self.store_path.clone(), self.cursors.clone());
         let taken = reader.take();
@@ -482,32 +481,35 @@ impl BrokerTask {
         self.stats.lag_ms.store((lag_s * 1e3) as i64, Ordering::Relaxed);
         let limit = self.broker.lag_alarm.as_secs_f64();
         let raised = self.stats.lag_alarm();
-        let change = if !raised && lag_s > limit {
-            Some((
-                EventKind::PublishLag,
-                format!(
-                    "publishing to MQTT broker {} is {lag_s:.0} s behind the store (limit {limit:.0} s); nothing is lost, it catches up when the broker takes it",
-                    self.broker.url.text
-                ),
-            ))
+        // The verdict, with its hysteresis (past the limit raises, under half of it clears); the alarm
+        // task turns it into the `publish-lag` alarm (stored, journalled, on every page's banner).
+        if !raised && lag_s > limit {
+            self.stats.lag_alarm.store(true, Ordering::Relaxed);
+            tracing::warn!(
+                "publishing to MQTT broker {} is {lag_s:.0} s behind the store (limit {limit:.0} s); nothing is lost, it catches up when the broker takes it",
+                self.broker.url.text
+            );
         } else if raised && lag_s <= limit / 2.0 {
-            Some((EventKind::PublishCaughtUp, format!("publishing to MQTT broker {} caught up", self.broker.url.text)))
-        } else {
-            None
-        };
-        if let Some((kind, message)) = change {
-            self.stats.lag_alarm.store(kind == EventKind::PublishLag, Ordering::Relaxed);
-            if kind == EventKind::PublishLag {
-                tracing::warn!("{message}");
-            } else {
-                tracing::info!("{message}");
-            }
-            let data =
-                json!({ "broker": self.broker.url.text, "lab": self.broker.lab, "lag_s": lag_s, "limit_s": limit });
-            let _ =
-                self.writer.event(Event { at_us: now, frame_key: None, kind, message, actor: None, data: Some(data) });
+            self.stats.lag_alarm.store(false, Ordering::Relaxed);
+            tracing::info!("publishing to MQTT broker {} caught up", self.broker.url.text);
         }
     }
+}
+
+/// Most messages one pass can hold: its journal entries, a readings and a state message per frame, and room.
+fn pass_capacity(frames: usize) -> usize {
+    frames * 2 + EVENTS_PER_PASS as usize + 8
+}
+
+/// The client and its event loop, with a request channel that holds a whole pass: `send` queues every
+/// message of a pass before it polls the event loop, so a smaller channel blocks it for good (with 16, a
+/// pass of 17 messages — a lab of 8 frames and one journal entry, or a catch-up of 17 entries — left the
+/// task waiting, silent, until the broker dropped the connection, and waiting still). rumqttc 0.25's
+/// `AsyncClient::new` sizes the channel by its own argument only, not by `MqttOptions::request_channel_capacity`.
+fn new_client(mut options: MqttOptions, frames: usize) -> (AsyncClient, EventLoop) {
+    let capacity = pass_capacity(frames);
+    options.set_request_channel_capacity(capacity);
+    AsyncClient::new(options, capacity)
 }
 
 /// TLS through rustls trusting only the authorities of `ca` (an `mqtts://` broker's `ca_file`).
@@ -644,4 +646,23 @@ fn reading_json(at_us: i64, c: &ReadingCursor, raw: f64, value: f64) -> serde_js
         "unit": unit(c.channel),
         "raw": raw,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_request_channel_takes_a_whole_pass_before_the_event_loop_is_polled() {
+        for frames in [1usize, 8, 17, 32, 200] {
+            let (client, _events) = new_client(MqttOptions::new("t", "127.0.0.1", 1), frames);
+            // The fullest pass: a batch of journal entries, then a readings and a state message per frame.
+            let fullest = EVENTS_PER_PASS as usize + 2 * frames;
+            for i in 0..fullest {
+                client
+                    .try_publish("bench/lab/F1/readings", QoS::AtLeastOnce, false, b"{}".to_vec())
+                    .unwrap_or_else(|e| panic!("{frames} frames: message {} of {fullest} not queued: {e}", i + 1));
+            }
+        }
+    }
 }

@@ -74,6 +74,12 @@ fn metric(daemon: &Daemon, name: &str) -> f64 {
         .unwrap_or_else(|| panic!("no {name} in /metrics"))
 }
 
+/// The open `publish-lag` alarm on `/healthz`'s lab-wide alarms, if any.
+fn lab_alarm(daemon: &Daemon) -> Option<Value> {
+    let health: Value = serde_json::from_str(&daemon.get("/healthz").unwrap()).unwrap();
+    health["lab_alarms"].as_array()?.iter().find(|a| a["code"] == "publish-lag").cloned()
+}
+
 pub(super) fn wait_until(what: &str, timeout: Duration, ready: impl Fn() -> bool) {
     let deadline = Instant::now() + timeout;
     while !ready() {
@@ -131,9 +137,19 @@ fn a_broker_away_at_start_stopped_mid_run_and_a_kill_dash_nine_lose_no_reading_a
     // 3. The broker is stopped for 30 s mid-run (as the issue asks), then restarted.
     stop_broker(second);
     std::thread::sleep(Duration::from_secs(30));
+    // 30 s behind a 10 s limit: the publish-lag alarm, about the broker, for every page's banner.
+    wait_until("the publish-lag alarm", Duration::from_secs(15), || lab_alarm(&daemon).is_some());
+    let alarm = lab_alarm(&daemon).unwrap();
+    assert_eq!(alarm["outlet"], format!("mqtt://127.0.0.1:{port} e2elab"), "{alarm}");
+    assert!(alarm["frame"].is_null() && alarm["bus"].is_null(), "{alarm}");
+    let words = alarm["message"].as_str().unwrap();
+    assert!(words.contains(&format!("MQTT broker mqtt://127.0.0.1:{port} (lab lab-a)")), "{words}");
+    assert!(words.contains("behind the store by more than its limit of 10 s"), "{words}");
+    assert_eq!(metric(&daemon, "oedolog_publish_lag_alarm"), 1.0);
     let third = broker(dir.path(), port);
     wait_until("reconnected", Duration::from_secs(60), || metric(&daemon, "oedolog_publish_connected") == 1.0);
     wait_until("caught up again", Duration::from_secs(30), || metric(&daemon, "oedolog_publish_lag_seconds") < 2.0);
+    wait_until("the publish-lag alarm cleared", Duration::from_secs(20), || lab_alarm(&daemon).is_none());
 
     // 4. kill -9 of the daemon while it publishes; it resumes from its cursors.
     let killed_us = chrono_now_us();

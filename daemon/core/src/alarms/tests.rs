@@ -171,3 +171,33 @@ fn alarms_open_from_an_earlier_run_are_not_raised_again_and_clear_when_the_condi
     assert_eq!(codes(&e.evaluate(T0 + S, &[f], &[])), [(Code::Temperature, false)]);
     assert!(e.is_open(&Subject::Frame(0), Code::LoadDrift));
 }
+
+#[test]
+fn an_outlet_behind_the_store_raises_publish_lag_once_naming_the_broker_and_clears_when_caught_up() {
+    let mut e = engine();
+    let mut o = OutletInput {
+        id: "mqtt://broker.lab:1883 lab-a".into(),
+        name: "MQTT broker mqtt://broker.lab:1883 (lab lab-a)".into(),
+        behind: false,
+        lag_s: 4.0,
+        limit_s: 300.0,
+    };
+    assert!(e.evaluate_outlets(T0, std::slice::from_ref(&o)).is_empty(), "not behind: nothing to say");
+    (o.behind, o.lag_s) = (true, 312.0);
+    let t = e.evaluate_outlets(T0 + 10 * S, std::slice::from_ref(&o));
+    assert_eq!(codes(&t), [(Code::PublishLag, true)]);
+    let Transition::Raise { subject, message, data, .. } = &t[0] else { panic!() };
+    assert_eq!(subject, &Subject::Outlet("mqtt://broker.lab:1883 lab-a".into()));
+    assert!(message.contains("mqtt://broker.lab:1883 (lab lab-a) fell behind the store by more than its limit of 300 s (312.0 s when raised)"), "{message}");
+    assert_eq!(data["limit_s"], 300.0);
+    o.lag_s = 900.0;
+    assert!(e.evaluate_outlets(T0 + 20 * S, std::slice::from_ref(&o)).is_empty(), "raised once, not every look");
+    (o.behind, o.lag_s) = (false, 1.0);
+    let t = e.evaluate_outlets(T0 + 30 * S, std::slice::from_ref(&o));
+    assert_eq!(codes(&t), [(Code::PublishLag, false)]);
+    assert_eq!(Code::from_name("publish-lag"), Some(Code::PublishLag));
+    // An alarm open from an earlier run is not raised again.
+    let mut again = AlarmEngine::new(AlarmRules::default(), T0, [(Subject::Outlet(o.id.clone()), Code::PublishLag)]);
+    o.behind = true;
+    assert!(again.evaluate_outlets(T0 + S, &[o]).is_empty());
+}
