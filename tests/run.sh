@@ -10,6 +10,8 @@ cd "$repo_root"
 # Pinned peer versions: pymodbus's API churns between minor releases.
 readonly PYMODBUS_VERSION="3.16.1"
 readonly PYSERIAL_VERSION="3.5"
+# Validates the MQTT payloads against docs/mqtt/*.schema.json (a general-purpose JSON Schema library).
+readonly JSONSCHEMA_VERSION="4.26.0"
 readonly VENV_DIR="$repo_root/target/peers-venv"
 
 log() { printf '==> %s\n' "$*"; }
@@ -62,11 +64,12 @@ pick_python() {
 
 venv_versions_ok() {
   [ -x "$VENV_DIR/bin/python" ] || return 1
-  "$VENV_DIR/bin/python" - "$PYMODBUS_VERSION" "$PYSERIAL_VERSION" <<'PY' >/dev/null 2>&1
+  "$VENV_DIR/bin/python" - "$PYMODBUS_VERSION" "$PYSERIAL_VERSION" "$JSONSCHEMA_VERSION" <<'PY' >/dev/null 2>&1
 import sys
 from importlib.metadata import version
-want_pymodbus, want_pyserial = sys.argv[1], sys.argv[2]
-ok = version("pymodbus") == want_pymodbus and version("pyserial") == want_pyserial
+want_pymodbus, want_pyserial, want_jsonschema = sys.argv[1], sys.argv[2], sys.argv[3]
+ok = (version("pymodbus") == want_pymodbus and version("pyserial") == want_pyserial
+      and version("jsonschema") == want_jsonschema)
 sys.exit(0 if ok else 1)
 PY
 }
@@ -92,11 +95,11 @@ install_python_peers() {
       fi
     fi
   fi
-  log "installing pymodbus==$PYMODBUS_VERSION pyserial==$PYSERIAL_VERSION into $VENV_DIR"
+  log "installing pymodbus==$PYMODBUS_VERSION pyserial==$PYSERIAL_VERSION jsonschema==$JSONSCHEMA_VERSION into $VENV_DIR"
   capped 10 "$VENV_DIR/bin/python" -m pip install --disable-pip-version-check --quiet \
-    "pymodbus==$PYMODBUS_VERSION" "pyserial==$PYSERIAL_VERSION" \
-    || die "could not pip install pymodbus==$PYMODBUS_VERSION pyserial==$PYSERIAL_VERSION into $VENV_DIR"
-  venv_versions_ok || die "venv $VENV_DIR does not hold pymodbus==$PYMODBUS_VERSION and pyserial==$PYSERIAL_VERSION after installing"
+    "pymodbus==$PYMODBUS_VERSION" "pyserial==$PYSERIAL_VERSION" "jsonschema==$JSONSCHEMA_VERSION" \
+    || die "could not pip install pymodbus==$PYMODBUS_VERSION pyserial==$PYSERIAL_VERSION jsonschema==$JSONSCHEMA_VERSION into $VENV_DIR"
+  venv_versions_ok || die "venv $VENV_DIR does not hold pymodbus==$PYMODBUS_VERSION, pyserial==$PYSERIAL_VERSION and jsonschema==$JSONSCHEMA_VERSION after installing"
 }
 
 # ---- browser suite ----------------------------------------------------------

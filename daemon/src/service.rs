@@ -229,7 +229,7 @@ impl Assembled {
             crate::notify::NotifyPolicy::default(),
         )?;
         tasks.push(notify);
-        // Likewise: a broker seen for the first time gets every reading committed from here on.
+        // A broker seen for the first time gets every reading of this run (stamped since the start).
         if !config.publish.mqtt.is_empty() {
             let publish = crate::publish::start(
                 &config.publish.mqtt,

@@ -134,9 +134,15 @@ pub fn start(
     policy: PublishPolicy,
 ) -> Result<JoinHandle<()>, StoreError> {
     let mut tasks = JoinSet::new();
+    let store_id = store::publish::store_identity(&store::reader(&state.store_path)?)?;
     for (broker, stats) in brokers.iter().zip(&stats.brokers) {
-        let cursors =
-            store::publish::start_cursors(&state.writer, broker.cursor_key(), keys.to_vec(), state.clock.now_us())?;
+        let cursors = store::publish::start_cursors(
+            &state.writer,
+            broker.cursor_key(),
+            keys.to_vec(),
+            state.started_us,
+            state.clock.now_us(),
+        )?;
         let frames = state.frames.iter().zip(keys).map(|(f, &k)| (k, f.id.clone())).collect();
         let task = BrokerTask {
             broker: broker.clone(),
@@ -145,6 +151,7 @@ pub fn start(
             clock: state.clock.clone(),
             app: state.clone(),
             frames,
+            store_id: store_id.clone(),
             stats: stats.clone(),
             policy,
             cursors,
@@ -212,6 +219,8 @@ struct BrokerTask {
     app: AppState,
     /// (frames.key, config id), config order.
     frames: Vec<(i64, String)>,
+    /// The database's identity (`store_identity`), in every payload beside the sequence numbers.
+    store_id: String,
     stats: Arc<BrokerStats>,
     policy: PublishPolicy,
     /// Acknowledged (and saved, or being saved) up to here.
@@ -282,6 +291,7 @@ impl BrokerTask {
         json!({
             "status": status,
             "lab": self.broker.lab,
+            "store": self.store_id,
             "at": rfc3339(self.clock.now_us()),
             "dashboard": self.broker.dashboard_url,
             "frames": self.frames.iter().map(|(_, id)| id).collect::<Vec<_>>(),
@@ -375,6 +385,7 @@ impl BrokerTask {
     async fn read_pass(&mut self, reader: &mut Option<Reader>) -> Result<Pass, SessionError> {
         let (path, cursors, frames) = (self.store_path.clone(), self.cursors.clone(), self.frames.clone());
         let (lab, topic) = (self.broker.lab.clone(), self.broker.lab_topic());
+        let store_id = self.store_id.clone();
         let taken = reader.take();
         let (back, found) = tokio::task::spawn_blocking(move || {
             let conn = match taken {
@@ -384,7 +395,7 @@ impl BrokerTask {
                     Err(e) => return (None, Err(e)),
                 },
             };
-            let found = read_store(&conn, cursors, &frames, &lab, &topic);
+            let found = read_store(&conn, cursors, &frames, &Origin { lab: &lab, store: &store_id }, &topic);
             (Some(conn), found)
         })
         .await
@@ -568,14 +579,21 @@ fn oldest_unpublished(conn: &Reader, cursors: &Cursors) -> Result<Option<i64>, S
     Ok(oldest)
 }
 
+/// Who publishes: the lab's name and the database's identity (the `seq` numbers are this database's).
+struct Origin<'a> {
+    lab: &'a str,
+    store: &'a str,
+}
+
 /// The journal entries and readings after `cursors`, as messages, and the cursors past them.
 fn read_store(
     conn: &Reader,
     mut cursors: Cursors,
     frames: &[(i64, String)],
-    lab: &str,
+    origin: &Origin<'_>,
     topic: &str,
 ) -> Result<Pass, StoreError> {
+    let (lab, store) = (origin.lab, origin.store);
     let mut messages = Vec::new();
     let mut more = false;
     let entries = journal::after(conn, cursors.last_event_id, EVENTS_PER_PASS, None)?;
@@ -584,6 +602,7 @@ fn read_store(
         cursors.last_event_id = e.id;
         let body = json!({
             "lab": lab,
+            "store": store,
             "seq": e.id,
             "kind": e.kind,
             "frame": e.frame,
@@ -625,7 +644,7 @@ fn read_store(
         readings += rows.len() as u64;
         let list: Vec<serde_json::Value> =
             rows.iter().map(|(at_us, c, raw, value)| reading_json(*at_us, c, *raw, *value)).collect();
-        let body = json!({ "lab": lab, "frame": frame_id, "readings": list });
+        let body = json!({ "lab": lab, "store": store, "frame": frame_id, "readings": list });
         messages.push(Message {
             topic: format!("{topic}/{frame_id}/readings"),
             retain: false,

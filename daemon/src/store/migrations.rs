@@ -15,6 +15,7 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
     ("0005_void_steps.sql", include_str!("../../../migrations/0005_void_steps.sql")),
     ("0006_review.sql", include_str!("../../../migrations/0006_review.sql")),
     ("0007_publish.sql", include_str!("../../../migrations/0007_publish.sql")),
+    ("0008_store_identity.sql", include_str!("../../../migrations/0008_store_identity.sql")),
 ];
 
 /// The schema version this binary writes.

@@ -33,12 +33,14 @@ fn channel_of(code: i64) -> Option<ChannelKind> {
 }
 
 /// The broker's cursors for `frame_keys`; those it has none of yet are made, in one writer job, at the
-/// newest stored reading of each channel and the newest journal entry (so what is committed after this
-/// call is the broker's), and saved before this returns.
+/// newest reading of each channel stamped before `since_us` (the daemon's start: every reading of this
+/// run is the broker's, also those committed while the daemon was starting) and at the newest journal
+/// entry, and saved before this returns.
 pub fn start_cursors(
     writer: &Writer,
     broker: String,
     frame_keys: Vec<i64>,
+    since_us: i64,
     now_us: i64,
 ) -> Result<Cursors, StoreError> {
     writer.run(move |conn| {
@@ -57,8 +59,9 @@ pub fn start_cursors(
                     Some(f) => f,
                     None => {
                         let newest: i64 = conn.query_row(
-                            "SELECT coalesce(max(at_us), 0) FROM readings WHERE frame_key = ?1 AND channel = ?2",
-                            params![frame_key, channel.code()],
+                            "SELECT coalesce(max(at_us), 0) FROM readings
+                             WHERE frame_key = ?1 AND channel = ?2 AND at_us < ?3",
+                            params![frame_key, channel.code(), since_us],
                             |r| r.get(0),
                         )?;
                         conn.execute(
@@ -129,6 +132,12 @@ pub fn saved_cursors(reader: &Reader, broker: &str) -> Result<Vec<ReadingCursor>
 
 /// One stored reading as published: (at_us, raw, value).
 pub type StoredReading = (i64, f64, f64);
+
+/// The database's identity (`store_identity`, 32 lower-case hex digits, made with the schema): what the
+/// lab publishes carries it beside each sequence number.
+pub fn store_identity(reader: &Reader) -> Result<String, StoreError> {
+    Ok(reader.conn().query_row("SELECT id FROM store_identity WHERE one = 1", [], |r| r.get(0))?)
+}
 
 /// The readings of one channel after `after_us`, oldest first, at most `limit` (the primary key's order:
 /// a range scan, no sort).

@@ -401,3 +401,25 @@ fn a_webhook_cursor_starts_at_the_newest_entry_and_moves_with_its_failure_entry(
     assert_eq!(subscribed.iter().map(|e| e.id).collect::<Vec<_>>(), [first, second], "not the notify-failed entry");
     thread.close();
 }
+
+#[test]
+fn a_database_has_one_identity_kept_on_reopen_and_by_a_backup_and_a_new_database_gets_another() {
+    let (dir, path) = temp_db();
+    drop(open(&path).unwrap());
+    let first = publish::store_identity(&reader(&path).unwrap()).unwrap();
+    assert_eq!(first.len(), 32);
+    assert!(first.bytes().all(|b| b.is_ascii_digit() || (b'a'..=b'f').contains(&b)), "{first}");
+    drop(open(&path).unwrap());
+    assert_eq!(publish::store_identity(&reader(&path).unwrap()).unwrap(), first, "kept when reopened");
+    let copy = dir.path().join("copy.sqlite");
+    backup(&path, &copy).unwrap();
+    assert_eq!(publish::store_identity(&reader(&copy).unwrap()).unwrap(), first, "a backup is the same database");
+    let other = dir.path().join("other.sqlite");
+    drop(open(&other).unwrap());
+    assert_ne!(publish::store_identity(&reader(&other).unwrap()).unwrap(), first, "a new database, a new identity");
+    // A second row, or one that is not 32 lower-case hex digits, is refused by the table itself.
+    let conn = rusqlite::Connection::open(&path).unwrap();
+    assert!(conn.execute("INSERT INTO store_identity (one, id) VALUES (2, ?1)", [&first]).is_err());
+    assert!(conn.execute("UPDATE store_identity SET id = 'ABC'", []).is_err());
+    assert!(conn.execute("UPDATE store_identity SET id = upper(id)", []).is_err());
+}

@@ -260,6 +260,30 @@ fn a_broker_away_at_start_stopped_mid_run_and_a_kill_dash_nine_lose_no_reading_a
         }
     }
     assert!(last > 0, "journal entries published");
+    // Every payload names the database its seq numbers belong to, the same across the kill -9 restart.
+    let stores: std::collections::BTreeSet<String> = messages(&sub_path)
+        .into_iter()
+        .filter(|(t, _)| t.ends_with("/readings") || t.ends_with("/events"))
+        .map(|(_, v)| v["store"].as_str().unwrap_or("missing").to_string())
+        .collect();
+    assert_eq!(stores.len(), 1, "one database, one identity: {stores:?}");
+    // Every payload the consumer got (status, state, readings, events) against the README's JSON Schemas
+    // (docs/mqtt/), checked by a general-purpose validator outside the project (python-jsonschema 4.26.0,
+    // Draft 2020-12).
+    let checked = Command::new(oedolog_tests::peer_python())
+        .arg(oedolog_tests::workspace_root().join("tests/peers/check_mqtt_payloads.py"))
+        .arg(oedolog_tests::workspace_root().join("docs/mqtt"))
+        .arg(&sub_path)
+        .output()
+        .unwrap();
+    let counts = String::from_utf8_lossy(&checked.stdout);
+    assert!(checked.status.success(), "payloads off their schemas: {}", String::from_utf8_lossy(&checked.stderr));
+    for kind in ["status", "state", "readings", "events"] {
+        assert!(!counts.contains(&format!("{kind}=0")), "no {kind} payload checked: {counts}");
+    }
+    eprintln!("mqtt e2e: payloads valid against docs/mqtt schemas: {}", counts.trim());
+    let id = stores.first().unwrap();
+    assert!(id.len() == 32 && id.bytes().all(|b| b.is_ascii_hexdigit() && !b.is_ascii_uppercase()), "{id}");
 }
 
 fn chrono_now_us() -> i64 {
