@@ -36,6 +36,27 @@ fn check_config_accepts_the_sample_and_refuses_a_broken_file_with_line_and_field
 }
 
 #[test]
+fn check_config_accepts_the_fleet_sample_and_names_what_the_board_reads() {
+    let sample = oedolog_tests::workspace_root().join("daemon/fleet.sample.toml");
+    let mut command = Command::new(workspace_binary("oedolog"));
+    command.arg("check-config").arg(&sample);
+    let ok = run_to_end("oedolog check-config", command).unwrap();
+    assert!(ok.status.success(), "{}", ok.stderr);
+    assert!(ok.stdout.contains("reads soil-labs/+/status and soil-labs/+/+/state"), "{}", ok.stdout);
+    // A wildcard in the prefix is refused with its line and field, as in a lab's file.
+    let dir = temp_dir();
+    let text = std::fs::read_to_string(&sample).unwrap();
+    let path = dir.path().join("fleet.toml");
+    std::fs::write(&path, text.replace("topic_prefix = \"soil-labs\"", "topic_prefix = \"soil-labs/#\"")).unwrap();
+    let mut command = Command::new(workspace_binary("oedolog"));
+    command.arg("check-config").arg(&path);
+    let bad = run_to_end("oedolog check-config", command).unwrap();
+    assert_eq!(bad.status.code(), Some(1), "{}", bad.stdout);
+    let line = text.lines().position(|l| l.starts_with("topic_prefix")).unwrap() + 1;
+    assert!(bad.stderr.contains("topic_prefix") && bad.stderr.contains(&format!("line {line}")), "{}", bad.stderr);
+}
+
+#[test]
 fn backup_while_the_daemon_runs_gives_a_consistent_copy() {
     let dir = temp_dir();
     let sim = Simulator::start_tcp(&["--frames", "2", "--schedule", "manual"]).unwrap();
