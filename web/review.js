@@ -8,11 +8,21 @@
   "use strict";
   const O = window.oedolog;
   const { el, fmt, api } = O;
+  // The daemon's words for each choice (daemon/src/http/words.rs CHOICE_WORDS; a test keeps them equal).
   const CHOICE_WORDS = {
-    taylor_window_min: "√t window", primary_window_min: "log-t primary window", secondary_window_min: "log-t secondary window",
-    d0_mm: "d0", d100_mm: "d100", t50_min: "t50", t90_min: "t90", drainage: "drainage",
-    virgin_points_kpa: "virgin-line points (Cc)", unload_reload_points_kpa: "unload–reload points (Cr)",
-    max_curvature_kpa: "point of greatest curvature", sigma_p_kpa: "σ′p set directly", sigma_v0_kpa: "σ′v0",
+    taylor_window_min: "√t straight-line window",
+    primary_window_min: "log-t primary tangent window",
+    secondary_window_min: "log-t secondary line window",
+    d0_mm: "d0",
+    d100_mm: "d100",
+    t50_min: "t50",
+    t90_min: "t90",
+    drainage: "drainage",
+    virgin_points_kpa: "virgin-line points (Cc)",
+    unload_reload_points_kpa: "unload–reload points (Cr)",
+    max_curvature_kpa: "point of greatest curvature (σ′p)",
+    sigma_p_kpa: "σ′p set directly",
+    sigma_v0_kpa: "σ′v0",
   };
   O.mayReview = false;
   O.chosenPoints = [];

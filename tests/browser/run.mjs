@@ -592,7 +592,7 @@ await step("an engineer drags a √t window, sees t90 change before saving, save
     await v.click('#seq-pick button[data-seq="1"]');
     await v.waitForFunction((t) => window.oedolog.analysis[1] && Math.abs(window.oedolog.analysis[1].taylor.t90_min - t) < 1e-9, t90, { timeout: 15000 });
     const seen = await v.evaluate(() => ({ list: document.getElementById("review-list").textContent, tools: !!document.getElementById("review-tools") }));
-    check(/erik/.test(seen.list) && /√t window/.test(seen.list) && !seen.tools, "the viewer's review panel: " + JSON.stringify(seen));
+    check(/erik/.test(seen.list) && /√t straight-line window/.test(seen.list) && !seen.tools, "the viewer's review panel: " + JSON.stringify(seen));
     await v.screenshot({ path: path.join(shots, "review-viewer-wide.png"), fullPage: true });
 
     // Approved; the report says by whom.

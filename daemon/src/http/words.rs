@@ -38,24 +38,27 @@ pub(crate) fn span(seconds: f64) -> String {
     }
 }
 
+/// (field, words) for every field of an engineer's choices: the pages (`web/review.js`, `CHOICE_WORDS`,
+/// which a test here keeps equal to this table) and the report say the same.
+pub(crate) const CHOICE_WORDS: [(&str, &str); 13] = [
+    ("taylor_window_min", "√t straight-line window"),
+    ("primary_window_min", "log-t primary tangent window"),
+    ("secondary_window_min", "log-t secondary line window"),
+    ("d0_mm", "d0"),
+    ("d100_mm", "d100"),
+    ("t50_min", "t50"),
+    ("t90_min", "t90"),
+    ("drainage", "drainage"),
+    ("virgin_points_kpa", "virgin-line points (Cc)"),
+    ("unload_reload_points_kpa", "unload–reload points (Cr)"),
+    ("max_curvature_kpa", "point of greatest curvature (σ′p)"),
+    ("sigma_p_kpa", "σ′p set directly"),
+    ("sigma_v0_kpa", "σ′v0"),
+];
+
 /// An engineer's choice (a field of the review's choices) in the words the pages and the report use.
 pub(crate) fn choice(field: &str) -> &str {
-    match field {
-        "taylor_window_min" => "√t straight-line window",
-        "primary_window_min" => "log-t primary tangent window",
-        "secondary_window_min" => "log-t secondary line window",
-        "d0_mm" => "d0",
-        "d100_mm" => "d100",
-        "t50_min" => "t50",
-        "t90_min" => "t90",
-        "drainage" => "drainage",
-        "virgin_points_kpa" => "virgin-line points (Cc)",
-        "unload_reload_points_kpa" => "unload–reload points (Cr)",
-        "max_curvature_kpa" => "point of greatest curvature (σ′p)",
-        "sigma_p_kpa" => "σ′p set directly",
-        "sigma_v0_kpa" => "σ′v0",
-        other => other,
-    }
+    CHOICE_WORDS.iter().find(|(f, _)| *f == field).map_or(field, |(_, w)| w)
 }
 
 #[cfg(test)]
@@ -73,6 +76,40 @@ mod tests {
         let mine: Vec<&str> = STATE_WORDS.iter().map(|(c, _, _)| *c).collect();
         assert_eq!(mine.len(), every.len());
         assert!(every.iter().all(|c| mine.contains(c)), "a state without a word: {every:?}");
+    }
+
+    #[test]
+    fn the_review_panel_s_choice_words_are_this_table_and_every_choice_has_words() {
+        let js = include_str!("../../../web/review.js");
+        for (field, words) in CHOICE_WORDS {
+            let entry = format!("{field}: \"{words}\"");
+            assert!(js.contains(&entry), "web/review.js lacks `{entry}`");
+        }
+        // Every field the core accepts has words (a new choice without them would show its code).
+        use oedolog_core::analysis::{CompressionChoices, Drainage, StepChoices};
+        let step = StepChoices {
+            taylor_window_min: Some([1.0, 2.0]),
+            primary_window_min: Some([1.0, 2.0]),
+            secondary_window_min: Some([1.0, 2.0]),
+            d0_mm: Some(0.0),
+            d100_mm: Some(0.0),
+            t50_min: Some(1.0),
+            t90_min: Some(1.0),
+            drainage: Some(Drainage::Double),
+        };
+        let curve = CompressionChoices {
+            virgin_points_kpa: Some(vec![]),
+            unload_reload_points_kpa: Some(vec![]),
+            max_curvature_kpa: Some(1.0),
+            sigma_p_kpa: Some(1.0),
+            sigma_v0_kpa: Some(1.0),
+        };
+        let (step, curve) = (serde_json::to_value(step).unwrap(), serde_json::to_value(curve).unwrap());
+        let fields: Vec<&String> = step.as_object().unwrap().keys().chain(curve.as_object().unwrap().keys()).collect();
+        assert_eq!(fields.len(), CHOICE_WORDS.len(), "{fields:?}");
+        for field in fields {
+            assert!(CHOICE_WORDS.iter().any(|(f, _)| f == field), "no words for the choice `{field}`");
+        }
     }
 
     #[test]
