@@ -8,14 +8,15 @@
 //! a minute. Its labs are told from a daemon's by their names (`lab01`…) and by `"version": "mqtt_load"` in
 //! their status. QoS 1, as the daemon's default.
 //!
-//! `consume` subscribes to `PREFIX/#` (QoS 1) and writes, for every reading of lab LAB's readings messages,
+//! `consume` subscribes to `PREFIX/#` (QoS 1), keeps the first payload of each topic kind from LAB and from
+//! lab01 as KEEP/LAB-KIND.json, and writes, for every reading of lab LAB's readings messages,
 //! `receive_us at_us frame channel seq` to SAMPLES (receive time from the system clock, `at_us` from the
 //! payload), and every second (and on SIGTERM) the messages and readings received per lab to COUNTS as JSON.
 //! `gen` writes its own published counts to COUNTS the same way. Neither counts status messages.
 //!
 //! ```text
 //! mqtt_load gen --port P --prefix X --first 1 --labs 49 --frames 32 --period-ms 1000 --counts FILE
-//! mqtt_load consume --port P --prefix X --lab lab00 --samples FILE --counts FILE
+//! mqtt_load consume --port P --prefix X --lab lab00 --samples FILE --keep DIR --counts FILE
 //! ```
 
 use std::collections::{BTreeMap, HashMap};
@@ -51,7 +52,7 @@ fn args() -> (String, HashMap<String, String>) {
 
 fn usage(why: &str) -> ! {
     eprintln!(
-        "mqtt_load: {why}\nusage: mqtt_load gen --port P --prefix X --first N --labs N --frames N --period-ms MS --counts FILE\n       mqtt_load consume --port P --prefix X --lab LAB --samples FILE --counts FILE"
+        "mqtt_load: {why}\nusage: mqtt_load gen --port P --prefix X --first N --labs N --frames N --period-ms MS --counts FILE\n       mqtt_load consume --port P --prefix X --lab LAB --samples FILE --keep DIR --counts FILE"
     );
     std::process::exit(2)
 }
@@ -111,8 +112,8 @@ async fn main() {
         }
         "consume" => {
             let (port, prefix, lab): (u16, String, String) = (get(&map, "port"), get(&map, "prefix"), get(&map, "lab"));
-            let samples: String = get(&map, "samples");
-            tokio::spawn(consume(port, prefix, lab, samples, counts.clone()));
+            let (samples, keep): (String, String) = (get(&map, "samples"), get(&map, "keep"));
+            tokio::spawn(consume(port, prefix, lab, samples, keep, counts.clone()));
         }
         other => usage(&format!("unknown mode `{other}`")),
     }
@@ -129,6 +130,11 @@ async fn main() {
     write_counts(&counts_path, &counts);
 }
 
+/// FNV-1a of a lab's name (the low half of its made-up database identity).
+fn lab_hash(lab: &str) -> u64 {
+    lab.bytes().fold(0xcbf2_9ce4_8422_2325, |h, b| (h ^ u64::from(b)).wrapping_mul(0x0100_0000_01b3))
+}
+
 /// One lab: a connection of its own, its status, and its frames' states, readings and a journal entry.
 async fn run_lab(
     port: u16,
@@ -140,10 +146,12 @@ async fn run_lab(
     counts: Counts,
 ) {
     let topic = format!("{prefix}/{lab}");
+    // A database identity of 128 bits in hex, as `store_identity` (distinct per lab and per run).
+    let store = format!("{:016x}{:016x}", now_us() as u64, lab_hash(&lab));
     let ids: Vec<String> = (1..=frames).map(|f| format!("F{f}")).collect();
     let status = |s: &str| {
         json!({
-            "status": s, "lab": lab, "at": rfc3339(now_us()), "dashboard": null, "frames": ids,
+            "status": s, "lab": lab, "store": store, "at": rfc3339(now_us()), "dashboard": null, "frames": ids,
             "simulated_time": false, "version": "mqtt_load",
         })
         .to_string()
@@ -176,7 +184,7 @@ async fn run_lab(
         if round % 60 == 0 {
             event_id += 1;
             let body = json!({
-                "lab": lab, "seq": event_id, "kind": "note", "frame": null, "frame_name": null,
+                "lab": lab, "store": store, "seq": event_id, "kind": "note", "frame": null, "frame_name": null,
                 "at": rfc3339(at), "at_us": at, "message": "load generator running", "actor": "mqtt_load",
                 "details": {},
             });
@@ -195,7 +203,7 @@ async fn run_lab(
                             "unit": unit, "raw": (value / gain).round() })
                     })
                     .collect();
-            let body = json!({ "lab": lab, "frame": id, "readings": list });
+            let body = json!({ "lab": lab, "store": store, "frame": id, "readings": list });
             publish(format!("{topic}/{id}/readings"), false, body.to_string()).await;
             messages += 1;
             readings += 3;
@@ -232,7 +240,7 @@ async fn run_lab(
 }
 
 /// Everything under `PREFIX/#`, counted per lab; the readings of `lab` written with their receive time.
-async fn consume(port: u16, prefix: String, lab: String, samples: String, counts: Counts) {
+async fn consume(port: u16, prefix: String, lab: String, samples: String, keep: String, counts: Counts) {
     let (client, mut events) = AsyncClient::new(options("benchconsumer", port), 64);
     client.subscribe(format!("{prefix}/#"), QoS::AtLeastOnce).await.expect("subscribe");
     let mut out = std::io::BufWriter::new(std::fs::File::create(&samples).expect("create the samples file"));
@@ -244,9 +252,20 @@ async fn consume(port: u16, prefix: String, lab: String, samples: String, counts
             polled = events.poll() => match polled {
                 Ok(Event::Incoming(Packet::Publish(p))) => {
                     let received = now_us();
-                    // Status messages are not counted: the broker adds each lab's last will to them.
-                    let Some(rest) = p.topic.strip_prefix(&format!("{prefix}/")).filter(|_| !p.topic.ends_with("/status")) else { continue };
+                    let Some(rest) = p.topic.strip_prefix(&format!("{prefix}/")) else { continue };
                     let from = rest.split('/').next().unwrap_or("").to_string();
+                    // The first payload of each kind from LAB and from lab01, for a check against the schemas.
+                    if from == lab || from == "lab01" {
+                        let kind = rest.rsplit('/').next().unwrap_or("");
+                        let path = format!("{keep}/{from}-{kind}.json");
+                        if !std::path::Path::new(&path).exists() {
+                            std::fs::write(&path, &p.payload[..]).expect("keep a payload");
+                        }
+                    }
+                    // Status messages are not counted: the broker adds each lab's last will to them.
+                    if p.topic.ends_with("/status") {
+                        continue;
+                    }
                     let mut readings = 0u64;
                     if p.topic.ends_with("/readings") {
                         let v: serde_json::Value = serde_json::from_slice(&p.payload).expect("readings JSON");

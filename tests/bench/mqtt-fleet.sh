@@ -5,10 +5,13 @@
 #   - lab01…lab49 are daemon/examples/mqtt_load.rs (`gen`): 32 frames each, one poll's 3 readings per frame
 #     per second, the daemon's topics and payloads (its labs are told apart by name and by
 #     `"version": "mqtt_load"` in their status);
-#   - a consumer (mqtt_load `consume`) subscribed to PREFIX/# records, for every reading of lab00, receive
-#     time − the reading's `at_us`. The payload carries the acquisition stamp, not the store's commit time,
-#     so the figure is "acquisition stamp → consumer": an upper bound on store commit → consumer. It
-#     includes the writer's commit interval and the publisher's 500 ms tail interval (PublishPolicy::poll).
+#   - a consumer (mqtt_load `consume`) subscribed to PREFIX/# records, for every reading of lab00, its
+#     receive time and the reading's `at_us`. The payload carries the acquisition stamp, not the store's
+#     commit time, so two lags are given: "acquisition stamp → consumer" (includes the writer's wait of up
+#     to flush_ms = 500 before a commit and the publisher's 500 ms tail interval, PublishPolicy::poll), and
+#     "store commit → consumer", with the commit taken as the first line `oedolog run --report-commits`
+#     printed (stamped on arrival) at or after the reading's stamp: no later than the commit that held it,
+#     so an upper bound (both runs use --report-commits, two lines a second).
 # Figures: lag p50/p99/max (and per phase, to see growth), readings received vs stored once publishing has
 # settled (nothing may be missing), the daemon's CPU per stored reading without publishing against its extra
 # CPU per published reading (the same frames for the same SECONDS, run once without and once with
@@ -103,11 +106,20 @@ config() { # DIR PUBLISH(0|1)
   fi
 }
 
+# The daemon's stdout, each line prefixed with the µs it arrived (system clock): with --report-commits a
+# line follows each durable commit, so the first one at or after a reading's stamp is no later than
+# the commit that held it.
+stamp_py='
+import sys, time
+for line in sys.stdin:
+    sys.stdout.write(f"{time.time_ns() // 1000} {line}")
+    sys.stdout.flush()'
 start_daemon() { # DIR: sets daemon, http
-  taskset -c $daemon_cpu "$bin/oedolog" run --config "$1/oedolog.toml" > "$1/daemon.out" 2> "$1/daemon.err" < /dev/null &
+  taskset -c $daemon_cpu "$bin/oedolog" run --report-commits --config "$1/oedolog.toml" \
+    > >(taskset -c $daemon_cpu python3 -u -c "$stamp_py" > "$1/daemon.out") 2> "$1/daemon.err" < /dev/null &
   daemon=$!
   wait_for "$1/daemon.out" "listening on http://"
-  http=$(sed -n 's#^listening on http://\(.*\)/$#\1#p' "$1/daemon.out")
+  http=$(sed -n 's#^[0-9]* listening on http://\(.*\)/$#\1#p' "$1/daemon.out")
 }
 
 # Per thread: "tid ns_on_cpu" (/proc/PID/task/TID/schedstat, first field; sched-stats.rst). A finer
@@ -136,8 +148,9 @@ kill $daemon; wait $daemon 2> /dev/null || true
 echo "   $a_ticks ticks ($a_ns ns on CPU by schedstat), $a_rows rows stored"
 
 # 2. The consumer, the 49 generated labs and the fleet board.
+mkdir -p "$work/kept"
 taskset -c $other_cpu "$bin/examples/mqtt_load" consume --port "$port" --prefix "$prefix" --lab lab00 \
-  --samples "$work/samples.txt" --counts "$work/consumed.json" 2> "$work/consume.err" &
+  --samples "$work/samples.txt" --keep "$work/kept" --counts "$work/consumed.json" 2> "$work/consume.err" &
 consumer=$!
 sleep 1
 taskset -c $other_cpu "$bin/examples/mqtt_load" gen --port "$port" --prefix "$prefix" --first 1 --labs $((labs - 1)) \
@@ -200,6 +213,7 @@ for _ in $(seq 60); do
   lag=$(metric "$http" oedolog_publish_lag_seconds)
   s1=$(stored_rows "$work/b/lab.sqlite")
   pub=$(metric "$http" oedolog_publish_readings_total)
+  echo "$(now) lag=$lag published=$pub stored=$s1 connected=$(metric "$http" oedolog_publish_connected) errors=$(metric "$http" oedolog_publish_errors_total)" >> "$work/settle.txt"
   if python3 -c "import sys; sys.exit(not (float(sys.argv[1]) == 0 and float(sys.argv[2]) >= int(sys.argv[3])))" "$lag" "$pub" "$s1"; then
     settled=yes
     break
@@ -225,8 +239,10 @@ stored, published, settled = int(a[14]), int(float(a[15])), a[16]
 board_labs, board_frames, per_lab, online, board2_labs, board2_frames, page_bytes, api_bytes = a[17:25]
 cpus, mosq, args = a[25], a[26], a[27]
 
+import bisect
+commits = sorted(int(l.split()[0]) for l in open(f"{work}/b/daemon.out") if " committed " in l)
 rows = [l.split() for l in open(f"{work}/samples.txt")]
-seen, dups, lags = set(), 0, []
+seen, dups, lags, clags, uncommitted = set(), 0, [], [], 0
 for recv, at, frame, channel, seq in rows:
     key = (frame, channel, int(seq))
     if key in seen:
@@ -234,17 +250,17 @@ for recv, at, frame, channel, seq in rows:
         continue
     seen.add(key)
     lags.append((int(recv), (int(recv) - int(at)) / 1e3))
+    i = bisect.bisect_left(commits, int(at))
+    if i < len(commits):
+        clags.append((int(recv), (int(recv) - commits[i]) / 1e3))
+    else:
+        uncommitted += 1
 def pct(xs, q):
     xs = sorted(xs)
     return xs[min(len(xs) - 1, int(q * len(xs)))] if xs else float("nan")
 def line(name, xs):
     return f"  {name:<40} {len(xs):6d} readings  p50 {pct(xs, .5):7.1f} ms  p99 {pct(xs, .99):7.1f} ms  max {max(xs) if xs else float('nan'):7.1f} ms"
-all_l = [l for _, l in lags]
-in_b = [l for r, l in lags if b_t0 <= r < b_t1]
 b_mid = (b_t0 + b_t1) // 2
-first = [l for r, l in lags if b_t0 <= r < b_mid]
-second = [l for r, l in lags if b_mid <= r < b_t1]
-in_w = [l for r, l in lags if w_t0 <= r < w_t1]
 
 gen = json.load(open(f"{work}/generated.json"))
 got = json.load(open(f"{work}/consumed.json"))
@@ -264,12 +280,19 @@ ns_stored, ns_extra = cpu(a_ns / 1e3, b_ns / 1e3)
 print(f"== summary: tests/bench/mqtt-fleet.sh {args}".rstrip())
 print(f"machine: {cpus} CPUs, mosquitto {mosq}; the daemon (and later wrk) pinned to one CPU; broker, simulator, load, consumer and board to the other")
 print(f"labs: lab00 = oedolog run ({frames} frames of oedolog-sim over Modbus TCP, poll_ms = 1000, 3 readings a poll) + lab01…lab{len(gen):02d} from mqtt_load gen ({frames} frames each, same rate and payloads)")
-print("lag, acquisition stamp → consumer (upper bound on store commit → consumer; includes the 500 ms publishing tail):")
-print(line("whole run", all_l))
-print(line(f"CPU window ({seconds} s)", in_b))
-print(line("  its first half", first))
-print(line("  its second half", second))
-print(line("during wrk on the board", in_w))
+def phases(pairs):
+    print(line("whole run", [l for _, l in pairs]))
+    print(line(f"CPU window ({seconds} s)", [l for r, l in pairs if b_t0 <= r < b_t1]))
+    print(line("  its first half", [l for r, l in pairs if b_t0 <= r < b_mid]))
+    print(line("  its second half", [l for r, l in pairs if b_mid <= r < b_t1]))
+    print(line("during wrk on the board", [l for r, l in pairs if w_t0 <= r < w_t1]))
+print("lag, store commit → consumer (commit = the first --report-commits line at or after the reading's stamp, an")
+print("  upper bound; the publisher reads the store every 500 ms):")
+phases(clags)
+print("lag, acquisition stamp → consumer (adds the wait for the writer's commit, flush_ms = 500):")
+phases(lags)
+if uncommitted:
+    print(f"  ({uncommitted} readings came after the last commit line: NO COMMIT LINE)")
 ok = settled == "yes" and len(seen) == stored
 print(f"lab00 readings: stored {stored}, published (acknowledged) {published}, received distinct {len(seen)} "
       f"({dups} repeats dropped by seq): {'nothing missing' if len(seen) >= stored else 'MISSING ' + str(stored - len(seen))}"
@@ -288,5 +311,30 @@ print(f"fleet board: {board_labs} labs ({online} online), {board_frames} frames,
       f"{board2_labs} labs, {board2_frames} frames after; page {page_bytes} bytes, /api/fleet {api_bytes} bytes")
 PY
 printf '%s\n' "${wrk_rows[@]}" >> "$work/summary.txt"
+# The first payload of each kind from the daemon (lab00) and the generator (lab01) against docs/mqtt's
+# JSON Schemas, with python-jsonschema from the peers venv that tests/run.sh builds (skipped without it).
+venv_python=target/peers-venv/bin/python
+if [ -x "$venv_python" ] && "$venv_python" -c 'import jsonschema' 2> /dev/null; then
+  "$venv_python" - "$work/kept" << 'PY' >> "$work/summary.txt"
+import json, sys
+from jsonschema import Draft202012Validator
+out = []
+for lab in ("lab00", "lab01"):
+    words = []
+    for kind in ("status", "state", "readings", "events"):
+        schema = json.load(open(f"docs/mqtt/{kind}.schema.json"))
+        try:
+            payload = json.load(open(f"{sys.argv[1]}/{lab}-{kind}.json"))
+        except FileNotFoundError:
+            words.append(f"{kind} none received")
+            continue
+        errors = [e.message for e in Draft202012Validator(schema).iter_errors(payload)]
+        words.append(f"{kind} ok" if not errors else f"{kind} INVALID ({errors[0][:120]})")
+    out.append(f"{lab}: " + ", ".join(words))
+print("payloads against docs/mqtt/*.schema.json: " + "; ".join(out))
+PY
+else
+  echo "payloads against docs/mqtt/*.schema.json: not checked (no $venv_python with jsonschema; tests/run.sh builds it)" >> "$work/summary.txt"
+fi
 echo
 cat "$work/summary.txt"
