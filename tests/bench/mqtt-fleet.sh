@@ -11,12 +11,14 @@
 #     to flush_ms = 500 before a commit and the publisher's 500 ms tail interval, PublishPolicy::poll), and
 #     "store commit → consumer", with the commit taken as the first line `oedolog run --report-commits`
 #     printed (stamped on arrival) at or after the reading's stamp: no later than the commit that held it,
-#     so an upper bound (both runs use --report-commits, two lines a second).
+#     so an upper bound (both runs use --report-commits, a line or two a second).
 # Figures: lag p50/p99/max (and per phase, to see growth), readings received vs stored once publishing has
 # settled (nothing may be missing), the daemon's CPU per stored reading without publishing against its extra
 # CPU per published reading (the same frames for the same SECONDS, run once without and once with
 # [[publish.mqtt]]; CPU is utime + stime of the whole process, all threads, from /proc/PID/stat, proc(5),
-# in 10 ms ticks; the daemon pinned to one CPU, everything else to the other), and the fleet board's p99 at
+# in 10 ms ticks, cross-checked by the ns of /proc/PID/task/*/schedstat; the daemon pinned to one CPU,
+# everything else to the other), the first payload of each kind from lab00 and lab01 against docs/mqtt's
+# JSON Schemas (python-jsonschema of the peers venv, when built), and the fleet board's p99 at
 # 50 connections (wrk, Debian's, 2 threads, on the daemon's CPU once its CPU window is over; the board on
 # the broker's) on GET / and GET /api/fleet while the 50 labs (1600 frames) publish.
 # No targets: the issue asks for the figures. Not part of tests/run.sh (benchmarks are not timed tests).
