@@ -134,7 +134,7 @@ print(f"  daemon          : {req / (t1 - t0):8.0f} requests/s, {rd / (t1 - t0):8
       f"{cpu / 1e4 / (t1 - t0):5.1f} % of a CPU")
 print(f"  daemon          : {d_req:6.2f} µs CPU per request, {d_read:6.2f} µs per stored reading")
 per = {k: (h1.get(k, 0) - h0.get(k, 0)) / rd for k in h1}
-polling = sum(v for k, v in per.items() if k.startswith(("tokio", "oedolog-rtu", "oedolog-bus")))
+polling = sum(v for k, v in per.items() if k.startswith(("tokio", "oedolog-rtu", "oedolog-tcp")))
 writer, watch = per.get("oedolog-store", 0), per.get("oedolog-watch", 0)
 print(f"  daemon threads  : polling {polling:5.2f}, store writer {writer:5.2f}, live watch {watch:5.2f}, "
       f"other {d_read - polling - writer - watch:5.2f} µs per stored reading")

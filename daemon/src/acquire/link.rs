@@ -2,11 +2,12 @@
 //! a pty, a TCP socket and a scripted test transport all drive the same polling code.
 
 use std::future::Future;
-use std::io;
-use std::time::Duration;
+use std::io::{self, Read, Write};
+use std::pin::Pin;
+use std::task::{Context, Poll};
+use std::time::{Duration, Instant};
 
-use tokio::io::{AsyncRead, AsyncWrite};
-use tokio::net::TcpStream;
+use tokio::io::{AsyncRead, AsyncWrite, ReadBuf};
 
 use crate::config::{Parity, SerialLine};
 use crate::store::EventKind;
@@ -15,6 +16,9 @@ use crate::store::EventKind;
 pub trait Link: AsyncRead + AsyncWrite + Unpin + Send {
     /// Drops whatever the OS has buffered for reading (a late reply must never answer the next request).
     fn clear_input(&mut self) -> io::Result<()>;
+
+    /// The exchange's reply deadline, given before its first read (a link that blocks uses it).
+    fn reply_deadline(&mut self, _deadline: Instant) {}
 }
 
 /// Opens a [`Link`]; called again after the link fails.
@@ -34,17 +38,134 @@ impl Link for tokio_serial::SerialStream {
     }
 }
 
-impl Link for TcpStream {
-    fn clear_input(&mut self) -> io::Result<()> {
-        let mut buf = [0u8; 512];
+/// A Modbus TCP link written and read with blocking calls, for a bus on a thread of its own: a request
+/// then costs a `send` and a `recv` (the kernel keeps the deadline, `SO_RCVTIMEO`), with no readiness
+/// wait in between (tokio's reactor adds an `epoll_wait` and a wake-up per request). Only for a bus
+/// thread: a read blocks that thread until bytes come or the deadline passes.
+///
+/// A read that reaches the deadline returns `Pending`: every read of an exchange runs inside its
+/// `tokio::time::timeout_at`, whose timer (due by then) ends it as a timeout.
+#[derive(Debug)]
+pub struct BlockingTcp {
+    stream: std::net::TcpStream,
+    /// `SO_RCVTIMEO` as set now.
+    read_timeout: Duration,
+    /// The full reply timeout (what `SO_RCVTIMEO` is at the first read of an exchange).
+    timeout: Duration,
+    deadline: Option<Instant>,
+    /// Whether this exchange has read already (a later read gets only what is left of the deadline).
+    read_once: bool,
+}
+
+impl BlockingTcp {
+    fn set_read_timeout(&mut self, timeout: Duration) -> io::Result<()> {
+        let timeout = timeout.max(Duration::from_millis(1));
+        if timeout != self.read_timeout {
+            self.stream.set_read_timeout(Some(timeout))?;
+            self.read_timeout = timeout;
+        }
+        Ok(())
+    }
+}
+
+impl AsyncRead for BlockingTcp {
+    fn poll_read(self: Pin<&mut Self>, _cx: &mut Context<'_>, buf: &mut ReadBuf<'_>) -> Poll<io::Result<()>> {
+        let this = self.get_mut();
+        // The first read of an exchange starts with the whole timeout left (the request was just sent);
+        // a later one gets what is left of the deadline (a reply in pieces).
+        let wait = match (this.read_once, this.deadline) {
+            (true, Some(deadline)) => deadline.saturating_duration_since(Instant::now()),
+            _ => this.timeout,
+        };
+        this.read_once = true;
+        if wait.is_zero() {
+            return Poll::Pending;
+        }
+        if let Err(e) = this.set_read_timeout(wait) {
+            return Poll::Ready(Err(e));
+        }
         loop {
-            match self.try_read(&mut buf) {
-                Ok(0) => return Err(io::ErrorKind::UnexpectedEof.into()),
-                Ok(_) => continue,
-                Err(e) if e.kind() == io::ErrorKind::WouldBlock => return Ok(()),
-                Err(e) => return Err(e),
+            match this.stream.read(buf.initialize_unfilled()) {
+                Ok(n) => {
+                    buf.advance(n);
+                    return Poll::Ready(Ok(()));
+                }
+                Err(e) if e.kind() == io::ErrorKind::Interrupted => continue,
+                // The deadline passed: the exchange's timer, due now, ends it as a timeout.
+                Err(e) if matches!(e.kind(), io::ErrorKind::WouldBlock | io::ErrorKind::TimedOut) => {
+                    return Poll::Pending;
+                }
+                Err(e) => return Poll::Ready(Err(e)),
             }
         }
+    }
+}
+
+impl AsyncWrite for BlockingTcp {
+    fn poll_write(self: Pin<&mut Self>, _cx: &mut Context<'_>, buf: &[u8]) -> Poll<io::Result<usize>> {
+        Poll::Ready(self.get_mut().stream.write(buf))
+    }
+
+    fn poll_flush(self: Pin<&mut Self>, _cx: &mut Context<'_>) -> Poll<io::Result<()>> {
+        Poll::Ready(Ok(()))
+    }
+
+    fn poll_shutdown(self: Pin<&mut Self>, _cx: &mut Context<'_>) -> Poll<io::Result<()>> {
+        Poll::Ready(self.get_mut().stream.shutdown(std::net::Shutdown::Write))
+    }
+}
+
+impl Link for BlockingTcp {
+    /// Nothing to drop: over TCP every reply carries its request's transaction id (MODBUS Messaging on
+    /// TCP/IP Implementation Guide V1.0b, MBAP header), so a late reply is told apart and skipped as a
+    /// stray frame (counted) instead of being drained unseen.
+    fn clear_input(&mut self) -> io::Result<()> {
+        Ok(())
+    }
+
+    fn reply_deadline(&mut self, deadline: Instant) {
+        self.deadline = Some(deadline);
+        self.read_once = false;
+    }
+}
+
+/// Connects a [`BlockingTcp`] link to a Modbus TCP device or gateway (on the bus's own thread).
+#[derive(Clone, Debug)]
+pub struct BlockingTcpConnector {
+    /// host:port.
+    pub address: String,
+    /// Connect deadline, and the reply timeout.
+    pub timeout: Duration,
+}
+
+impl Connector for BlockingTcpConnector {
+    type Link = BlockingTcp;
+
+    fn describe(&self) -> String {
+        format!("tcp {}", self.address)
+    }
+
+    async fn connect(&mut self) -> io::Result<Self::Link> {
+        use std::net::ToSocketAddrs;
+        let mut last = io::Error::new(io::ErrorKind::NotFound, format!("{}: no address", self.address));
+        for addr in self.address.to_socket_addrs()? {
+            match std::net::TcpStream::connect_timeout(&addr, self.timeout.max(Duration::from_secs(1))) {
+                Ok(stream) => {
+                    stream.set_nodelay(true)?;
+                    stream.set_read_timeout(Some(self.timeout))?;
+                    stream.set_write_timeout(Some(self.timeout))?;
+                    return Ok(BlockingTcp {
+                        stream,
+                        read_timeout: self.timeout,
+                        timeout: self.timeout,
+                        deadline: None,
+                        read_once: false,
+                    });
+                }
+                Err(e) => last = e,
+            }
+        }
+        Err(last)
     }
 }
 
@@ -96,31 +217,6 @@ impl Connector for SerialConnector {
     }
 }
 
-/// Connects to a Modbus TCP device or gateway.
-#[derive(Clone, Debug)]
-pub struct TcpConnector {
-    /// host:port.
-    pub address: String,
-    /// Connect deadline.
-    pub timeout: Duration,
-}
-
-impl Connector for TcpConnector {
-    type Link = TcpStream;
-
-    fn describe(&self) -> String {
-        format!("tcp {}", self.address)
-    }
-
-    async fn connect(&mut self) -> io::Result<Self::Link> {
-        let stream = tokio::time::timeout(self.timeout.max(Duration::from_secs(1)), TcpStream::connect(&self.address))
-            .await
-            .map_err(|_| io::Error::new(io::ErrorKind::TimedOut, "connect timed out"))??;
-        stream.set_nodelay(true)?;
-        Ok(stream)
-    }
-}
-
 /// Opens a bus's link with doubling back-off and journals the outage: `bus-down` once when it starts (or
 /// when a working link is lost), `bus-up` when the link is back. Both bus kinds use it.
 #[derive(Debug, Default)]
@@ -158,5 +254,72 @@ impl Reconnect {
         sinks.event(None, EventKind::BusDown, message);
         self.down_reported = true;
         tokio::time::sleep(self.backoff.next_wait()).await;
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::net::TcpListener;
+    use tokio::io::{AsyncReadExt, AsyncWriteExt};
+
+    async fn connected(timeout: Duration) -> (BlockingTcp, std::net::TcpStream) {
+        let listener = TcpListener::bind("127.0.0.1:0").unwrap();
+        let address = listener.local_addr().unwrap().to_string();
+        let mut connector = BlockingTcpConnector { address, timeout };
+        let link = connector.connect().await.unwrap();
+        let (peer, _) = listener.accept().unwrap();
+        (link, peer)
+    }
+
+    #[tokio::test(flavor = "current_thread")]
+    async fn a_silent_device_ends_the_read_at_the_exchange_s_deadline_as_a_timeout_not_a_broken_link() {
+        let timeout = Duration::from_millis(150);
+        let (mut link, _peer) = connected(timeout).await;
+        link.write_all(&[0, 1, 0, 0, 0, 6, 1, 4, 0, 0, 0, 5]).await.unwrap();
+        let started = tokio::time::Instant::now();
+        let deadline = started + timeout;
+        link.reply_deadline(deadline.into_std());
+        let mut buf = [0u8; 64];
+        let outcome = tokio::time::timeout_at(deadline, link.read(&mut buf)).await;
+        assert!(outcome.is_err(), "the deadline ends it: {outcome:?}");
+        let waited = started.elapsed();
+        assert!(waited >= timeout && waited < timeout + Duration::from_millis(100), "{waited:?}");
+    }
+
+    #[tokio::test(flavor = "current_thread")]
+    async fn a_reply_in_pieces_is_read_piece_by_piece_within_one_deadline_and_a_closed_peer_reads_as_end() {
+        let timeout = Duration::from_millis(500);
+        let (mut link, mut peer) = connected(timeout).await;
+        let writer = std::thread::spawn(move || {
+            peer.write_all(&[0, 1, 0]).unwrap();
+            std::thread::sleep(Duration::from_millis(60));
+            peer.write_all(&[0, 0, 5, 1]).unwrap();
+            std::thread::sleep(Duration::from_millis(60));
+            drop(peer);
+        });
+        let deadline = tokio::time::Instant::now() + timeout;
+        link.reply_deadline(deadline.into_std());
+        let mut got = Vec::new();
+        let mut buf = [0u8; 64];
+        loop {
+            let n = tokio::time::timeout_at(deadline, link.read(&mut buf)).await.unwrap().unwrap();
+            if n == 0 {
+                break;
+            }
+            got.extend_from_slice(&buf[..n]);
+        }
+        writer.join().unwrap();
+        assert_eq!(got, [0, 1, 0, 0, 0, 5, 1]);
+        // A late read after the deadline was set again gets what is left of it, never the full timeout.
+        assert!(link.read_timeout <= timeout, "{:?}", link.read_timeout);
+    }
+
+    #[tokio::test(flavor = "current_thread")]
+    async fn nobody_listening_is_an_error_at_connect() {
+        let port = TcpListener::bind("127.0.0.1:0").unwrap().local_addr().unwrap().port();
+        let mut connector =
+            BlockingTcpConnector { address: format!("127.0.0.1:{port}"), timeout: Duration::from_secs(1) };
+        assert!(connector.connect().await.is_err());
     }
 }

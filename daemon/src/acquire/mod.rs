@@ -325,19 +325,20 @@ impl PolledFrame {
     }
 }
 
-/// Runs an RTU bus on a thread of its own, with a single-threaded runtime: its silences end with a
-/// thread sleep (tokio's 1 ms timer is too coarse for t3.5), which must hold up no other task. Returns a
-/// task on the caller's runtime that stands for it: aborting or dropping that task stops the bus at its
-/// next wait.
-fn spawn_line_thread(bus: impl std::future::Future<Output = ()> + Send + 'static) -> tokio::task::JoinHandle<()> {
+/// Runs a Modbus bus on a thread of its own (`name`), with a single-threaded runtime: an RTU line's
+/// silences end with a thread sleep (tokio's 1 ms timer is too coarse for t3.5), a TCP link reads and writes
+/// with blocking calls ([`link::BlockingTcp`]); neither may hold up another task. Returns a task on the
+/// caller's runtime that stands for it: aborting or dropping that task stops the bus at its next wait.
+fn spawn_bus_thread(
+    name: &str,
+    bus: impl std::future::Future<Output = ()> + Send + 'static,
+) -> tokio::task::JoinHandle<()> {
     let (stop_tx, stop_rx) = tokio::sync::oneshot::channel::<()>();
     std::thread::Builder::new()
-        .name("oedolog-rtu".into())
+        .name(name.into())
         .spawn(move || {
-            let runtime = tokio::runtime::Builder::new_current_thread()
-                .enable_all()
-                .build()
-                .expect("a runtime for an RTU bus thread");
+            let runtime =
+                tokio::runtime::Builder::new_current_thread().enable_all().build().expect("a runtime for a bus thread");
             runtime.block_on(async move {
                 tokio::select! {
                     () = bus => {}
@@ -345,7 +346,7 @@ fn spawn_line_thread(bus: impl std::future::Future<Output = ()> + Send + 'static
                 }
             });
         })
-        .expect("spawn an RTU bus thread");
+        .expect("spawn a bus thread");
     tokio::spawn(async move {
         let _stop_when_dropped = stop_tx;
         std::future::pending::<()>().await
@@ -373,17 +374,17 @@ pub fn spawn_buses(config: &Config, keys: &[i64], sinks: &Sinks) -> Vec<tokio::t
                 let connector = link::SerialConnector::for_line(line);
                 let settings =
                     modbus::LinkSettings { timeout: line.timeout, retries: line.retries, gap: line.gap, rtu: true };
-                spawn_line_thread(modbus::run_bus(id, connector, settings, frames, sinks))
+                spawn_bus_thread("oedolog-rtu", modbus::run_bus(id, connector, settings, frames, sinks))
             }
             BusKind::Tcp(tcp) => {
-                let connector = link::TcpConnector { address: tcp.address.clone(), timeout: tcp.timeout };
+                let connector = link::BlockingTcpConnector { address: tcp.address.clone(), timeout: tcp.timeout };
                 let settings = modbus::LinkSettings {
                     timeout: tcp.timeout,
                     retries: tcp.retries,
                     gap: Duration::ZERO,
                     rtu: false,
                 };
-                tokio::spawn(modbus::run_bus(id, connector, settings, frames, sinks))
+                spawn_bus_thread("oedolog-tcp", modbus::run_bus(id, connector, settings, frames, sinks))
             }
             BusKind::LineGauge(g) => {
                 let connector =

@@ -151,6 +151,7 @@ async fn exchange<L: Link>(
     link.flush().await.map_err(Failure::Link)?;
     let crc_before = master.crc_failures();
     let deadline = Instant::now() + settings.timeout;
+    link.reply_deadline(deadline.into_std());
     let mut buf = [0u8; 512];
     let outcome = loop {
         let n = match tokio::time::timeout_at(deadline, link.read(&mut buf)).await {
