@@ -137,6 +137,8 @@ pub struct Fleet {
     ignored: IgnoredCounts,
     /// The board's own link to each broker, keyed by (url, prefix).
     brokers: BTreeMap<(String, String), (bool, i64)>,
+    /// Messages and link changes taken so far: a view is current while this and the second of now stay.
+    changes: u64,
 }
 
 /// The board's own link to one broker: while it is down every lab under it only looks quiet.
@@ -267,11 +269,18 @@ impl Fleet {
             frames: BTreeMap::new(),
             ignored: IgnoredCounts::default(),
             brokers: BTreeMap::new(),
+            changes: 0,
         }
+    }
+
+    /// How many messages and link changes the board has taken (what a cached view is keyed by).
+    pub fn changes(&self) -> u64 {
+        self.changes
     }
 
     /// Records the board's link to the broker at `url` (read under `prefix`) going up or down at `now_us`.
     pub fn broker_link(&mut self, url: &str, prefix: &str, connected: bool, now_us: i64) {
+        self.changes += 1;
         let entry = self.brokers.entry((url.to_string(), prefix.to_string())).or_insert((connected, now_us));
         if entry.0 != connected {
             *entry = (connected, now_us);
@@ -286,6 +295,7 @@ impl Fleet {
     /// Takes one message received under `prefix` at `now_us`, or ignores and counts it. An empty payload
     /// removes what the topic held (how a retained message is cleared, MQTT 3.1.1 §3.3.1.3).
     pub fn accept(&mut self, prefix: &str, topic: &str, payload: &[u8], now_us: i64) -> Result<(), Ignored> {
+        self.changes += 1;
         let result = self.take(prefix, topic, payload, now_us);
         match &result {
             Ok(()) => {}

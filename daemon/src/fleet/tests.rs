@@ -201,6 +201,7 @@ fn board_state(users: Vec<crate::config::User>) -> board::BoardState {
         clock: std::sync::Arc::new(crate::clock::ManualClock::new(T0 + S)),
         users: std::sync::Arc::new(users),
         guard: std::sync::Arc::new(crate::http::Guard::new("127.0.0.1:8321".parse().unwrap(), Vec::new())),
+        rendered: Default::default(),
     }
 }
 
@@ -251,4 +252,33 @@ fn the_board_s_own_broker_link_is_shown_with_since_when_it_last_changed() {
     assert!(!board::render(&v).contains("not connected"));
     f.broker_link("mqtt://b", P, false, T0 + 4 * S);
     assert!(board::render(&f.view(T0 + 5 * S)).contains("The board itself is not connected to mqtt://b"));
+}
+
+#[tokio::test]
+async fn the_board_renders_once_per_second_while_nothing_changes_and_at_once_when_a_message_comes() {
+    let clock = std::sync::Arc::new(crate::clock::ManualClock::new(T0 + S));
+    let board_state = board::BoardState { clock: clock.clone(), ..board_state(Vec::new()) };
+    let fleet = board_state.fleet.clone();
+    let router = board::router(board_state);
+    let body = |r: axum::response::Response| async move {
+        let bytes = axum::body::to_bytes(r.into_body(), usize::MAX).await.unwrap();
+        serde_json::from_slice::<serde_json::Value>(&bytes).unwrap()
+    };
+    let first = body(call(router.clone(), "GET", "/api/fleet", None).await).await;
+    assert_eq!(first["frames"].as_array().unwrap().len(), 1);
+    // The same second and nothing new: the same view (its `at_us` did not move with the clock).
+    clock.advance_us(300_000);
+    let again = body(call(router.clone(), "GET", "/api/fleet", None).await).await;
+    assert_eq!(again["at_us"], first["at_us"]);
+    // A message from a broker shows on the next read, within the same second.
+    fleet.lock().unwrap().accept(P, &format!("{P}/a/g/state"), &state("primary", &[]), T0 + S).unwrap();
+    let after = body(call(router.clone(), "GET", "/api/fleet", None).await).await;
+    assert_eq!(after["frames"].as_array().unwrap().len(), 2, "{after}");
+    let page = call(router.clone(), "GET", "/", None).await;
+    let html = axum::body::to_bytes(page.into_body(), usize::MAX).await.unwrap();
+    assert!(String::from_utf8_lossy(&html).matches("<tr").count() >= 2);
+    // The next second: made again, with the clock's time.
+    clock.advance_us(1_000_000);
+    let later = body(call(router, "GET", "/api/fleet", None).await).await;
+    assert_eq!(later["at_us"].as_i64().unwrap(), T0 + S + 1_300_000);
 }
