@@ -19,7 +19,7 @@ use serde::Serialize;
 
 use crate::clock::Clock;
 use crate::config::{BusKind, Calibration, Channel, Config, Frame, PollSchedule};
-use crate::store::{ChannelKind, Event, EventKind, Reading, Writer};
+use crate::store::{ChannelKind, Event, EventKind, Reading, ReadingSet, Writer};
 
 /// Shortest real wait between two polls of one frame on a fast (demo) clock.
 pub const MIN_REAL_POLL: Duration = Duration::from_millis(20);
@@ -247,6 +247,55 @@ impl PolledFrame {
     /// Checks a raw value of channel `ci` and, when valid, stores it; refused values raise events
     /// (when a channel turns bad, then at most every [`REFUSED_EVENT_EVERY_US`], and when it recovers).
     pub fn accept(&mut self, ci: usize, raw: f64, at_us: i64, sinks: &Sinks) {
+        if let Some(reading) = self.check(ci, raw, at_us, sinks) {
+            let mut set = ReadingSet::default();
+            let _ = set.push(reading);
+            self.store(set, &Counters::default(), sinks);
+        }
+    }
+
+    /// Hands the valid readings of one reply to the store and the live watch, and counts them with the
+    /// exchange's `counters` in the live view: one message to the writer, one update of the view.
+    pub fn store(&self, set: ReadingSet, counters: &Counters, sinks: &Sinks) {
+        let stored = !set.is_empty() && {
+            match sinks.writer.readings(set) {
+                Ok(()) => true,
+                Err(error) => {
+                    tracing::error!("readings not stored: {error}");
+                    false
+                }
+            }
+        };
+        if stored && let Some(tap) = &sinks.tap {
+            for &r in set.iter() {
+                let _ = tap.send(r);
+            }
+        }
+        sinks.live.update(self.index, |f| {
+            let t = &mut f.counters;
+            t.requests += counters.requests;
+            t.timeouts += counters.timeouts;
+            t.crc_errors += counters.crc_errors;
+            t.exceptions += counters.exceptions;
+            t.bad_frames += counters.bad_frames;
+            t.refused_values += counters.refused_values;
+            if stored {
+                for r in set.iter() {
+                    t.readings += 1;
+                    let slot = match r.channel {
+                        ChannelKind::Displacement => &mut f.displacement,
+                        ChannelKind::Load => &mut f.load,
+                        ChannelKind::Temperature => &mut f.temperature,
+                    };
+                    *slot = Some((r.at_us, r.value));
+                }
+            }
+        });
+    }
+
+    /// Checks a raw value of channel `ci`: the reading when valid (a load change opens the fast poll
+    /// window); refused values are counted and journalled as [`PolledFrame::accept`] says.
+    pub fn check(&mut self, ci: usize, raw: f64, at_us: i64, sinks: &Sinks) -> Option<Reading> {
         let plan = &self.channels[ci];
         let value = plan.calibration.apply(raw);
         let kind = plan.kind;
@@ -282,7 +331,7 @@ impl PolledFrame {
                     }
                 }
             }
-            return;
+            return None;
         }
         if let Some((since, _, count)) = self.refused[ci].take() {
             let minutes = (at_us - since) as f64 / 60e6;
@@ -305,23 +354,7 @@ impl PolledFrame {
             }
             self.last_load_kn = Some(value);
         }
-        let reading = Reading { frame_key: self.key, channel: kind, at_us, raw, value };
-        if let Err(error) = sinks.writer.reading(reading) {
-            tracing::error!("reading not stored: {error}");
-            return;
-        }
-        if let Some(tap) = &sinks.tap {
-            let _ = tap.send(reading);
-        }
-        sinks.live.update(self.index, |f| {
-            f.counters.readings += 1;
-            let slot = match kind {
-                ChannelKind::Displacement => &mut f.displacement,
-                ChannelKind::Load => &mut f.load,
-                ChannelKind::Temperature => &mut f.temperature,
-            };
-            *slot = Some((at_us, value));
-        });
+        Some(Reading { frame_key: self.key, channel: kind, at_us, raw, value })
     }
 }
 

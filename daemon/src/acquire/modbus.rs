@@ -13,6 +13,7 @@ use tokio::time::Instant;
 
 use super::link::{Connector, Link, Reconnect};
 use super::{Counters, MIN_REAL_POLL, PolledFrame, Sinks};
+use crate::store::ReadingSet;
 use oedolog_protocol::registers::decode_raw;
 
 /// Timing and retry settings of a link.
@@ -235,11 +236,13 @@ async fn poll_frame<L: Link>(
                 other => break other,
             }
         };
-        merge(sinks, frame.index, &counters);
         match outcome {
             Ok(Reply::Normal(Response::ReadHoldingRegisters(words) | Response::ReadInputRegisters(words))) => {
                 *timeouts_in_row = 0;
                 let at_us = sinks.clock.now_us();
+                // The reply's readings and the exchange's counters go out together (one message to the
+                // writer, one update of the live view).
+                let mut set = ReadingSet::default();
                 for &(ci, offset) in &read.parts {
                     let map = frame.channels[ci].register.clone().expect("planned channels have registers");
                     let len = usize::from(map.quantity());
@@ -249,11 +252,24 @@ async fn poll_frame<L: Link>(
                             .map_err(|_| "bad")
                     });
                     match raw {
-                        Ok(raw) => frame.accept(ci, raw, at_us, sinks),
-                        Err(_) => sinks.live.update(frame.index, |f| f.counters.refused_values += 1),
+                        Ok(raw) => {
+                            if let Some(reading) = frame.check(ci, raw, at_us, sinks)
+                                && let Err(reading) = set.push(reading)
+                            {
+                                frame.store(std::mem::take(&mut set), &Counters::default(), sinks);
+                                let _ = set.push(reading);
+                            }
+                        }
+                        Err(_) => counters.refused_values += 1,
                     }
                 }
+                frame.store(set, &counters, sinks);
+                continue;
             }
+            _ => merge(sinks, frame.index, &counters),
+        }
+        match outcome {
+            Ok(Reply::Normal(Response::ReadHoldingRegisters(_) | Response::ReadInputRegisters(_))) => {}
             Ok(Reply::Normal(other)) => tracing::warn!("frame {}: unexpected response {other:?}", frame.id),
             Ok(Reply::Exception(code)) => {
                 *timeouts_in_row = 0;

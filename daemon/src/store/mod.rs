@@ -130,6 +130,43 @@ pub struct Reading {
     pub value: f64,
 }
 
+/// Up to [`ReadingSet::CAPACITY`] readings handed over in one message (the channels of one reply).
+#[derive(Clone, Copy, Debug, Default)]
+pub struct ReadingSet {
+    items: [Option<Reading>; ReadingSet::CAPACITY],
+}
+
+impl ReadingSet {
+    /// As many as a frame has channels (displacement, load, temperature).
+    pub const CAPACITY: usize = 3;
+
+    /// Adds `reading`; gives it back when the set is full.
+    pub fn push(&mut self, reading: Reading) -> Result<(), Reading> {
+        match self.items.iter_mut().find(|r| r.is_none()) {
+            Some(slot) => {
+                *slot = Some(reading);
+                Ok(())
+            }
+            None => Err(reading),
+        }
+    }
+
+    /// The readings, in the order added.
+    pub fn iter(&self) -> impl Iterator<Item = &Reading> {
+        self.items.iter().flatten()
+    }
+
+    /// How many.
+    pub fn len(&self) -> usize {
+        self.iter().count()
+    }
+
+    /// Whether there are none.
+    pub fn is_empty(&self) -> bool {
+        self.items[0].is_none()
+    }
+}
+
 /// What one commit wrote; sent to the commit observer after the transaction is durable.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub struct CommitReport {
@@ -153,6 +190,8 @@ type Job = Box<dyn FnOnce(&Connection) -> (bool, Reply) + Send>;
 
 enum Op {
     Reading(Reading),
+    /// The readings of one reply, in one message.
+    Readings(ReadingSet),
     Event(Event),
     /// Runs inside the writer's transaction and commits at once (operator actions, set-up).
     Job(Job),
@@ -292,6 +331,12 @@ impl Writer {
         self.tx.send(Op::Reading(reading)).map_err(|_| StoreError::WriterGone)
     }
 
+    /// Queues the readings of one reply, in one message to the writer.
+    pub fn readings(&self, set: ReadingSet) -> Result<(), StoreError> {
+        self.queued.fetch_add(set.len() as u64, Ordering::Relaxed);
+        self.tx.send(Op::Readings(set)).map_err(|_| StoreError::WriterGone)
+    }
+
     /// Queues an event.
     pub fn event(&self, event: Event) -> Result<(), StoreError> {
         self.tx.send(Op::Event(event)).map_err(|_| StoreError::WriterGone)
@@ -400,6 +445,7 @@ fn write_loop(
         loop {
             match next.take() {
                 Some(Op::Reading(r)) => batch.readings.push(r),
+                Some(Op::Readings(set)) => batch.readings.extend(set.iter().copied()),
                 Some(Op::Event(e)) => batch.events.push(e),
                 Some(Op::Job(j)) => {
                     batch.jobs.push(j);

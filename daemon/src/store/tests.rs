@@ -423,3 +423,31 @@ fn a_database_has_one_identity_kept_on_reopen_and_by_a_backup_and_a_new_database
     assert!(conn.execute("UPDATE store_identity SET id = 'ABC'", []).is_err());
     assert!(conn.execute("UPDATE store_identity SET id = upper(id)", []).is_err());
 }
+
+#[test]
+fn a_reading_set_holds_one_reply_s_channels_in_order_and_gives_back_a_fourth() {
+    let r = |channel, at_us| Reading { frame_key: 1, channel, at_us, raw: 1.0, value: 1.0 };
+    let mut set = ReadingSet::default();
+    assert!(set.is_empty());
+    for (i, c) in ChannelKind::ALL.into_iter().enumerate() {
+        set.push(r(c, i as i64)).unwrap();
+    }
+    assert_eq!(set.len(), 3);
+    assert_eq!(set.iter().map(|x| x.at_us).collect::<Vec<_>>(), [0, 1, 2]);
+    let fourth = r(ChannelKind::Load, 9);
+    assert_eq!(set.push(fourth).unwrap_err().at_us, 9);
+    // Through the writer: every reading of the set is stored.
+    let (_dir, path) = temp_db();
+    let db = open(&path).unwrap();
+    let key = frame_key(&db, "F1", "set", 0).unwrap();
+    let thread = Writer::spawn(db, WriterPolicy::default(), |_| {});
+    let mut set = ReadingSet::default();
+    for (i, c) in ChannelKind::ALL.into_iter().enumerate() {
+        set.push(Reading { frame_key: key, channel: c, at_us: 10 + i as i64, raw: 2.0, value: 2.0 }).unwrap();
+    }
+    thread.writer().readings(set).unwrap();
+    thread.close();
+    let conn = rusqlite::Connection::open(&path).unwrap();
+    let n: i64 = conn.query_row("SELECT count(*) FROM readings WHERE frame_key = ?1", [key], |r| r.get(0)).unwrap();
+    assert_eq!(n, 3);
+}
