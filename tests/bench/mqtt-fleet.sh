@@ -23,6 +23,9 @@
 # the broker's) on GET / and GET /api/fleet while the 50 labs (1600 frames) publish.
 # No targets: the issue asks for the figures. Not part of tests/run.sh (benchmarks are not timed tests).
 #   tests/bench/mqtt-fleet.sh [SECONDS]     (default 20; installs mosquitto and wrk with apt-get if root)
+#   BOARD_GZIP=1 tests/bench/mqtt-fleet.sh  wrk and the one-client timings send `Accept-Encoding: gzip` (the
+#                                           board compresses then; wrk asks for nothing by default, nor does
+#                                           this script)
 set -euo pipefail
 cd "$(dirname "${BASH_SOURCE[0]}")/../.."
 seconds=${1:-20}
@@ -188,14 +191,18 @@ PY
 )
 page_bytes=$(curl -sf -o /dev/null -w '%{size_download}' "http://$board/")
 api_bytes=$(curl -sf -o /dev/null -w '%{size_download}' "http://$board/api/fleet")
-echo "== the board: $board_labs labs ($board_online online), $board_frames frames, frames per lab {$board_per_lab}; page $page_bytes bytes, /api/fleet $api_bytes bytes"
+gzip_h=()
+[ -n "${BOARD_GZIP:-}" ] && gzip_h=(-H 'Accept-Encoding: gzip')
+page_gz=$(curl -sf -H 'Accept-Encoding: gzip' -o /dev/null -w '%{size_download}' "http://$board/")
+api_gz=$(curl -sf -H 'Accept-Encoding: gzip' -o /dev/null -w '%{size_download}' "http://$board/api/fleet")
+echo "== the board: $board_labs labs ($board_online online), $board_frames frames, frames per lab {$board_per_lab}; page $page_bytes bytes ($page_gz gzipped), /api/fleet $api_bytes bytes ($api_gz gzipped)"
 w_t0=$(now)
 wrk_rows=()
 for path in / /api/fleet; do
-  serial=$(for _ in $(seq 20); do curl -s -o /dev/null -w '%{time_total}\n' "http://$board$path"; done |
+  serial=$(for _ in $(seq 20); do curl -s "${gzip_h[@]}" -o /dev/null -w '%{time_total}\n' "http://$board$path"; done |
     sort -n | awk '{t[NR] = $1 * 1000} END {printf "%.2f", t[int((NR + 1) / 2)]}')
-  echo "== wrk -c 50 -t 2 -d ${seconds}s --timeout 10s --latency $path"
-  taskset -c $daemon_cpu wrk -c 50 -t 2 -d "${seconds}s" --timeout 10s --latency "http://$board$path" > "$work/wrk.out"
+  echo "== wrk -c 50 -t 2 -d ${seconds}s --timeout 10s --latency ${gzip_h[*]:+-H '${gzip_h[1]}' }$path"
+  taskset -c $daemon_cpu wrk -c 50 -t 2 -d "${seconds}s" --timeout 10s --latency "${gzip_h[@]}" "http://$board$path" > "$work/wrk.out"
   grep -E "Latency|50%|99%|Requests/sec|Non-2xx|Socket errors" "$work/wrk.out" | sed 's/^/   /'
   p50=$(to_ms "$(awk '$1 == "50%" {print $2}' "$work/wrk.out")")
   p99=$(to_ms "$(awk '$1 == "99%" {print $2}' "$work/wrk.out")")
@@ -231,7 +238,8 @@ kill $daemon; wait $daemon 2> /dev/null || true
 
 python3 - "$work" "$seconds" "$frames" "$a_ticks" "$a_rows" "$b_ticks" "$b_rows" "$a_ns" "$b_ns" "$b_pub" "$b_t0" "$b_t1" \
   "$w_t0" "$w_t1" "$stored" "$published" "$settled" "$board_labs" "$board_frames" "$board_per_lab" "$board_online" \
-  "$board2_labs" "$board2_frames" "$page_bytes" "$api_bytes" "$cpus" "$mosquitto_version" "$*" << 'PY' > "$work/summary.txt"
+  "$board2_labs" "$board2_frames" "$page_bytes" "$api_bytes" "$cpus" "$mosquitto_version" "$*" "$page_gz" "$api_gz" \
+  "${BOARD_GZIP:+gzip}" << 'PY' > "$work/summary.txt"
 import json, sys
 a = sys.argv[1:]
 work, seconds, frames = a[0], int(a[1]), int(a[2])
@@ -240,6 +248,7 @@ b_t0, b_t1, w_t0, w_t1 = map(int, a[10:14])
 stored, published, settled = int(a[14]), int(float(a[15])), a[16]
 board_labs, board_frames, per_lab, online, board2_labs, board2_frames, page_bytes, api_bytes = a[17:25]
 cpus, mosq, args = a[25], a[26], a[27]
+page_gz, api_gz, asked = a[28], a[29], a[30]
 
 import bisect
 commits = sorted(int(l.split()[0]) for l in open(f"{work}/b/daemon.out") if " committed " in l)
@@ -279,7 +288,7 @@ def cpu(a_us, b_us):
 a_cpu_us, b_cpu_us = a_ticks * 1e4, b_ticks * 1e4
 per_stored, extra = cpu(a_cpu_us, b_cpu_us)
 ns_stored, ns_extra = cpu(a_ns / 1e3, b_ns / 1e3)
-print(f"== summary: tests/bench/mqtt-fleet.sh {args}".rstrip())
+print(f"== summary: {'BOARD_GZIP=1 ' if asked else ''}tests/bench/mqtt-fleet.sh {args}".rstrip())
 print(f"machine: {cpus} CPUs, mosquitto {mosq}; the daemon (and later wrk) pinned to one CPU; broker, simulator, load, consumer and board to the other")
 print(f"labs: lab00 = oedolog run ({frames} frames of oedolog-sim over Modbus TCP, poll_ms = 1000, 3 readings a poll) + lab01…lab{len(gen):02d} from mqtt_load gen ({frames} frames each, same rate and payloads)")
 def phases(pairs):
@@ -310,7 +319,8 @@ print(f"  extra per published reading: ({b_cpu_us:.0f} − {b_rows} × {per_stor
 print(f"  cross-check by schedstat (ns on CPU, threads alive at the window's end): {ns_stored:6.1f} µs per stored reading, "
       f"extra {ns_extra:6.1f} µs per published reading, ratio {ns_extra / ns_stored:4.2f}")
 print(f"fleet board: {board_labs} labs ({online} online), {board_frames} frames, frames per lab {{{per_lab}}} before wrk; "
-      f"{board2_labs} labs, {board2_frames} frames after; page {page_bytes} bytes, /api/fleet {api_bytes} bytes")
+      f"{board2_labs} labs, {board2_frames} frames after; page {page_bytes} bytes, /api/fleet {api_bytes} bytes "
+      f"({page_gz} / {api_gz} gzipped); wrk {'sends Accept-Encoding: gzip' if asked else 'asks for no encoding (BOARD_GZIP=1 asks for gzip)'}")
 PY
 printf '%s\n' "${wrk_rows[@]}" >> "$work/summary.txt"
 # The first payload of each kind from the daemon (lab00) and the generator (lab01) against docs/mqtt's
