@@ -1,8 +1,9 @@
 //! Publishing to a real MQTT broker (Debian's mosquitto, started here on a free loopback port) with an
 //! independent consumer (`mosquitto_sub` from mosquitto-clients, a persistent QoS 1 session so the broker
 //! queues for it while it is away, MQTT 3.1.1 §3.1.2.4). The daemon starts with the broker down, the
-//! broker comes up, is stopped mid-run and restarted, and the daemon is killed with `kill -9` and
-//! restarted: after de-duplication by sequence number the consumer holds every stored reading of each
+//! broker comes up, is stopped for 30 s mid-run, the daemon is killed with `kill -9` while it owes the
+//! broker that backlog and restarted, the broker returns, and the daemon is killed again while it publishes
+//! live: after de-duplication by sequence number the consumer holds every stored reading of each
 //! channel, in order, with no gap; the retained status is the last will `offline` after the kill and the
 //! retained states name every frame.
 
@@ -146,13 +147,29 @@ fn a_broker_away_at_start_stopped_mid_run_and_a_kill_dash_nine_lose_no_reading_a
     assert!(words.contains(&format!("MQTT broker mqtt://127.0.0.1:{port} (lab lab-a)")), "{words}");
     assert!(words.contains("behind the store by more than its limit of 10 s"), "{words}");
     assert_eq!(metric(&daemon, "oedolog_publish_lag_alarm"), 1.0);
+
+    // 4. kill -9 of the daemon while it owes the broker 30 s of readings: the restarted daemon takes the
+    //    catch-up from its persisted cursors (nothing skipped, nothing sent twice beyond QoS 1), and the
+    //    alarm left open by the killed run is cleared by the new one once it has caught up.
+    let killed_us = chrono_now_us();
+    let status = Command::new("kill").args(["-KILL", &daemon.process.id().to_string()]).status().unwrap();
+    assert!(status.success());
+    drop(daemon);
+    let daemon = Daemon::start(&config, &[]).unwrap();
+    wait_until("still behind after the restart", Duration::from_secs(15), || {
+        metric(&daemon, "oedolog_publish_lag_seconds") > 10.0
+    });
+    assert_eq!(metric(&daemon, "oedolog_publish_readings_total"), 0.0, "nothing published with the broker away");
     let third = broker(dir.path(), port);
     wait_until("reconnected", Duration::from_secs(60), || metric(&daemon, "oedolog_publish_connected") == 1.0);
     wait_until("caught up again", Duration::from_secs(30), || metric(&daemon, "oedolog_publish_lag_seconds") < 2.0);
+    assert!(
+        metric(&daemon, "oedolog_publish_readings_total") >= 300.0,
+        "the restarted daemon sent the backlog (2 frames × 3 channels × 10 polls/s × 30 s and more)"
+    );
     wait_until("the publish-lag alarm cleared", Duration::from_secs(20), || lab_alarm(&daemon).is_none());
 
-    // 4. kill -9 of the daemon while it publishes; it resumes from its cursors.
-    let killed_us = chrono_now_us();
+    // 5. kill -9 of the daemon while it publishes live; it resumes from its cursors.
     let status = Command::new("kill").args(["-KILL", &daemon.process.id().to_string()]).status().unwrap();
     assert!(status.success());
     drop(daemon);
@@ -164,7 +181,7 @@ fn a_broker_away_at_start_stopped_mid_run_and_a_kill_dash_nine_lose_no_reading_a
         metric(&daemon, "oedolog_publish_readings_total") > 0.0 && metric(&daemon, "oedolog_publish_lag_seconds") < 2.0
     });
 
-    // 5. Retained state of each frame and the last will after a second kill -9 (MQTT 3.1.1 §3.1.2.5, §3.3.1.3).
+    // 6. Retained state of each frame and the last will after a second kill -9 (MQTT 3.1.1 §3.1.2.5, §3.3.1.3).
     let status = Command::new("kill").args(["-KILL", &daemon.process.id().to_string()]).status().unwrap();
     assert!(status.success());
     drop(daemon);
